@@ -1,0 +1,160 @@
+"""A single-dish telescope and its observing path: beam smoothing, thermal noise, units.
+
+The dish is described by its diameter (beam FWHM = taper * lambda / D) or by a fixed
+``radio_beam.Beam``, a beam efficiency eta and a system temperature. Observing a sky cube
+convolves every channel with the beam, adds noise correlated on the beam scale with the rms
+of the radiometer equation (see :mod:`synth.instrument.noise`) or a given rms, and returns the
+cube in K (main-beam temperature) or Jy/beam with the beam attached.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+import astropy.units as u
+from radio_beam import Beam
+
+from ..errors import InstrumentError
+from .beam import (TAPER_RANGE, convolve_beam, dish_beam, jy_per_k, sky_frequencies,
+                   to_unit, unit_name)
+from .cube_utils import check_cube, cube_values, new_cube, pixel_scale, reference_frequency
+from .noise import correlated_noise, hanning_noise_factor, radiometer_rms
+from .spectral import channel_width_frequency, velocity_axis
+
+__all__ = ["SingleDish", "observe_single_dish", "noise_rms_for"]
+
+
+@dataclass(frozen=True)
+class SingleDish:
+    """A single-dish telescope.
+
+    Parameters
+    ----------
+    diameter : Quantity (length), optional
+        Dish diameter; the beam FWHM is ``taper * lambda / D``.
+    efficiency : float in (0, 1]
+        Main-beam efficiency eta (divides the radiometer noise).
+    tsys : Quantity (temperature), optional
+        System temperature, needed for noise from the radiometer equation.
+    beam : radio_beam.Beam, optional
+        A fixed beam used at every frequency instead of the diameter.
+    taper : float
+        FWHM in units of lambda / D: 1.02 uniform illumination, ~1.13 typical taper,
+        1.2 strong taper (REFERENCES.md). Allowed range TAPER_RANGE.
+    name : str
+        Recorded in the output's INSTRUME card.
+    """
+
+    diameter: u.Quantity = None
+    efficiency: float = 0.7
+    tsys: u.Quantity = None
+    beam: Beam = None
+    taper: float = 1.13
+    name: str = "dish"
+
+    def __post_init__(self):
+        if (self.diameter is None) == (self.beam is None):
+            raise InstrumentError("SingleDish: give exactly one of diameter (e.g. 30 * u.m) "
+                                  "or beam (a radio_beam.Beam)")
+        if self.diameter is not None:
+            _check_quantity(self.diameter, u.m, "diameter", "30 * u.m", allow_zero=False)
+        if self.beam is not None and not isinstance(self.beam, Beam):
+            raise InstrumentError(f"beam: expected a radio_beam.Beam, got "
+                                  f"{type(self.beam).__name__}")
+        if not (isinstance(self.efficiency, (int, float)) and 0 < self.efficiency <= 1):
+            raise InstrumentError(f"efficiency: must be a number in (0, 1], "
+                                  f"got {self.efficiency!r}")
+        if self.tsys is not None:
+            _check_quantity(self.tsys, u.K, "tsys", "120 * u.K", allow_zero=False)
+        lo, hi = TAPER_RANGE
+        if not (isinstance(self.taper, (int, float)) and lo <= self.taper <= hi):
+            raise InstrumentError(f"taper: must be between {lo} and {hi} (FWHM in lambda/D; "
+                                  f"1.02 uniform, 1.13 typical), got {self.taper!r}")
+        if not isinstance(self.name, str) or not self.name:
+            raise InstrumentError(f"name: must be a non-empty string, got {self.name!r}")
+
+    def beam_at(self, freq):
+        """The beam at frequency ``freq`` (Quantity): the fixed beam, or taper * lambda / D."""
+        if self.beam is not None:
+            return self.beam
+        return dish_beam(self.diameter, freq, self.taper)
+
+
+def _check_quantity(value, unit, field, hint, allow_zero=True):
+    if not (isinstance(value, u.Quantity) and value.unit.is_equivalent(unit)
+            and value.isscalar):
+        raise InstrumentError(f"{field}: expected a scalar Quantity in {unit} (e.g. {hint}), "
+                              f"got {value!r}")
+    number = value.to_value(unit)
+    if not np.isfinite(number) or number < 0 or (number == 0 and not allow_zero):
+        raise InstrumentError(f"{field}: must be {'>= 0' if allow_zero else 'positive'}, "
+                              f"got {value}")
+
+
+def noise_rms_for(cube, dish, beam, *, integration_time=None, rms=None, hanning=False):
+    """Noise rms per channel in K for observing ``cube`` with ``dish``.
+
+    ``rms`` (K, or Jy/beam converted with the beam at the line frequency) wins; otherwise the
+    radiometer equation with the dish's T_sys and eta, the cube's channel width in Hz and
+    ``integration_time``; Hanning smoothing lowers it by sqrt(3/8)."""
+    if rms is not None:
+        if not isinstance(rms, u.Quantity):
+            raise InstrumentError(f"rms: expected a Quantity in K or Jy/beam, got {rms!r}")
+        if rms.unit.is_equivalent(u.Jy / u.beam):
+            k_per_jy = 1 / jy_per_k(beam, reference_frequency(cube))
+            rms = rms.to_value(u.Jy / u.beam) * k_per_jy * u.K
+        _check_quantity(rms, u.K, "rms", "0.05 * u.K")
+        return rms.to(u.K)
+    if dish.tsys is None or integration_time is None:
+        raise InstrumentError("noise: needs rms=... or both the dish's tsys and "
+                              "integration_time=...; or pass noise=False")
+    v, _ = velocity_axis(cube)
+    width = abs(v[1] - v[0])
+    dnu = channel_width_frequency(width, reference_frequency(cube))
+    sigma = radiometer_rms(dish.tsys, dish.efficiency, dnu, integration_time)
+    return sigma * hanning_noise_factor() if hanning else sigma
+
+
+def _seed_or_new(seed):
+    if seed is None:
+        return int(np.random.SeedSequence().generate_state(1)[0])
+    if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) \
+            or seed < 0:
+        raise InstrumentError(f"seed: must be a non-negative integer, got {seed!r}")
+    return int(seed)
+
+
+def observe_single_dish(cube, dish, *, integration_time=None, rms=None, noise=True,
+                        seed=None, unit=None, hanning=False):
+    """Observe a sky cube (after the spectral step) with a single dish.
+
+    Beam convolution (:func:`synth.instrument.beam.convolve_beam`), then noise correlated on
+    the beam (:func:`synth.instrument.noise.correlated_noise`) added in K, then conversion to
+    ``unit`` ("K" default, or "Jy/beam"). ``seed=None`` draws a fresh seed, recorded in
+    NSEED so the result can be reproduced. ``hanning`` says the channels were Hanning
+    smoothed, so the noise is correlated between neighbours the same way.
+
+    Meta / header cards: INSTRUME, NOISERMS (in the output unit), NOISEUNI, NSEED (-1 if
+    noiseless), plus CHANWID/HANNING from the spectral step.
+    """
+    check_cube(cube)
+    if not isinstance(dish, SingleDish):
+        raise InstrumentError(f"instrument: expected SingleDish, got {type(dish).__name__}")
+    out_unit = unit_name(unit if unit is not None else "K")
+    beam = dish.beam_at(reference_frequency(cube))
+    smoothed = to_unit(convolve_beam(cube, beam), "K")
+    data_k = cube_values(smoothed)
+    sigma_k, used_seed = 0.0 * u.K, -1
+    if noise:
+        sigma_k = noise_rms_for(cube, dish, beam, integration_time=integration_time,
+                                rms=rms, hanning=hanning)
+        used_seed = _seed_or_new(seed)
+        rng = np.random.default_rng(used_seed)
+        data_k += correlated_noise(data_k.shape, beam, pixel_scale(cube),
+                                   sigma_k.to_value(u.K), rng, hanning=hanning)
+    sigma_out = sigma_k.to_value(u.K)
+    if out_unit == "Jy/beam":
+        data_k *= jy_per_k(beam, sky_frequencies(smoothed))[:, None, None]
+        sigma_out *= float(jy_per_k(beam, reference_frequency(cube)))
+    meta = {"INSTRUME": dish.name, "NOISERMS": float(sigma_out), "NOISEUNI": out_unit,
+            "NSEED": used_seed}
+    return new_cube(smoothed, data_k, u.Unit(out_unit), beam=beam, meta_update=meta)
