@@ -82,8 +82,8 @@ class CollisionRates:
     def __post_init__(self):
         owner = f"collision rates ({self.partner})"
         if self.partner not in COLLISION_PARTNERS:
-            raise MolecularDataError(
-                f"collision partner {self.partner!r} unknown; valid: {', '.join(COLLISION_PARTNERS)}")
+            raise MolecularDataError(f"collision partner {self.partner!r} unknown; valid: "
+                                     f"{', '.join(COLLISION_PARTNERS)}")
         temps = _frozen(self.temperatures_k, np.float64, "temperatures_k", owner)
         upper = _frozen(self.upper, np.int64, "upper", owner)
         lower = _frozen(self.lower, np.int64, "lower", owner)
@@ -96,7 +96,8 @@ class CollisionRates:
                                      "must be 1-D of equal length")
         if rates.shape != (upper.size, temps.size):
             raise MolecularDataError(f"{owner}: rates_cm3s has shape {rates.shape}, expected "
-                                     f"(n_transitions, n_temperatures) = {(upper.size, temps.size)}")
+                                     "(n_transitions, n_temperatures) = "
+                                     f"{(upper.size, temps.size)}")
         if np.any(rates < 0):
             raise MolecularDataError(f"{owner}: rates_cm3s must be >= 0")
         for name, value in (("temperatures_k", temps), ("upper", upper), ("lower", lower),
@@ -204,7 +205,8 @@ class MolecularData:
         for name, values in checks:
             if np.any(values <= 0):
                 i = int(np.argmax(values <= 0))
-                raise MolecularDataError(f"{owner}: {name}[{i}] = {values[i]!r}; must be > 0")
+                raise MolecularDataError(
+                    f"{owner}: {name}[{i}] = {float(values[i])!r}; must be > 0")
         bad = energy[arrays["upper"]] <= energy[arrays["lower"]]
         if np.any(bad):
             i = int(np.argmax(bad))
