@@ -147,6 +147,13 @@ def test_view_keeps_input_and_units_and_pickles():
     np.testing.assert_array_equal(again.n_h2_cm3, v.n_h2_cm3)
 
 
+def test_euler_deg_alias():
+    """The config spelling {euler_deg = [a, b, g]} gives the same view as {"rotation": ...}."""
+    snap = make_snapshot(velocity=(1.0, 2.0, 3.0))
+    a = view(snap, {"euler_deg": [0, 90, 90]})
+    np.testing.assert_allclose(a.velocity_cms, view(snap, "x").velocity_cms, atol=1e-6)
+
+
 def test_angles_in_radians_are_converted():
     """Angle Quantities are converted to degrees: pi/2 rad about y' equals 90 deg."""
     snap = make_snapshot(velocity=(1.0, 2.0, 3.0))
@@ -159,7 +166,8 @@ def test_angles_in_radians_are_converted():
     ("+x", "line_of_sight '\\+x' is not known"),
     ((1.0, 2.0), "three finite Euler angles"),
     ((np.nan, 0.0, 0.0), "three finite Euler angles"),
-    ({"rot": (0, 0, 0)}, "expected 'rotation'"),
+    ({"rot": (0, 0, 0)}, "expected one of \\('rotation', 'euler_deg'\\)"),
+    ({"rotation": (0, 0, 0), "euler_deg": (0, 0, 0)}, "expected one of"),
     ({"rotation": (0, 0, 0), "grid": "huge"}, "rotation grid 'huge' is not known"),
     ({"rotation": (1, 2, 3) * u.m}, "unit 'm'; use degrees"),
     (None, "is not valid"),

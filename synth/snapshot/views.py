@@ -37,7 +37,7 @@ from scipy import ndimage
 
 from ..errors import SnapshotError
 
-__all__ = ["view", "AXIS_VIEWS", "ROTATION_GRIDS", "rotation_matrix"]
+__all__ = ["view", "AXIS_VIEWS", "ANGLE_KEYS", "ROTATION_GRIDS", "rotation_matrix"]
 
 #: Axis views: rows of R (new unit vectors in the old frame) as (old axis, sign) pairs.
 AXIS_VIEWS = {
@@ -48,6 +48,9 @@ AXIS_VIEWS = {
     "y": ((2, 1), (0, 1), (1, 1)),
     "-y": ((2, -1), (0, 1), (1, -1)),
 }
+
+#: Keys of a rotation dict that hold the Euler angles (deg); ``euler_deg`` is an alias.
+ANGLE_KEYS = ("rotation", "euler_deg")
 
 #: Output grids for arbitrary rotations.
 ROTATION_GRIDS = ("enclose", "same")
@@ -66,7 +69,8 @@ def view(snapshot, line_of_sight="z"):
         One of :data:`AXIS_VIEWS` (``"z"``, ``"-z"``, ``"x"``, ``"-x"``, ``"y"``, ``"-y"``);
         or three intrinsic z-y-z Euler angles ``(alpha, beta, gamma)`` in degrees (floats or
         angle Quantities); or a dict ``{"rotation": (alpha, beta, gamma), "grid": "enclose"}``
-        with ``grid`` one of :data:`ROTATION_GRIDS`.
+        (``"euler_deg"`` is accepted for ``"rotation"``) with ``grid`` one of
+        :data:`ROTATION_GRIDS`.
 
     Returns
     -------
@@ -119,13 +123,14 @@ def _parse_rotation(line_of_sight):
     grid = "enclose"
     angles = line_of_sight
     if isinstance(line_of_sight, dict):
-        unknown = set(line_of_sight) - {"rotation", "grid"}
-        if unknown or "rotation" not in line_of_sight:
+        keys = set(line_of_sight)
+        angle_keys = keys & set(ANGLE_KEYS)
+        if keys - set(ANGLE_KEYS) - {"grid"} or len(angle_keys) != 1:
             raise SnapshotError(
-                f"line_of_sight dict has keys {sorted(line_of_sight)}; expected 'rotation' "
+                f"line_of_sight dict has keys {sorted(keys)}; expected one of {ANGLE_KEYS} "
                 "(alpha, beta, gamma in deg) and optionally 'grid'"
             )
-        angles = line_of_sight["rotation"]
+        angles = line_of_sight[angle_keys.pop()]
         grid = line_of_sight.get("grid", grid)
     if grid not in ROTATION_GRIDS:
         raise SnapshotError(f"rotation grid '{grid}' is not known; use one of {ROTATION_GRIDS}")
