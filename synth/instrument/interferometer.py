@@ -1,0 +1,378 @@
+"""The Interferometer instrument and the interferometric observation of a sky cube.
+
+``observe_interferometric`` streams over channels: for each channel it multiplies the sky
+(Jy/pixel) by the primary beam of each dish pair, predicts visibilities with ducc0's
+gridder, adds radiometer noise, weights, grids the dirty image and, if asked, deconvolves
+with Högbom CLEAN and restores with a Gaussian fitted to the PSF main lobe. Several arrays
+are imaged jointly (their visibilities concatenated); a single dish in the list is feathered
+in afterwards (see :mod:`synth.instrument.combine`).
+"""
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import warnings
+
+import astropy.units as u
+import numpy as np
+
+from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
+from .arrays import BUILTIN_LAYOUTS, builtin_layout, read_layout_csv
+from .clean import hogbom
+from .imaging import fast_dirty, fast_psf, fit_restoring_beam, restore
+from .primary_beam import PB_SHAPES, pair_beam
+from .uv import uv_tracks
+from .visibilities import (add_thermal_noise, check_sampling, cube_frequencies_hz, cube_geometry,
+                           grid_dirty, jy_per_pixel_factor, predict, visibility_sigma_jy)
+from .weighting import WEIGHTINGS, image_noise_jy, imaging_weights
+
+__all__ = ["Interferometer", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
+           "run_observation", "new_observed_cube", "Tracks"]
+
+#: keyword options of observe_interferometric and their defaults
+OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s,
+                       weighting="natural", robust=0.5, deconvolve=False, threshold=3.0,
+                       niter=5000, gain=0.1, fast=False, pb_correct=False, pb_limit=0.2,
+                       primary_beam=True, bandwidth=None,
+                       sd_scale=1.0, rms=None, unit="Jy/beam")
+
+
+def _quantity(name, value, unit, positive=True):
+    try:
+        q = u.Quantity(value)
+        v = q.to_value(unit)
+    except (u.UnitsError, TypeError, ValueError) as exc:
+        raise InstrumentError(f"{name}={value!r} must be a Quantity convertible to {unit}") from exc
+    if not np.all(np.isfinite(v)) or (positive and not np.all(v > 0)):
+        raise InstrumentError(f"{name}={value!r} must be finite" + (" and > 0" if positive else ""))
+    return q.to(unit)
+
+
+def _resolve_antennas(antennas):
+    """(names, enu_m (n, 3), diameter_m (n,) with NaN = default) from any accepted form."""
+    if isinstance(antennas, (str, Path)):
+        if str(antennas) in BUILTIN_LAYOUTS:
+            lay = builtin_layout(str(antennas))
+        else:
+            lay = read_layout_csv(antennas)
+        return lay.names, lay.enu_m, lay.diameter_m
+    try:
+        enu = (u.Quantity(antennas).to_value(u.m) if isinstance(antennas, u.Quantity)
+               else np.asarray(antennas, dtype=np.float64))
+    except (u.UnitsError, TypeError, ValueError) as exc:
+        raise InstrumentError(f"antennas: cannot read {type(antennas).__name__} as (n, 3) ENU "
+                              "metres") from exc
+    if enu.ndim != 2 or enu.shape[1] != 3 or enu.shape[0] < 2 or not np.isfinite(enu).all():
+        raise InstrumentError(f"antennas with shape {enu.shape} must be a finite (n, 3) array of "
+                              f"ENU metres with n >= 2, a CSV path or one of {sorted(BUILTIN_LAYOUTS)}")
+    names = tuple(f"a{i + 1:02d}" for i in range(enu.shape[0]))
+    return names, enu.copy(), np.full(enu.shape[0], np.nan)
+
+
+@dataclass(frozen=True, eq=False)
+class Interferometer:
+    """An array of antennas at one site.
+
+    Parameters
+    ----------
+    antennas : str, path or (n, 3) array / Quantity
+        A built-in invented layout name (``BUILTIN_LAYOUTS``), a layout CSV file, or local
+        east-north-up positions (metres when a bare array).
+    dish_diameter : Quantity [length]
+        Diameter of antennas whose CSV row leaves ``diameter_m`` empty (all, for arrays).
+    latitude : Quantity [angle]
+        Geodetic latitude of the site.
+    efficiency : float
+        Aperture efficiency eta_a.
+    tsys : Quantity [temperature]
+        System temperature.
+    elevation_limit : Quantity [angle]
+        Samples with the source lower than this are dropped.
+    pb_shape : {"gaussian", "airy"}
+        Primary-beam shape; ``taper`` sets the Gaussian FWHM = taper lambda / D.
+    quantization_efficiency, correlator_efficiency : float
+        eta_q and eta_c of the radiometer equation (TMS 3rd ed., ch. 6 and 8).
+    """
+
+    antennas: object = "ring-24"
+    dish_diameter: u.Quantity = 12 * u.m
+    latitude: u.Quantity = -23 * u.deg
+    efficiency: float = 0.7
+    tsys: u.Quantity = 90 * u.K
+    name: str = None
+    elevation_limit: u.Quantity = 15 * u.deg
+    pb_shape: str = "gaussian"
+    taper: float = 1.13
+    quantization_efficiency: float = 0.96
+    correlator_efficiency: float = 0.88
+    antenna_names: tuple = field(init=False, repr=False)
+    positions_m: np.ndarray = field(init=False, repr=False)
+    diameters_m: np.ndarray = field(init=False, repr=False)
+
+    def __post_init__(self):
+        names, enu, diam = _resolve_antennas(self.antennas)
+        d_m = _quantity("dish_diameter", self.dish_diameter, u.m).value
+        diam = np.where(np.isnan(diam), d_m, diam)
+        lat = _quantity("latitude", self.latitude, u.deg, positive=False)
+        if abs(lat.value) > 90:
+            raise InstrumentError(f"latitude={self.latitude!r} must be within [-90, 90] deg")
+        el = _quantity("elevation_limit", self.elevation_limit, u.deg, positive=False)
+        if not 0 <= el.value < 90:
+            raise InstrumentError(f"elevation_limit={self.elevation_limit!r} must be in [0, 90) deg")
+        for key in ("efficiency", "quantization_efficiency", "correlator_efficiency"):
+            v = getattr(self, key)
+            if not (isinstance(v, (int, float)) and 0 < v <= 1):
+                raise InstrumentError(f"{key}={v!r} must be a number in (0, 1]")
+        if self.pb_shape not in PB_SHAPES:
+            raise InstrumentError(f"pb_shape={self.pb_shape!r} is not known; choose one of {PB_SHAPES}")
+        tsys = _quantity("tsys", self.tsys, u.K)
+        enu.setflags(write=False)
+        diam.setflags(write=False)
+        for key, val in (("antenna_names", names), ("positions_m", enu), ("diameters_m", diam),
+                         ("dish_diameter", d_m * u.m), ("latitude", lat),
+                         ("elevation_limit", el), ("tsys", tsys),
+                         ("name", self.name or (self.antennas if isinstance(self.antennas, str)
+                                                else f"array-{enu.shape[0]}"))):
+            object.__setattr__(self, key, val)
+
+    @property
+    def n_antennas(self):
+        return self.positions_m.shape[0]
+
+    @property
+    def total_efficiency(self):
+        """eta_q eta_c eta_a."""
+        return self.quantization_efficiency * self.correlator_efficiency * self.efficiency
+
+
+#: warn when more than this fraction of the sky flux lies outside the primary-beam half power
+OUTSIDE_PB_WARN_FRACTION = 0.05
+
+
+@dataclass(frozen=True, eq=False)
+class Tracks:
+    """All arrays' visibility rows: uvw (m), noise per row (Jy) and primary-beam groups.
+
+    ``groups`` is a tuple of (row indices, d1_m, d2_m, shape, taper): rows sharing one
+    pair beam.
+    """
+
+    uvw_m: np.ndarray
+    sigma_jy: np.ndarray
+    groups: tuple
+    names: tuple
+
+
+def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None):
+    """uv tracks of every array toward ``dec_rad`` with the radiometer noise of each row."""
+    uvw, sig, keys = [], [], []
+    for arr in arrays:
+        t = uv_tracks(arr, dec_rad * u.rad, opts["hour_angles"], opts["sample_interval"])
+        d = arr.diameters_m
+        area = np.pi * d**2 / 4
+        s = visibility_sigma_jy(arr.tsys.to_value(u.K), area[t.ant1], area[t.ant2],
+                                arr.total_efficiency, dnu_hz, t.sample_time_s)
+        if integration_time is not None:
+            t_tot = np.unique(t.hour_angle_rad).size * t.sample_time_s
+            s = s * np.sqrt(t_tot / _quantity("integration_time", integration_time, u.s).value)
+        uvw.append(t.uvw_m)
+        sig.append(s)
+        d1, d2 = np.minimum(d[t.ant1], d[t.ant2]), np.maximum(d[t.ant1], d[t.ant2])
+        keys += [(a, b, arr.pb_shape, arr.taper) for a, b in zip(d1, d2)]
+    keys_arr = np.array([hash(k) for k in keys])
+    groups = []
+    for h in np.unique(keys_arr):
+        idx = np.nonzero(keys_arr == h)[0]
+        groups.append((idx,) + keys[idx[0]])
+    return Tracks(np.concatenate(uvw), np.concatenate(sig), tuple(groups),
+                  tuple(a.name for a in arrays))
+
+
+def _pb_images(tracks, geom, nu_hz, weights, use_pb):
+    """Per-group pair beams and their weight-averaged effective beam on the image grid."""
+    if not use_pb:
+        one = np.ones((geom.ny, geom.nx))
+        return [one] * len(tracks.groups), one
+    l, m = geom.lm()
+    r = np.hypot(l, m)
+    pbs = [pair_beam(r, nu_hz, d1, d2, shape, taper) for _, d1, d2, shape, taper in tracks.groups]
+    wg = np.array([weights[g[0]].sum() for g in tracks.groups])
+    return pbs, sum(w * p for w, p in zip(wg, pbs)) / wg.sum()
+
+
+def _psf(tracks, nu_hz, weights, geom, fast):
+    if fast:
+        return fast_psf(tracks.uvw_m, nu_hz, weights, geom)
+    ones = np.ones(tracks.uvw_m.shape[0], dtype=np.complex128)
+    return grid_dirty(ones, tracks.uvw_m, nu_hz, weights, geom, shape=(2 * geom.npy, 2 * geom.npx))
+
+
+def _dirty(sky, tracks, nu_hz, weights, geom, pbs, pb_eff, opts, rng):
+    if opts["fast"]:
+        return fast_dirty(sky * pb_eff, tracks.uvw_m, nu_hz, weights, geom, tracks.sigma_jy, rng)
+    vis = np.empty(tracks.uvw_m.shape[0], dtype=np.complex128)
+    for (idx, *_), pb in zip(tracks.groups, pbs):
+        vis[idx] = predict(sky * pb, tracks.uvw_m[idx], nu_hz, geom)
+    if rng is not None:
+        vis = add_thermal_noise(vis, tracks.sigma_jy, rng)
+    return grid_dirty(vis, tracks.uvw_m, nu_hz, weights, geom)
+
+
+def _check_options(opts):
+    if opts["weighting"] not in WEIGHTINGS:
+        raise InstrumentError(f"weighting={opts['weighting']!r} is not known; choose one of "
+                              f"{WEIGHTINGS}")
+    for key in ("threshold", "gain", "pb_limit", "sd_scale"):
+        v = opts[key]
+        if not (isinstance(v, (int, float)) and v >= 0) or (key == "gain" and not 0 < v <= 1):
+            raise InstrumentError(f"{key}={v!r} must be a number >= 0" +
+                                  (" and gain in (0, 1]" if key == "gain" else ""))
+    if not (isinstance(opts["niter"], (int, np.integer)) and opts["niter"] >= 0):
+        raise InstrumentError(f"niter={opts['niter']!r} must be an integer >= 0")
+
+
+def _channel_width_hz(freqs, opts):
+    if opts["bandwidth"] is not None:
+        return _quantity("bandwidth", opts["bandwidth"], u.Hz).value
+    if freqs.size < 2:
+        raise InstrumentError("a single-channel cube needs bandwidth= (the channel width)")
+    return float(np.abs(np.diff(freqs)).mean())
+
+
+def run_observation(cube, arrays, opts, *, noise=True, seed=None, integration_time=None):
+    """The channel loop of observe_interferometric; returns (SpectralCube, pb function)."""
+    _check_options(opts)
+    geom, _, dec_rad = cube_geometry(cube)
+    if opts.get("declination") is not None:
+        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
+    freqs = cube_frequencies_hz(cube)
+    tracks = assemble_tracks(arrays, dec_rad, opts, _channel_width_hz(freqs, opts),
+                             integration_time)
+    check_sampling(geom, tracks.uvw_m, freqs.max())
+    rng = np.random.default_rng(seed) if noise else None
+    ref = freqs.size // 2
+    w_ref = imaging_weights(tracks.uvw_m, freqs[ref], tracks.sigma_jy, geom, opts["weighting"],
+                            opts["robust"])
+    if opts["rms"] is not None:
+        tracks = _scaled_to_rms(tracks, opts["rms"], w_ref)
+    beam = fit_restoring_beam(_psf(tracks, freqs[ref], w_ref, geom, opts["fast"]),
+                              geom.dx_rad, geom.dy_rad)
+    out = np.empty(cube.shape)
+    rms, iters, outside, total = [], [], 0.0, 0.0
+    for c, nu in enumerate(freqs):
+        w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                            opts["robust"])
+        pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
+        sky = np.nan_to_num(np.asarray(cube.filled_data[c].value)) * jy_per_pixel_factor(cube, nu, geom)
+        outside += np.abs(sky[pb_eff < 0.5]).sum()
+        total += np.abs(sky).sum()
+        img = _dirty(sky, tracks, nu, w, geom, pbs, pb_eff, opts, rng)
+        rms.append(image_noise_jy(w, tracks.sigma_jy))
+        if opts["deconvolve"]:
+            model, res, n = hogbom(img, _psf(tracks, nu, w, geom, opts["fast"]),
+                                   opts["threshold"] * rms[-1], opts["gain"], opts["niter"])
+            img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
+            iters.append(n)
+        if opts["pb_correct"]:
+            img = np.where(pb_eff >= opts["pb_limit"], img / np.maximum(pb_eff, 1e-30), np.nan)
+        out[c] = img
+    _warn_outside(outside, total)
+    meta = dict(INSTRUME="+".join(tracks.names), NOISERMS=float(np.median(rms)) if noise else 0.0,
+                NOISEUNI="Jy/beam", NSEED=seed if noise else -1, WEIGHTNG=opts["weighting"],
+                ROBUST=float(opts["robust"]), DECONV=bool(opts["deconvolve"]),
+                FASTPATH=bool(opts["fast"]), PBCORR=bool(opts["pb_correct"]),
+                NVIS=int(tracks.uvw_m.shape[0]), CLEANIT=int(np.sum(iters)),
+                THEORMS=float(np.median(rms)))
+    obs = new_observed_cube(cube, out, meta, beam)
+
+    def pb_at(c):
+        w = imaging_weights(tracks.uvw_m, freqs[c], tracks.sigma_jy, geom, opts["weighting"],
+                            opts["robust"])
+        return _pb_images(tracks, geom, freqs[c], w, opts["primary_beam"])[1]
+    return obs, pb_at
+
+
+def _scaled_to_rms(tracks, rms, weights):
+    """Tracks whose noise is scaled so that the image noise is ``rms`` (Jy/beam)."""
+    target = _quantity("rms", rms, u.Jy / u.beam).value
+    scale = target / image_noise_jy(weights, tracks.sigma_jy)
+    return Tracks(tracks.uvw_m, tracks.sigma_jy * scale, tracks.groups, tracks.names)
+
+
+def new_observed_cube(template, data, meta, beam, unit="Jy/beam"):
+    """A SpectralCube of ``data`` (Jy/beam, or K via the beam's Rayleigh-Jeans factor) on the
+    template's WCS, with the beam and its own ``meta``."""
+    from spectral_cube import SpectralCube
+    meta = dict(meta)
+    if unit == "K":
+        freqs = cube_frequencies_hz(template)
+        data = data * beam.jtok(freqs * u.Hz).value[:, None, None]
+        meta["NOISEUNI"] = "K"
+        meta["NOISERMS"] = meta["NOISERMS"] * float(beam.jtok(np.median(freqs) * u.Hz).value)
+    cube = SpectralCube(data=data * u.Unit("K" if unit == "K" else "Jy/beam"),
+                        wcs=template.wcs.deepcopy(), meta=meta)
+    return cube.with_beam(beam, raise_error_jybm=False)
+
+
+def _seed(seed, noise):
+    if not noise:
+        return None
+    if seed is None:
+        return int(np.random.SeedSequence().generate_state(1)[0])
+    if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InstrumentError(f"seed={seed!r} must be a non-negative integer or None")
+    return int(seed)
+
+
+def _warn_outside(outside, total):
+    frac = outside / total if total > 0 else 0.0
+    if frac > OUTSIDE_PB_WARN_FRACTION:
+        warnings.warn(f"{100 * frac:.1f}% of the sky cube's flux lies outside the primary-beam "
+                      "half-power radius; this model has no mosaicking, so that emission is "
+                      "attenuated or lost", FieldLargerThanPrimaryBeamWarning, stacklevel=3)
+
+
+def observe_interferometric(cube, instrument, *, noise=True, seed=None, integration_time=None,
+                            **kwargs):
+    """Observe ``cube`` with an Interferometer, or jointly with several (a list/tuple), and
+    feather with a SingleDish or single-dish cube if one is in the list.
+
+    Options (defaults in ``OBSERVE_OPTIONS``): ``hour_angles`` (start, stop) Quantity;
+    ``sample_interval`` time per sample; ``weighting`` natural / uniform / robust with
+    ``robust`` (Briggs R); ``deconvolve`` (Högbom CLEAN) with ``threshold`` (in units of the
+    image noise), ``niter``, ``gain``; ``fast`` the fast sampling-grid path; ``pb_correct``
+    (divide by the primary beam where it is >= ``pb_limit``, NaN outside); ``primary_beam``
+    (False ignores the primary beam: an idealisation for tests); ``bandwidth`` channel width
+    for single-channel cubes; ``declination`` overrides the WCS phase centre's;
+    ``integration_time`` rescales the noise to that total on-source time; ``sd_scale``
+    multiplies the single-dish image when feathering.
+    ``rms`` (Jy/beam) scales the noise to that image rms; ``unit`` "Jy/beam" or "K".
+    ``seed=None`` draws a seed and records it (NSEED).
+    Returns a SpectralCube in Jy/beam (or K) with the restoring beam; meta / header cards
+    INSTRUME, NOISERMS, NOISEUNI, NSEED, WEIGHTNG, ROBUST, DECONV, FASTPATH, PBCORR, NVIS,
+    CLEANIT, THEORMS.
+    """
+    from .combine import feather_cube, split_instruments
+    arrays, dish = split_instruments(instrument)
+    opts = dict(OBSERVE_OPTIONS)
+    unknown = set(kwargs) - set(opts) - {"declination"}
+    if unknown:
+        raise InstrumentError(f"unknown interferometer option(s) {sorted(unknown)}; valid: "
+                              f"{sorted(set(opts) | {'declination'})}")
+    opts.update(kwargs)
+    if opts["unit"] not in ("Jy/beam", "K"):
+        raise InstrumentError(f"unit={opts['unit']!r} must be 'Jy/beam' or 'K'")
+    seed = _seed(seed, noise)
+    pb_correct = opts["pb_correct"]
+    if dish is not None:
+        opts["pb_correct"] = False           # feather first, then correct
+    obs, pb_at = run_observation(cube, arrays, opts, noise=noise, seed=seed,
+                                 integration_time=integration_time)
+    if dish is not None:
+        obs = feather_cube(obs, dish, cube, pb_at, noise=noise, seed=seed,
+                           pb_correct=pb_correct, pb_limit=opts["pb_limit"],
+                           sd_scale=opts["sd_scale"])
+    if opts["unit"] == "K":
+        obs = new_observed_cube(obs, np.asarray(obs.unmasked_data[:].value), obs.meta, obs.beam,
+                                unit="K")
+    return obs
