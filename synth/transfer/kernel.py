@@ -147,6 +147,7 @@ def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, t
     for c in prange(ncol):
         inten = np.zeros(nch)
         trans = np.ones(nch)
+        tsum = np.zeros(nch if want_tau else 0)
         for z in range(nz):
             ti = tau_int[c, z]
             if ti <= 0.0:
@@ -180,7 +181,9 @@ def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, t
                     a = 1.0 - et
                 inten[k] += s * a * trans[k]
                 trans[k] *= et
+                if want_tau:
+                    tsum[k] += tau
         for k in range(nch):
             out[c, k] = inten[k] + j_bg * trans[k] - j_bg
             if want_tau:
-                tau_out[c, k] = -math.log(trans[k]) if trans[k] > 0.0 else np.inf
+                tau_out[c, k] = tsum[k]

@@ -1,0 +1,209 @@
+"""Run configuration: a TOML file with sections of our own naming, validated against a schema.
+
+Sections: ``[cloud]`` (the snapshot), ``[sky]`` (where the cloud is), ``[channels]`` (the ideal
+cube's spectral grid), ``[[tracer]]`` (one per line, several per run), ``[output]``, and
+``[[setup]]`` (observing setups, one per instrument). Unknown or misspelled keys are errors
+that suggest the nearest valid key; values are checked for type and range. The schema below
+is the config reference (docs/config.md mirrors it; a test keeps them in step).
+"""
+
+import difflib
+import os
+import tomllib
+
+from .errors import ConfigError
+
+__all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS"]
+
+# key -> (types, default, description); default None = optional, REQUIRED = must be given
+REQUIRED = object()
+_NUM = (int, float)
+
+CLOUD = {
+    "source": (str, "demo", '"demo" (the invented demo cloud) or a path to a snapshot file'),
+    "format": (str, None, 'file format: "npz", "hdf5", "fits" or "yt" (default: from the file name)'),
+    "fields": (dict, None, "HDF5/FITS/yt field mapping, e.g. {n_h2 = \"/gas/nH2\", t_kin = ...}"),
+    "cell_size_pc": (_NUM, None, "cell edge length in pc (required unless the file records it)"),
+    "sigma_turb_kms": (_NUM, None, "microturbulent 1-D dispersion in km/s (default: the file's, or 0)"),
+    "size": (int, 64, "demo cloud: cells per axis"),
+    "seed": (int, 1, "demo cloud: random seed"),
+    "level": (int, 0, "yt: refinement level of the covering grid"),
+}
+SKY = {
+    "distance_pc": (_NUM, REQUIRED, "distance to the cloud in pc"),
+    "ra_deg": (_NUM, 83.0, "right ascension of the map centre, deg"),
+    "dec_deg": (_NUM, -5.0, "declination of the map centre, deg"),
+    "systemic_velocity_kms": (_NUM, 0.0, "added to the model's line-of-sight velocities, km/s"),
+    "line_of_sight": ((str, dict), "z", '"z", "-z", "x", "-x", "y", "-y" or {euler_deg = [a, b, c]}'),
+    "background_k": (_NUM, 2.725, "background temperature, K (the CMB)"),
+}
+CHANNELS = {
+    "width_kms": (_NUM, REQUIRED, "channel width of the ideal cube, km/s"),
+    "velocity_min_kms": (_NUM, None, "lower edge of the first channel (default: automatic)"),
+    "velocity_max_kms": (_NUM, None, "upper edge of the last channel (default: automatic)"),
+}
+TRACER = {
+    "species": (str, REQUIRED, "species name (see `synth lines`)"),
+    "transition": (str, REQUIRED, 'transition label, e.g. "1-0"'),
+    "abundance": (_NUM, REQUIRED, "abundance relative to H2"),
+    "excitation": (str, "lte", '"lte" or "lvg"'),
+    "t_ex_k": (_NUM, None, "LTE only: a fixed excitation temperature instead of T_kin"),
+    "datafile": (str, None, "a Leiden-format molecular data file for this species"),
+    "geometry": (str, None, 'LVG escape-probability geometry: "lvg", "sphere" or "slab"'),
+    "ortho_para_ratio": (_NUM, None, "LVG: fixed H2 ortho/para ratio (default thermal)"),
+    "accuracy": (_NUM, None, "LVG: table accuracy in T_R (default 0.01)"),
+    "max_escape_length_pc": (_NUM, None, "LVG: cap on the Sobolev length, pc (default box size)"),
+    "name": (str, None, "label used in file names (default species_transition)"),
+}
+OUTPUT = {
+    "products": (list, [], 'extra products: "tau" (optical-depth cube), "column" (column density map)'),
+    "figures": (bool, True, "write PNG figures"),
+}
+SETUP_KINDS = ("dish", "array")
+SETUP = {
+    "name": (str, REQUIRED, "label used in file names"),
+    "kind": (str, REQUIRED, '"dish" (single dish) or "array" (interferometer)'),
+    "diameter_m": (_NUM, None, "dish diameter, m"),
+    "efficiency": (_NUM, 0.7, "aperture efficiency"),
+    "tsys_k": (_NUM, None, "system temperature, K"),
+    "taper": (_NUM, None, "dish: beam FWHM in units of lambda/D (default 1.13)"),
+    "beam_arcsec": (_NUM, None, "dish: a fixed circular beam FWHM instead of the diameter"),
+    "channel_width_kms": (_NUM, None, "output channel width, km/s (default: the ideal cube's)"),
+    "hanning": (bool, False, "Hanning-smooth the spectra"),
+    "integration_time_h": (_NUM, None, "integration time, hours (noise from the radiometer equation)"),
+    "rms_k": (_NUM, None, "dish: noise rms per channel in K instead of the radiometer equation"),
+    "noise": (bool, True, "add thermal noise"),
+    "seed": (int, 1, "noise seed"),
+    "antennas": (str, None, 'array: a built-in layout name or a CSV file'),
+    "latitude_deg": (_NUM, None, "array: site latitude, deg"),
+    "hour_angle_start_h": (_NUM, -2.0, "array: first hour angle, h"),
+    "hour_angle_stop_h": (_NUM, 2.0, "array: last hour angle, h"),
+    "sample_interval_s": (_NUM, 300.0, "array: visibility sampling interval, s"),
+    "weighting": (str, "robust", 'array: "natural", "uniform" or "robust"'),
+    "robust": (_NUM, 0.5, "array: Briggs robust parameter"),
+    "deconvolve": (bool, True, "array: run CLEAN"),
+    "fast": (bool, False, "array: the approximate Fourier-plane path instead of visibilities"),
+    "combine_with": (list, None, "array: other setup names to image jointly / feather with"),
+}
+SCHEMA = {"cloud": CLOUD, "sky": SKY, "channels": CHANNELS, "tracer": TRACER,
+          "output": OUTPUT, "setup": SETUP}
+_LISTS = ("tracer", "setup")  # array-of-tables sections
+
+
+def _suggest(word, options):
+    near = difflib.get_close_matches(word, list(options), n=1, cutoff=0.5)
+    return f"; did you mean '{near[0]}'?" if near else f"; valid: {', '.join(sorted(options))}"
+
+
+def _check_table(table, spec, where):
+    out = {}
+    for key, value in table.items():
+        if key not in spec:
+            raise ConfigError(f"unknown key '{key}' in {where}{_suggest(key, spec)}")
+        if value is None:  # only from an already-validated dict (TOML has no null)
+            continue
+        types = spec[key][0]
+        types = types if isinstance(types, tuple) else (types,)
+        if isinstance(value, bool) and bool not in types:
+            raise ConfigError(f"{where}.{key} must be {_tname(types)}, got {value!r}")
+        if not isinstance(value, types):
+            raise ConfigError(f"{where}.{key} must be {_tname(types)}, got {value!r}")
+        out[key] = value
+    for key, (_, default, _) in spec.items():
+        if key not in out:
+            if default is REQUIRED:
+                raise ConfigError(f"{where} needs '{key}' ({spec[key][2]})")
+            out[key] = list(default) if isinstance(default, list) else default
+    return out
+
+
+def _tname(types):
+    names = {int: "an integer", float: "a number", str: "a string", bool: "true or false",
+             dict: "a table", list: "a list"}
+    return " or ".join(dict.fromkeys(names[t] for t in types if t in names))
+
+
+def validate_config(raw):
+    """Check a parsed config dict; return a complete one with defaults filled in."""
+    if not isinstance(raw, dict):
+        raise ConfigError("a configuration must be a TOML table")
+    for section in raw:
+        if section not in SCHEMA:
+            raise ConfigError(f"unknown section [{section}]{_suggest(section, SCHEMA)}")
+    conf = {}
+    for section, spec in SCHEMA.items():
+        if section in _LISTS:
+            items = raw.get(section, [])
+            if isinstance(items, dict):
+                items = [items]
+            if not isinstance(items, list) or not all(isinstance(t, dict) for t in items):
+                raise ConfigError(f"[[{section}]] must be a list of tables")
+            conf[section] = [_check_table(t, spec, f"[[{section}]] #{i + 1}")
+                             for i, t in enumerate(items)]
+        else:
+            table = raw.get(section, {})
+            if not isinstance(table, dict):
+                raise ConfigError(f"[{section}] must be a table")
+            conf[section] = _check_table(table, spec, f"[{section}]")
+    _check_values(conf)
+    return conf
+
+
+def _check_values(conf):
+    if not conf["tracer"]:
+        raise ConfigError("the config needs at least one [[tracer]] (species, transition, abundance)")
+    if conf["sky"]["distance_pc"] <= 0:
+        raise ConfigError(f"[sky].distance_pc must be > 0, got {conf['sky']['distance_pc']}")
+    if conf["channels"]["width_kms"] <= 0:
+        raise ConfigError(f"[channels].width_kms must be > 0, got {conf['channels']['width_kms']}")
+    from .excitation.product import EXCITATION_METHODS
+    names = set()
+    for i, tr in enumerate(conf["tracer"]):
+        if tr["excitation"] not in EXCITATION_METHODS:
+            raise ConfigError(f"[[tracer]] #{i + 1}.excitation is '{tr['excitation']}'; valid: "
+                              f"{', '.join(EXCITATION_METHODS)}")
+        if not tr["abundance"] >= 0:
+            raise ConfigError(f"[[tracer]] #{i + 1}.abundance must be >= 0, got {tr['abundance']}")
+        tr["name"] = tr["name"] or f"{tr['species']}_{tr['transition']}".replace("+", "p")
+        if tr["name"] in names:
+            raise ConfigError(f"two tracers are named '{tr['name']}'; give one a different name")
+        names.add(tr["name"])
+    setups = set()
+    for i, st in enumerate(conf["setup"]):
+        if st["kind"] not in SETUP_KINDS:
+            raise ConfigError(f"[[setup]] #{i + 1}.kind is '{st['kind']}'; valid: {', '.join(SETUP_KINDS)}")
+        if st["name"] in setups:
+            raise ConfigError(f"two setups are named '{st['name']}'")
+        setups.add(st["name"])
+    for st in conf["setup"]:
+        for other in st["combine_with"] or []:
+            if other not in setups:
+                raise ConfigError(f"setup '{st['name']}' combines with unknown setup '{other}'; "
+                                  f"valid: {', '.join(sorted(setups))}")
+    for p in conf["output"]["products"]:
+        if p not in ("tau", "column"):
+            raise ConfigError(f"[output].products has '{p}'; valid: 'tau', 'column'")
+
+
+def load_config(path):
+    """Read and validate a TOML config file; paths inside are made relative to its folder."""
+    try:
+        with open(path, "rb") as fh:
+            raw = tomllib.load(fh)
+    except FileNotFoundError:
+        raise ConfigError(f"config file {path} does not exist") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"config file {path} is not valid TOML: {exc}") from None
+    conf = validate_config(raw)
+    base = os.path.dirname(os.path.abspath(path))
+    src = conf["cloud"]["source"]
+    if src != "demo" and not os.path.isabs(src):
+        conf["cloud"]["source"] = os.path.join(base, src)
+    for tr in conf["tracer"]:
+        if tr["datafile"] and not os.path.isabs(tr["datafile"]):
+            tr["datafile"] = os.path.join(base, tr["datafile"])
+    for st in conf["setup"]:
+        ant = st["antennas"]
+        if ant and (ant.endswith(".csv") or os.sep in ant) and not os.path.isabs(ant):
+            st["antennas"] = os.path.join(base, ant)
+    return conf

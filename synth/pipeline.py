@@ -1,0 +1,190 @@
+"""Config -> stages -> files. The only module that knows about output folders.
+
+A run writes into a hidden temporary folder beside the output folder and renames it into
+place at the end, so an interrupted or failed run leaves nothing half written, and an
+existing run is replaced only with ``overwrite=True``.
+"""
+
+import os
+import shutil
+import tempfile
+import time
+
+import numpy as np
+import astropy.units as u
+
+from . import __version__
+from .config import load_config, validate_config
+from .errors import ConfigError, OutputError
+from .fitsio import config_hash, write_cube, write_image, write_json
+
+__all__ = ["run_config", "build_snapshot", "tracer_line", "prepare_output", "DEMO_CONFIG"]
+
+#: The packaged demo configuration (identical to configs/demo.toml).
+DEMO_CONFIG = os.path.join(os.path.dirname(__file__), "configs", "demo.toml")
+
+
+def build_snapshot(cloud):
+    """The Snapshot a ``[cloud]`` section describes."""
+    if cloud["source"] == "demo":
+        from .snapshot.demo import demo_cloud
+        snap = demo_cloud(n=cloud["size"], seed=cloud["seed"])
+        if cloud["sigma_turb_kms"] is not None:
+            snap = snap._replace(sigma_turb_cms=np.asarray(cloud["sigma_turb_kms"] * 1e5))
+        return snap
+    from .snapshot.readers import read_snapshot
+    kw = {}
+    if cloud["cell_size_pc"] is not None:
+        kw["cell_size"] = cloud["cell_size_pc"] * u.pc
+    if cloud["sigma_turb_kms"] is not None:
+        kw["sigma_turb"] = cloud["sigma_turb_kms"] * u.km / u.s
+    if cloud["format"] == "yt":
+        from .snapshot.yt_reader import read_yt
+        return read_yt(cloud["source"], level=cloud["level"], fields=cloud["fields"], **kw)
+    return read_snapshot(cloud["source"], fields=cloud["fields"], format=cloud["format"], **kw)
+
+
+def tracer_line(tracer):
+    from .molecules.registry import Line
+    return Line(tracer["species"], tracer["transition"], datafile=tracer["datafile"])
+
+
+def _lvg_options(tracer):
+    opts = {}
+    for key in ("geometry", "ortho_para_ratio", "accuracy"):
+        if tracer[key] is not None:
+            opts[key] = tracer[key]
+    if tracer["max_escape_length_pc"] is not None:
+        opts["max_escape_length"] = tracer["max_escape_length_pc"] * u.pc
+    if opts and tracer["excitation"] != "lvg":
+        raise ConfigError(f"tracer '{tracer['name']}' sets LVG options {sorted(opts)} but its "
+                          "excitation is 'lte'")
+    return opts or None
+
+
+def prepare_output(out_dir, overwrite):
+    """Check the output folder can be made; return a fresh temporary folder beside it."""
+    out_dir = os.path.abspath(out_dir)
+    if os.path.exists(out_dir) and not overwrite:
+        raise OutputError(f"output folder {out_dir} exists; choose another --out or pass --overwrite")
+    parent = os.path.dirname(out_dir)
+    if not os.path.isdir(parent):
+        raise OutputError(f"cannot create {out_dir}: the folder {parent} does not exist")
+    if not os.access(parent, os.W_OK):
+        raise OutputError(f"cannot create {out_dir}: the folder {parent} is not writable")
+    return tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
+
+
+def _finish_output(tmp, out_dir):
+    out_dir = os.path.abspath(out_dir)
+    if os.path.exists(out_dir):
+        old = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.old-",
+                               dir=os.path.dirname(out_dir))
+        os.replace(out_dir, os.path.join(old, "run"))
+        os.replace(tmp, out_dir)
+        shutil.rmtree(old, ignore_errors=True)
+    else:
+        os.replace(tmp, out_dir)
+
+
+def run_config(config, out_dir, overwrite=False, progress=True, log=print):
+    """Run a configuration (a path or a dict) and write its products into ``out_dir``.
+
+    Returns the run summary (also written as ``summary.json``).
+    """
+    conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
+    chash = config_hash(conf)
+    lines = [tracer_line(tr) for tr in conf["tracer"]]  # resolve names before any work
+    tmp = prepare_output(out_dir, overwrite)
+    try:
+        summary = _run(conf, lines, chash, tmp, progress, log)
+        _finish_output(tmp, out_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return summary
+
+
+def _run(conf, lines, chash, tmp, progress, log):
+    from .transfer.synthesize import synthesize_products
+    t_start = time.perf_counter()
+    snap = build_snapshot(conf["cloud"])
+    sky, chan = conf["sky"], conf["channels"]
+    vrange = None
+    if chan["velocity_min_kms"] is not None or chan["velocity_max_kms"] is not None:
+        if chan["velocity_min_kms"] is None or chan["velocity_max_kms"] is None:
+            raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
+        vrange = (chan["velocity_min_kms"], chan["velocity_max_kms"]) * u.km / u.s
+    los = sky["line_of_sight"]
+    view = snap if los == "z" else snap.view(los)
+    if vrange is None:
+        from .transfer.synthesize import auto_velocity_range
+        ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"]).value for ln in lines]
+        vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
+    summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
+               "snapshot": {"shape": list(snap.shape),
+                            "cell_size_pc": float(snap.cell_size_cm * u.cm.to(u.pc))},
+               "tracers": {}}
+    products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
+    from tqdm.auto import tqdm
+    bar = tqdm(list(zip(conf["tracer"], lines)), desc="tracers", unit="tracer",
+               disable=not progress)
+    ideal = {}
+    for tr, line in bar:
+        bar.set_postfix_str(str(line))
+        res = synthesize_products(
+            view, line, tr["abundance"], tr["excitation"],
+            distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
+            velocity_range=vrange, line_of_sight="z",
+            systemic_velocity=sky["systemic_velocity_kms"] * u.km / u.s,
+            position=(sky["ra_deg"] * u.deg, sky["dec_deg"] * u.deg),
+            t_bg=sky["background_k"] * u.K,
+            t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
+            excitation_options=_lvg_options(tr), products=products, progress=progress)
+        ideal[tr["name"]] = res.cube
+        summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash)
+    summary["setups"] = _observe_all(conf, ideal, tmp, chash, progress, log)
+    summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
+    write_json(summary, os.path.join(tmp, "summary.json"))
+    return summary
+
+
+def _write_tracer(tmp, tr, line, res, conf, chash):
+    name = tr["name"]
+    cube = res.cube
+    extra = {"LINE": str(line), "EXCIT": tr["excitation"], "ABUND": tr["abundance"]}
+    write_cube(cube, os.path.join(tmp, f"{name}_ideal.fits"), chash, extra)
+    if "tau" in conf["output"]["products"]:
+        write_cube(res.tau, os.path.join(tmp, f"{name}_tau.fits"), chash, extra)
+    if res.column is not None:
+        hdr = cube.wcs.celestial.to_header()
+        hdr["BUNIT"] = "cm-2"
+        write_image(res.column.value, hdr, os.path.join(tmp, f"{name}_column.fits"), chash, extra)
+    data = cube.unmasked_data[:].value
+    dv = abs(cube.spectral_axis[1] - cube.spectral_axis[0]).to_value(u.km / u.s)
+    mom0 = data.sum(axis=0) * dv
+    tau = res.tau.unmasked_data[:].value
+    entry = {
+        "line": str(line), "excitation": tr["excitation"], "abundance": tr["abundance"],
+        "frequency_ghz": line.frequency.to_value(u.GHz),
+        "peak_tb_k": float(data.max()),
+        "peak_integrated_k_kms": float(mom0.max()),
+        "mean_integrated_k_kms": float(mom0.mean()),
+        "tau_max": float(tau.max()), "tau_median_peak": float(np.median(tau.max(axis=0))),
+        "channels": int(cube.shape[0]), "pixel_arcsec": float(
+            abs(cube.wcs.wcs.cdelt[1]) * 3600),
+        "excitation_info": {k: v for k, v in res.excitation_info.items()
+                            if isinstance(v, (int, float, str, bool))},
+    }
+    if conf["output"]["figures"]:
+        from .report.figures import moment0_figure
+        moment0_figure(mom0, cube, str(line), os.path.join(tmp, f"{name}_mom0.png"))
+    return entry
+
+
+def _observe_all(conf, ideal, tmp, chash, progress, log):
+    """Observe every ideal cube with every [[setup]] (filled in by the instrument stage)."""
+    if not conf["setup"]:
+        return {}
+    from .observing import observe_setups
+    return observe_setups(conf, ideal, tmp, chash, progress, log)

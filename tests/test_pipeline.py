@@ -1,0 +1,230 @@
+"""Config, pipeline, FITS output and the command line (bad input included)."""
+
+import json
+import os
+
+import numpy as np
+import pytest
+import astropy.units as u
+from astropy.io import fits
+from spectral_cube import SpectralCube
+
+import synth
+from synth import cli
+from synth.config import SCHEMA, load_config, validate_config
+from synth.errors import ConfigError, OutputError, SnapshotError, UnknownSpeciesError
+from synth.fitsio import write_cube
+
+MINIMAL = """
+[cloud]
+source = "demo"
+size = 12
+seed = 3
+[sky]
+distance_pc = 2000
+[channels]
+width_kms = 0.5
+velocity_min_kms = -12
+velocity_max_kms = 12
+[[tracer]]
+species = "13CO"
+transition = "1-0"
+abundance = 2e-6
+[output]
+products = ["tau", "column"]
+"""
+
+
+@pytest.fixture
+def conf_file(tmp_path):
+    p = tmp_path / "run.toml"
+    p.write_text(MINIMAL)
+    return p
+
+
+def test_written_cube_reads_back_with_spectral_cube(tmp_path):
+    """SpectralCube.read of a written cube gives the same data, spectral axis and rest
+    frequency; spectral-cube's moment0() equals our integrated intensity (sum T dv)."""
+    snap = synth.demo_cloud(n=12, seed=5)
+    line = synth.Line("CO", "2-1")
+    cube = synth.synthesize(snap, line, 1e-4, distance=2 * u.kpc,
+                            channel_width=0.4 * u.km / u.s, velocity_range=(-12, 12) * u.km / u.s)
+    path = write_cube(cube, str(tmp_path / "c.fits"), conf_hash="abc")
+    back = SpectralCube.read(path)
+    np.testing.assert_array_equal(back.unmasked_data[:].value, cube.unmasked_data[:].value)
+    np.testing.assert_allclose(back.spectral_axis.to_value(u.m / u.s),
+                               cube.spectral_axis.to_value(u.m / u.s), rtol=1e-12)
+    assert back.wcs.wcs.restfrq == pytest.approx(line.freq_hz, rel=1e-12)
+    assert back.unit == u.K
+    mom0 = back.with_spectral_unit(u.km / u.s).moment0().to_value(u.K * u.km / u.s)
+    ours = cube.unmasked_data[:].value.sum(axis=0) * 0.4
+    np.testing.assert_allclose(mom0, ours, rtol=1e-5)
+    hdr = fits.getheader(path)
+    assert hdr["SYNTHVER"] == synth.__version__ and hdr["CONFHASH"] == "abc"
+    assert hdr["CTYPE3"] == "VRAD" and hdr["SPECSYS"] == "LSRK"
+
+
+def test_run_config_writes_products(conf_file, tmp_path):
+    """A run writes one cube per tracer, tau and column products, a moment-0 PNG and a JSON
+    summary whose integrated intensity equals the cube's (sum T dv, exact)."""
+    out = tmp_path / "run1"
+    summary = synth.run_config(str(conf_file), str(out), progress=False)
+    names = sorted(os.listdir(out))
+    assert names == ["13CO_1-0_column.fits", "13CO_1-0_ideal.fits", "13CO_1-0_mom0.png",
+                     "13CO_1-0_tau.fits", "summary.json"]
+    on_disk = json.loads((out / "summary.json").read_text())
+    assert on_disk["config_hash"] == summary["config_hash"]
+    cube = SpectralCube.read(str(out / "13CO_1-0_ideal.fits"))
+    peak = cube.unmasked_data[:].value.sum(axis=0).max() * 0.5
+    assert on_disk["tracers"]["13CO_1-0"]["peak_integrated_k_kms"] == pytest.approx(peak, rel=1e-6)
+    col = fits.getdata(out / "13CO_1-0_column.fits")
+    snap = synth.demo_cloud(n=12, seed=3)
+    ref = (snap.n_h2_cm3 * 2e-6).sum(axis=2).T * snap.cell_size_cm
+    np.testing.assert_allclose(col, ref, rtol=1e-6)
+
+
+def test_same_config_same_bytes(conf_file, tmp_path):
+    """Same config, same bytes (DESIGN.md, randomness)."""
+    synth.run_config(str(conf_file), str(tmp_path / "a"), progress=False)
+    synth.run_config(str(conf_file), str(tmp_path / "b"), progress=False)
+    a = fits.getdata(tmp_path / "a" / "13CO_1-0_ideal.fits")
+    b = fits.getdata(tmp_path / "b" / "13CO_1-0_ideal.fits")
+    assert a.tobytes() == b.tobytes()
+
+
+def test_existing_output_refused_and_untouched(conf_file, tmp_path):
+    out = tmp_path / "run"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine")
+    with pytest.raises(OutputError, match="exists; choose another --out or pass --overwrite"):
+        synth.run_config(str(conf_file), str(out), progress=False)
+    assert os.listdir(out) == ["keep.txt"]
+    synth.run_config(str(conf_file), str(out), overwrite=True, progress=False)
+    assert "keep.txt" not in os.listdir(out) and "summary.json" in os.listdir(out)
+    assert not [p for p in os.listdir(tmp_path) if p.startswith(".")]
+
+
+def test_failed_run_leaves_nothing(tmp_path):
+    """An error in the middle of a run (unknown transition found late) leaves no folder."""
+    bad = MINIMAL.replace('transition = "1-0"', 'transition = "9-7"')
+    p = tmp_path / "bad.toml"
+    p.write_text(bad)
+    with pytest.raises(UnknownSpeciesError, match="unknown transition '9-7'"):
+        synth.run_config(str(p), str(tmp_path / "out"), progress=False)
+    assert sorted(os.listdir(tmp_path)) == ["bad.toml"]
+
+
+@pytest.mark.parametrize("edit, match", [
+    (("distance_pc", "distanse_pc"), "unknown key 'distanse_pc' in \\[sky\\]; did you mean 'distance_pc'"),
+    (("[channels]", "[chanels]"), "unknown section \\[chanels\\]; did you mean 'channels'"),
+    (("width_kms = 0.5", "width_kms = -0.5"), "width_kms must be > 0"),
+    (("width_kms = 0.5", 'width_kms = "wide"'), "width_kms must be an integer or a number"),
+    (("abundance = 2e-6", ""), "needs 'abundance'"),
+    (('species = "13CO"\n', 'species = "13CO"\nexcitation = "nlte"\n'), "valid: lte, lvg"),
+    (('products = ["tau", "column"]', 'products = ["movie"]'), "valid: 'tau', 'column'"),
+    (("size = 12", "size = [12"), "is not valid TOML"),
+])
+def test_bad_config(tmp_path, edit, match):
+    p = tmp_path / "c.toml"
+    p.write_text(MINIMAL.replace(*edit))
+    with pytest.raises(ConfigError, match=match):
+        load_config(str(p))
+
+
+def test_config_reference_documents_every_key():
+    """docs/config.md lists every key of the schema (the reference stays in step)."""
+    doc = open(os.path.join(os.path.dirname(__file__), "..", "docs", "config.md")).read()
+    for section, spec in SCHEMA.items():
+        assert section in doc
+        for key in spec:
+            assert f"`{key}`" in doc, f"docs/config.md misses {section}.{key}"
+
+
+def test_demo_configs_identical():
+    """configs/demo.toml (for `synth run`) is the packaged demo config (for `synth demo`)."""
+    here = os.path.dirname(__file__)
+    a = open(os.path.join(here, "..", "configs", "demo.toml")).read()
+    from synth.pipeline import DEMO_CONFIG
+    assert a == open(DEMO_CONFIG).read()
+    validate_config(load_config(DEMO_CONFIG))
+
+
+def test_cli_bad_input_exit_2_one_line(tmp_path, capsys):
+    p = tmp_path / "c.toml"
+    p.write_text(MINIMAL.replace("distance_pc", "distanse_pc"))
+    assert cli.main(["run", str(p), "--out", str(tmp_path / "o"), "--quiet"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.count("\n") == 0 and err.startswith("synth: error: unknown key 'distanse_pc'")
+    assert not (tmp_path / "o").exists()
+
+
+def test_cli_lines_lists_co(capsys):
+    """`synth lines CO` prints CO 1-0 at 115.2712 GHz (Leiden-format CO file, REFERENCES.md)."""
+    assert cli.main(["lines", "CO"]) == 0
+    out = capsys.readouterr().out
+    assert "115.27" in out and "1-0" in out
+
+
+def test_cli_run_writes(conf_file, tmp_path, capsys):
+    assert cli.main(["run", str(conf_file), "--out", str(tmp_path / "o"), "--quiet"]) == 0
+    assert (tmp_path / "o" / "summary.json").exists()
+
+
+def test_unwritable_output(conf_file, tmp_path):
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    os.chmod(ro, 0o500)
+    try:
+        if os.access(ro, os.W_OK):
+            pytest.skip("running as a user who can write anywhere (root)")
+        with pytest.raises(OutputError, match="is not writable"):
+            synth.run_config(str(conf_file), str(ro / "out"), progress=False)
+    finally:
+        os.chmod(ro, 0o700)
+
+
+def test_output_parent_missing(conf_file, tmp_path):
+    with pytest.raises(OutputError, match="does not exist"):
+        synth.run_config(str(conf_file), str(tmp_path / "no" / "out"), progress=False)
+
+
+@pytest.mark.parametrize("make, exc, match", [
+    (lambda n, t, v: dict(n_h2=np.where(n > 0, np.nan, n) * u.cm**-3, t_kin=t, velocity=v),
+     SnapshotError, "n_h2 has 8 non-finite cell"),
+    (lambda n, t, v: dict(n_h2=-n * u.cm**-3, t_kin=t, velocity=v), SnapshotError,
+     "n_h2 has 8 negative cell"),
+    (lambda n, t, v: dict(n_h2=n * u.cm**-3, t_kin=t[:1], velocity=v), SnapshotError,
+     "t_kin has shape \\(1, 2, 2\\) but n_h2 has \\(2, 2, 2\\)"),
+    (lambda n, t, v: dict(n_h2=n, t_kin=t, velocity=v), SnapshotError, "n_h2 has no unit"),
+    (lambda n, t, v: dict(n_h2=n * u.kg, t_kin=t, velocity=v), SnapshotError,
+     "cannot be converted to cm-3"),
+    (lambda n, t, v: dict(n_h2=n * u.cm**-3, t_kin=t, velocity=v[:2]), SnapshotError,
+     "velocity has shape \\(2, 2, 2, 2\\)"),
+    (lambda n, t, v: dict(n_h2=n * u.cm**-3, t_kin=0 * t, velocity=v), SnapshotError,
+     "t_kin has 8 cell\\(s\\) <= 0"),
+])
+def test_bad_snapshot(make, exc, match):
+    n = np.ones((2, 2, 2))
+    t = np.full((2, 2, 2), 10.0) * u.K
+    v = np.zeros((3, 2, 2, 2)) * u.km / u.s
+    with pytest.raises(exc, match=match):
+        synth.Snapshot(cell_size=0.1 * u.pc, **make(n, t, v))
+
+
+@pytest.mark.parametrize("kw, match", [
+    (dict(distance=2 * u.kpc, channel_width=-0.1 * u.km / u.s), "channel_width must be > 0"),
+    (dict(distance=2, channel_width=0.1 * u.km / u.s), "distance needs a unit"),
+    (dict(distance=-2 * u.kpc, channel_width=0.1 * u.km / u.s), "distance must be > 0"),
+    (dict(distance=2 * u.kpc, channel_width=0.1 * u.km / u.s, products=("movie",)),
+     "unknown products"),
+])
+def test_bad_synthesize_arguments(kw, match):
+    with pytest.raises(ConfigError, match=match):
+        synth.synthesize(synth.demo_cloud(n=8, seed=1), synth.Line("CO", "1-0"), 1e-4, **kw)
+
+
+def test_unknown_excitation_method():
+    from synth.errors import ExcitationError
+    with pytest.raises(ExcitationError, match="valid: lte, lvg"):
+        synth.synthesize(synth.demo_cloud(n=8, seed=1), synth.Line("CO", "1-0"), 1e-4,
+                         excitation="nlte", distance=2 * u.kpc, channel_width=0.5 * u.km / u.s)
