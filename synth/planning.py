@@ -1,0 +1,302 @@
+"""Planning estimates per setup and tracer: resolution, largest scale, noise, time, pointings.
+
+The noise and time come from the *same* radiometer models that ``observe`` uses
+(:mod:`synth.instrument.noise` for a single dish, :mod:`synth.instrument.visibilities` for an
+interferometer), so a planned time fed back into ``observe`` gives the planned S/N.
+
+These are estimates for comparing setups and tracers. The observatory's own official tools
+and policies decide a proposal (sensitivity, time, overheads, feasibility).
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+import astropy.units as u
+
+from .errors import InstrumentError
+
+__all__ = ["Plan", "plan", "plan_rows", "plan_table", "hex_pointings", "DISCLAIMER"]
+
+#: printed with every planning table
+DISCLAIMER = ("Estimates only: the observatory's own official tools and policies decide a "
+              "proposal (sensitivity, time, overheads and feasibility).")
+
+_C_KMS = 299792.458
+
+
+@dataclass(frozen=True, eq=False)
+class Plan:
+    """Planning estimate for one setup and one line (see docs/planning.md)."""
+
+    setup: str
+    line: str
+    kind: str                      # "single dish" or "interferometer"
+    frequency: u.Quantity          # GHz
+    resolution: object             # radio_beam.Beam (dish beam or synthesized-beam estimate)
+    largest_scale: u.Quantity      # arcsec; NaN for a single dish (no interferometric limit)
+    channel_width: u.Quantity      # km/s
+    channel_width_hz: u.Quantity   # Hz
+    integration_time: u.Quantity   # the time asked for (or None)
+    rms: u.Quantity                # noise per channel for integration_time (K or Jy/beam) or None
+    target_snr: float
+    percentile: float
+    target_brightness: u.Quantity  # the chosen percentile of the emission (or None)
+    time_to_target: u.Quantity     # per pointing (or None)
+    n_pointings: int
+    total_time: u.Quantity         # n_pointings x time_to_target (or None)
+    notes: tuple
+
+    def as_row(self):
+        """Plain values for tables, CSV and JSON."""
+        def val(q, unit):
+            return None if q is None else float(u.Quantity(q).to_value(unit))
+        unit = "K" if self.kind == "single dish" else "Jy/beam"
+        return {"setup": self.setup, "line": self.line, "kind": self.kind,
+                "frequency_ghz": val(self.frequency, u.GHz),
+                "beam_major_arcsec": val(self.resolution.major, u.arcsec),
+                "beam_minor_arcsec": val(self.resolution.minor, u.arcsec),
+                "largest_scale_arcsec": val(self.largest_scale, u.arcsec),
+                "channel_width_kms": val(self.channel_width, u.km / u.s),
+                f"rms_{unit}": val(self.rms, u.Unit(unit)),
+                f"target_{unit}": val(self.target_brightness, u.Unit(unit)),
+                "target_snr": self.target_snr, "percentile": self.percentile,
+                "time_per_pointing_h": val(self.time_to_target, u.hour),
+                "n_pointings": self.n_pointings, "total_time_h": val(self.total_time, u.hour)}
+
+
+def _frequency(line, cube):
+    if line is not None:
+        freq = getattr(line, "frequency", line)
+        try:
+            return u.Quantity(freq).to(u.GHz, equivalencies=u.spectral()), str(line)
+        except (u.UnitConversionError, TypeError) as exc:
+            raise InstrumentError(f"line: {line!r} is neither a Line nor a frequency") from exc
+    if cube is not None and cube.wcs.wcs.restfrq > 0:
+        return (cube.wcs.wcs.restfrq * u.Hz).to(u.GHz), "cube line"
+    raise InstrumentError("line: give a Line (e.g. synth.Line('HCN', '1-0')), a frequency, "
+                          "or a cube with RESTFRQ")
+
+
+def _channel(channel_width, cube, freq):
+    from .analysis.matching import channel_width_ms
+    if channel_width is None:
+        if cube is None:
+            raise InstrumentError("channel_width: needed when no cube is given "
+                                  "(e.g. 0.2 * u.km / u.s)")
+        dv_kms = channel_width_ms(cube) / 1e3
+    else:
+        q = u.Quantity(channel_width)
+        if q.unit.physical_type == "frequency":
+            dv_kms = abs(q.to_value(u.Hz)) / freq.to_value(u.Hz) * _C_KMS
+        elif q.unit.physical_type == "speed":
+            dv_kms = abs(q.to_value(u.km / u.s))
+        else:
+            raise InstrumentError(f"channel_width: {channel_width!r}; give a velocity or a "
+                                  "frequency")
+    if not dv_kms > 0:
+        raise InstrumentError(f"channel_width: {channel_width!r} must be > 0")
+    # radio convention, as observe converts: dnu = nu0 dv / c
+    return dv_kms * u.km / u.s, dv_kms / _C_KMS * freq.to(u.Hz)
+
+
+def _field(field_size, cube):
+    from .analysis.matching import pixel_scale_arcsec
+    if field_size is not None:
+        q = u.Quantity(field_size).to(u.arcsec)
+        return (q, q) if q.isscalar else (q[0], q[1])
+    if cube is None:
+        return None
+    pix = pixel_scale_arcsec(cube)
+    return cube.shape[2] * pix * u.arcsec, cube.shape[1] * pix * u.arcsec
+
+
+def hex_pointings(width, height, spacing):
+    """Number of pointings of a hexagonal grid with ``spacing`` that covers a rectangle.
+
+    Rows are ``spacing * sqrt(3) / 2`` apart, alternate rows shifted by half a spacing; the
+    grid is centred on the field and counts the points inside it (one at least).
+    """
+    w, h, s = (u.Quantity(x).to_value(u.arcsec) for x in (width, height, spacing))
+    dy = s * np.sqrt(3) / 2
+    n_rows = int(np.floor(h / 2 / dy))
+    count = 0
+    for r in range(-n_rows, n_rows + 1):
+        off = 0.5 * s if r % 2 else 0.0
+        k = np.arange(-int(w / s) - 2, int(w / s) + 3) * s + off
+        count += int(np.sum(np.abs(k) <= w / 2 + 1e-9))
+    return max(count, 1)
+
+
+def _target(cube, beam, kind, freq, percentile, floor, dv_kms):
+    """The chosen percentile of the beam-convolved emission (K or Jy/beam)."""
+    from .analysis.matching import (beam_kernel, channel_velocities_ms, convolve_gaussian,
+                                    cube_beam, cube_values, jy_per_beam_per_k,
+                                    pixel_scale_arcsec, x_sign)
+    if cube.unit.physical_type != "temperature":
+        raise InstrumentError("cube unit: planning needs an ideal cube in K (brightness "
+                              f"temperature), got {cube.unit}")
+    v_ms = channel_velocities_ms(cube)
+    if abs(abs(v_ms[1] - v_ms[0]) - dv_kms * 1e3) > 1e-6 * dv_kms * 1e3:
+        from .instrument.spectral import resample_spectral   # the channels observe makes
+        cube = resample_spectral(cube, dv_kms * u.km / u.s)
+    data, _ = cube_values(cube, "cube")
+    kernel = beam_kernel(cube_beam(cube), beam)
+    if kernel is not None:
+        data = convolve_gaussian(data, pixel_scale_arcsec(cube), kernel, x_sign(cube))
+    emitting = data[data >= floor * data.max()]
+    value_k = float(np.percentile(emitting, percentile))
+    if kind == "single dish":
+        return value_k * u.K
+    return value_k * jy_per_beam_per_k(freq.to_value(u.Hz), beam)[0] * u.Jy / u.beam
+
+
+def _check_numbers(target_snr, percentile, floor):
+    if not (isinstance(target_snr, (int, float)) and target_snr > 0):
+        raise InstrumentError(f"target_snr: {target_snr!r}; must be a number > 0")
+    if not (isinstance(percentile, (int, float)) and 0 <= percentile <= 100):
+        raise InstrumentError(f"percentile: {percentile!r}; valid: 0..100")
+    if not 0 < floor < 1:
+        raise InstrumentError(f"emission_floor: {floor!r}; valid: 0 < floor < 1")
+
+
+def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channel_width=None,
+         integration_time=None, field_size=None, declination=None,
+         hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s, emission_floor=0.01,
+         n_pol=2):
+    """Planning estimate for observing one line with one setup.
+
+    Parameters
+    ----------
+    setup : SingleDish or Interferometer
+    line : Line or Quantity (frequency), optional
+        Default: the cube's RESTFRQ.
+    target_snr : float
+        S/N wanted per channel on the ``percentile`` of the emission.
+    cube : SpectralCube, optional
+        Ideal sky cube in K; gives the target brightness (the ``percentile`` of the voxels above
+        ``emission_floor`` x peak after convolution with the setup's beam), the channel width,
+        the field size and the declination.
+    channel_width : Quantity (velocity or frequency), optional
+        Default the cube's.
+    integration_time : Quantity, optional
+        Time for which the noise per channel is reported.
+    field_size : Quantity (one or two angles), optional
+        Field to cover; default the cube's extent.
+    declination, hour_angles, sample_interval
+        Interferometer track (declination default: the cube's CRVAL2).
+
+    Returns
+    -------
+    Plan
+
+    Examples
+    --------
+    >>> p = plan(dish, synth.Line("HCN", "1-0"), target_snr=5, cube=ideal)   # doctest: +SKIP
+    >>> print(plan_table([p]))                                             # doctest: +SKIP
+    """
+    _check_numbers(target_snr, percentile, emission_floor)
+    freq, label = _frequency(line, cube)
+    dv, dnu = _channel(channel_width, cube, freq)
+    kind = _kind(setup)
+    if kind == "single dish":
+        beam, lrs, rms_of, time_of, spacing = _dish_model(setup, freq)
+    else:
+        dec = _declination(declination, cube)
+        beam, lrs, rms_of, time_of, spacing = _array_model(setup, freq, dec, hour_angles,
+                                                           sample_interval, n_pol)
+    rms = None if integration_time is None else rms_of(dnu, integration_time)
+    target = None if cube is None else _target(cube, beam, kind, freq, percentile,
+                                               emission_floor, dv.to_value(u.km / u.s))
+    t_need = None if target is None else time_of(dnu, target / target_snr).to(u.s)
+    field = _field(field_size, cube)
+    n_point = 1 if field is None else hex_pointings(field[0], field[1], spacing)
+    notes = [DISCLAIMER, f"pointing spacing {spacing.to_value(u.arcsec):.3g} arcsec "
+             f"({'Nyquist map positions' if kind == 'single dish' else 'hexagonal mosaic'})"]
+    return Plan(setup=getattr(setup, "name", None) or kind, line=label, kind=kind,
+                frequency=freq, resolution=beam, largest_scale=lrs, channel_width=dv,
+                channel_width_hz=dnu, integration_time=integration_time, rms=rms,
+                target_snr=float(target_snr), percentile=float(percentile),
+                target_brightness=target, time_to_target=t_need, n_pointings=n_point,
+                total_time=None if t_need is None else n_point * t_need, notes=tuple(notes))
+
+
+def _kind(setup):
+    name = type(setup).__name__
+    if name == "SingleDish":
+        return "single dish"
+    if name == "Interferometer":
+        return "interferometer"
+    raise InstrumentError(f"setup: {name} cannot be planned; give a SingleDish or an "
+                          "Interferometer (plan each instrument of a combination separately)")
+
+
+def _dish_model(dish, freq):
+    """Single dish: beam, no largest-scale limit, radiometer rms(t) and t(rms) (K)."""
+    from .instrument.noise import radiometer_rms, time_for_rms
+    if dish.tsys is None:
+        raise InstrumentError("setup tsys: the dish has no tsys; give SingleDish(tsys=...)")
+    beam = dish.beam_at(freq)
+    lam_arcsec = (freq.to(u.m, equivalencies=u.spectral()) /
+                  (dish.diameter if dish.diameter is not None else np.inf * u.m)
+                  ).decompose().value * 206264.80624709636
+    spacing = (0.5 * lam_arcsec if dish.diameter is not None
+               else 0.5 * beam.major.to_value(u.arcsec)) * u.arcsec
+    return (beam, np.nan * u.arcsec,
+            lambda dnu, t: radiometer_rms(dish.tsys, dish.efficiency, dnu, t),
+            lambda dnu, rms: time_for_rms(dish.tsys, dish.efficiency, dnu, rms),
+            spacing)
+
+
+def _array_model(arr, freq, dec, hour_angles, sample_interval, n_pol):
+    """Interferometer: synthesized-beam estimate, largest scale, point-source rms(t), t(rms)."""
+    from .instrument.uv import largest_recoverable_scale, synthesized_beam_estimate
+    from .instrument.visibilities import interferometer_rms, interferometer_time
+    beam = synthesized_beam_estimate(arr, freq, dec, hour_angles, sample_interval)
+    lrs = largest_recoverable_scale(arr, freq, dec, hour_angles, sample_interval)
+    d_m = float(np.max(arr.diameters_m))
+    lam_m = freq.to_value(u.m, equivalencies=u.spectral())
+    spacing = lam_m / (np.sqrt(3.0) * d_m) * 206264.80624709636 * u.arcsec
+    return (beam, lrs.to(u.arcsec),
+            lambda dnu, t: interferometer_rms(arr, dnu, t, n_pol).value * u.Jy / u.beam,
+            lambda dnu, rms: interferometer_time(arr, dnu, rms.to_value(u.Jy / u.beam) * u.Jy,
+                                                 n_pol),
+            spacing)
+
+
+def _declination(declination, cube):
+    if declination is not None:
+        return u.Quantity(declination).to(u.deg)
+    if cube is None:
+        raise InstrumentError("declination: needed for an interferometer when no cube is given")
+    return cube.wcs.celestial.wcs.crval[1] * u.deg
+
+
+def plan_rows(plans):
+    """One dict per Plan (``Plan.as_row``)."""
+    return [p.as_row() for p in plans]
+
+
+def plan_table(plans):
+    """A plain-text table of plans for the terminal, with the disclaimer under it."""
+    cols = [("setup", "setup", "{}"), ("line", "line", "{}"), ("GHz", "frequency_ghz", "{:.3f}"),
+            ("beam\"", "beam_major_arcsec", "{:.3g}"), ("LAS\"", "largest_scale_arcsec", "{:.3g}"),
+            ("dv km/s", "channel_width_kms", "{:.3g}"), ("target", "target", "{:.3g}"),
+            ("S/N", "target_snr", "{:g}"), ("t/point h", "time_per_pointing_h", "{:.3g}"),
+            ("N point", "n_pointings", "{}"), ("total h", "total_time_h", "{:.3g}")]
+    lines = []
+    for row in plan_rows(plans):
+        unit = "K" if row["kind"] == "single dish" else "Jy/beam"
+        row = dict(row, target=row.get(f"target_{unit}"))
+        cells = []
+        for _, key, fmt in cols:
+            v = row.get(key)
+            cells.append("-" if v is None or (isinstance(v, float) and np.isnan(v))
+                         else fmt.format(v) + (f" {unit}" if key == "target" else ""))
+        lines.append(cells)
+    head = [c[0] for c in cols]
+    widths = [max(len(h), *(len(r[i]) for r in lines)) if lines else len(h)
+              for i, h in enumerate(head)]
+    fmt_row = "  ".join("{:<%d}" % w for w in widths)
+    out = [fmt_row.format(*head), fmt_row.format(*("-" * w for w in widths))]
+    out += [fmt_row.format(*r) for r in lines]
+    return "\n".join(out + ["", DISCLAIMER])
