@@ -19,6 +19,7 @@ import numpy as np
 import astropy.units as u
 import astropy.constants as const
 from radio_beam import Beam
+from radio_beam.utils import BeamError
 from scipy.signal import fftconvolve
 
 from ..errors import BeamUndersampledWarning, InstrumentError
@@ -57,11 +58,12 @@ def beam_kernel(beam, pixscale):
     """The beam as a 2-D convolution kernel on pixels of size ``pixscale``, summing to 1.
 
     Built by ``Beam.as_kernel`` (astropy ``EllipticalGaussian2DKernel``; PA counted from north
-    through east, for RA increasing to the left, CDELT1 < 0). Beams narrower than two pixels
-    are sampled with 10x oversampling so the discrete kernel keeps its width.
+    through east, for RA increasing to the left, CDELT1 < 0). The Gaussian is sampled at pixel
+    centres, which keeps its second moment exact for sigma >= 1 pixel; narrower beams are
+    averaged over 10x10 sub-pixels instead, so they do not collapse to a single pixel.
     """
     sigma_px = (beam.minor / pixscale).decompose().value / np.sqrt(8 * np.log(2))
-    mode = "center" if sigma_px >= 2 else "oversample"
+    mode = "center" if sigma_px >= 1 else "oversample"
     array = np.array(beam.as_kernel(pixscale, mode=mode, factor=10).array, dtype=np.float64)
     return array / array.sum()
 
@@ -79,7 +81,7 @@ def _kernel_beam(cube, beam):
         return None
     try:
         return beam.deconvolve(old)
-    except ValueError as exc:
+    except (BeamError, ValueError) as exc:
         raise InstrumentError(
             f"beam: the target beam ({beam.major.to(u.arcsec):.4g} x "
             f"{beam.minor.to(u.arcsec):.4g}) is not larger than the cube's beam "
