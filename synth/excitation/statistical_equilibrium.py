@@ -140,15 +140,18 @@ def level_system(mol, t_hot_k=None, min_fraction=1e-20):
 
 def check_temperature_range(system, t_min_k, t_max_k, used=None):
     """Warn once (RateExtrapolationWarning) if [t_min, t_max] leaves a partner's rate table."""
+    out = []
     for c in system.collisions:
         if used is not None and c.partner not in used:
             continue
         lo, hi = np.exp(c.log_t[0]), np.exp(c.log_t[-1])
         if t_min_k < lo * (1 - 1e-9) or t_max_k > hi * (1 + 1e-9):
-            warnings.warn(
-                f"{system.name}: kinetic temperatures {t_min_k:.4g}-{t_max_k:.4g} K leave the "
-                f"{c.partner} rate table ({lo:.4g}-{hi:.4g} K); rates are held at the nearest "
-                "tabulated value outside it", RateExtrapolationWarning, stacklevel=3)
+            out.append(f"{c.partner} ({lo:.4g}-{hi:.4g} K)")
+    if out:
+        warnings.warn(
+            f"{system.name}: kinetic temperatures {t_min_k:.4g}-{t_max_k:.4g} K leave the rate "
+            f"table of {', '.join(out)}; rates are held at the nearest tabulated value outside",
+            RateExtrapolationWarning, stacklevel=3)
 
 
 def _h2_split(names, n_h2, t_k, opr):
@@ -317,10 +320,10 @@ def _newton_step(system, c_gain, kcol, x, geometry, n_bg):
     return xn / xn.sum(axis=1, keepdims=True)
 
 
-def _solve_chunk(system, c_gain, kcol, x, geometry, n_bg, tol, max_iter):
-    nb = x.shape[0]
-    iters = np.full(nb, -1, dtype=np.int64)
-    active = np.arange(nb)
+def _newton(system, c_gain, kcol, x, geometry, n_bg, tol, max_iter):
+    """Newton iterations on all zones of a chunk; iterations per zone, -1 if not converged."""
+    iters = np.full(x.shape[0], -1, dtype=np.int64)
+    active = np.arange(x.shape[0])
     for it in range(1, max_iter + 1):
         xa = x[active]
         xn = _newton_step(system, c_gain[active], kcol[active], xa, geometry, n_bg)
@@ -331,6 +334,26 @@ def _solve_chunk(system, c_gain, kcol, x, geometry, n_bg, tol, max_iter):
         active = active[~done]
         if active.size == 0:
             break
+    return x, iters
+
+
+def _solve_chunk(system, c_gain, kcol, starts, geometry, n_bg, tol, max_iter):
+    """Newton from each starting point in turn for the zones not yet converged.
+
+    ``starts`` are callables zone-indices -> populations (the given start, LTE at T_kin, the
+    optically thin solution); a zone that fails from one gets the next.
+    """
+    nb = kcol.size
+    x = np.empty((nb, system.n_levels))
+    iters = np.full(nb, -1, dtype=np.int64)
+    todo = np.arange(nb)
+    for start in starts:
+        xs, it = _newton(system, c_gain[todo], kcol[todo], start(todo), geometry, n_bg, tol,
+                         max_iter)
+        x[todo], iters[todo] = xs, it
+        todo = todo[it < 0]
+        if todo.size == 0:
+            break
     return _polish(system, c_gain, kcol, x, geometry, n_bg), iters
 
 
@@ -340,10 +363,13 @@ def _polish(system, c_gain, kcol, x, geometry, n_bg):
     Newton's convergence test ignores populations below 1e-10; the LU solve of the fixed-beta
     equations resolves them to machine precision relative (checked against a 60-digit solve).
     """
-    beta = escape_probability(line_tau(system, x, kcol), geometry)
+    if x is None:  # optically thin: beta = 1
+        beta = np.ones((kcol.size, system.upper.size))
+    else:
+        beta = escape_probability(line_tau(system, x, kcol), geometry)
     a = _rate_matrix(c_gain.copy(), beta, system, n_bg)
     a[:, 0, :] = 1.0
-    rhs = np.zeros(x.shape + (1,))
+    rhs = np.zeros(a.shape[:2] + (1,))
     rhs[:, 0, 0] = 1.0
     xs = np.maximum(np.linalg.solve(a, rhs)[..., 0], 0.0)
     return xs / xs.sum(axis=1, keepdims=True)
@@ -366,7 +392,8 @@ def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="lvg", t_bg_k
     tol, max_iter : float, int
         Relative convergence criterion and iteration cap.
     x0 : ndarray (nb, nlev), optional
-        Starting populations; default LTE at T_kin.
+        Starting populations. Zones that do not converge from it (or when it is not given)
+        are restarted from LTE at T_kin, then from the optically thin solution.
 
     Returns
     -------
@@ -383,13 +410,17 @@ def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="lvg", t_bg_k
     dens = partner_densities(system, n_h2, t_k, ortho_para_ratio, partners)
     with np.errstate(over="ignore", divide="ignore"):
         n_bg = 1.0 / np.expm1(H_CGS * system.freq_hz / (K_CGS * t_bg_k)) if t_bg_k > 0 else 0.0
-    x_all = lte_populations(system, t_k) if x0 is None else np.array(x0, dtype=np.float64)
+    x_all = np.empty((n_h2.size, system.n_levels))
     iters = np.zeros(n_h2.size, dtype=np.int64)
     for s in range(0, n_h2.size, _CHUNK):
         sl = slice(s, s + _CHUNK)
         gain = np.swapaxes(collision_matrix(system, t_k[sl], [d[sl] for d in dens]), 1, 2)
-        x_all[sl], iters[sl] = _solve_chunk(system, gain, kcol[sl], x_all[sl].copy(),
-                                            geometry, n_bg, tol, max_iter)
+        starts = [lambda i, t=t_k[sl]: lte_populations(system, t[i]),
+                  lambda i, g=gain: _polish(system, g[i], np.zeros(i.size), None, geometry, n_bg)]
+        if x0 is not None:
+            starts.insert(0, lambda i, x=np.asarray(x0, dtype=np.float64)[sl]: x[i].copy())
+        x_all[sl], iters[sl] = _solve_chunk(system, gain, kcol[sl], starts, geometry, n_bg,
+                                            tol, max_iter)
     failed = iters < 0
     if failed.any():
         raise ConvergenceError(

@@ -1,0 +1,264 @@
+"""Non-LTE excitation of one zone with escape probabilities (LVG, sphere, slab), and snapshots.
+
+:func:`excite` solves statistical equilibrium (:mod:`synth.excitation.statistical_equilibrium`)
+for one zone of given n(H2), T_kin and N/dv and returns excitation temperature, optical depth,
+radiation temperature and integrated intensity of every radiative transition.
+
+Conventions of the single-zone query
+------------------------------------
+- Line-centre optical depth of a Gaussian line of FWHM dv (the column per width N/dv given):
+
+      tau = (c^3 A_ul / (8 pi nu^3)) (N/dv) (x_l g_u/g_l - x_u) / 1.0645
+
+  (1.0645 = sqrt(pi / (4 ln 2)), the FWHM of a unit-area Gaussian times its peak; Mangum &
+  Shirley 2015, PASP 127, 266, eq. 29 at line centre). The same tau enters beta for every
+  geometry; for ``"sphere"`` it is read as the optical depth across the diameter.
+- Radiation temperature above the background, T_R = [J(T_ex) - J(T_bg)] (1 - e^-tau)
+  (the same paper, their uniform-slab solution; J from :mod:`synth.radiation`).
+- ``flux``: integrated intensity of a Gaussian line, int T_R dv = 1.0645 T_R dv in K km/s,
+  with dv = ``fwhm`` (default 1 km/s; N = column_per_width * fwhm).
+- A line whose upper or lower population underflows to zero (levels far above kT and without
+  collision rates) has T_ex = NaN, tau = 0 and T_R = 0.
+
+:func:`lvg_excitation` does the same per cell of a snapshot through an interpolated table
+(:mod:`synth.excitation.tables`) with Sobolev optical depths (:mod:`synth.excitation.gradient`).
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+import astropy.units as u
+
+from ..errors import ExcitationError
+from ..radiation import T_CMB_K, radiation_temperature
+from .escape import GEOMETRIES
+from .statistical_equilibrium import (check_temperature_range, collision_matrix,
+                                      excitation_temperature, level_system, partner_densities,
+                                      solve_levels, H2_SPECIES)
+
+__all__ = ["GEOMETRIES", "ZoneResult", "excite", "format_zone_table", "critical_density",
+           "lvg_excitation", "GAUSS_AREA"]
+
+#: int of a Gaussian of unit peak over velocity / FWHM = sqrt(pi / (4 ln 2)).
+GAUSS_AREA = float(np.sqrt(np.pi / (4.0 * np.log(2.0))))
+
+
+@dataclass(frozen=True, eq=False)
+class ZoneResult:
+    """Excitation of one zone, per radiative transition in the molecule's order.
+
+    Attributes
+    ----------
+    species : str
+    transitions : tuple of str
+        Labels "upper-lower".
+    frequency : Quantity (GHz)
+    e_up : Quantity (K)
+        Upper level energies E_u/k.
+    t_ex, tau, t_r : Quantity (K), ndarray, Quantity (K)
+        Excitation temperature, line-centre optical depth and radiation temperature above the
+        background (module docstring).
+    flux : Quantity (K km/s)
+        Integrated intensity 1.0645 T_R fwhm.
+    populations : ndarray (n_levels,)
+        Fractional level populations (sum 1).
+    n_h2, t_kin, column_per_width, fwhm, t_bg : Quantity
+        The inputs.
+    geometry : str
+    partners : dict
+        Collision partner -> density (Quantity) used.
+    converged : bool
+    iterations : int
+        Newton iterations to reach the 1e-6 relative criterion.
+    """
+
+    species: str
+    transitions: tuple
+    frequency: u.Quantity
+    e_up: u.Quantity
+    t_ex: u.Quantity
+    tau: np.ndarray
+    t_r: u.Quantity
+    flux: u.Quantity
+    populations: np.ndarray
+    n_h2: u.Quantity
+    t_kin: u.Quantity
+    column_per_width: u.Quantity
+    fwhm: u.Quantity
+    t_bg: u.Quantity
+    geometry: str
+    partners: dict
+    converged: bool
+    iterations: int
+
+
+def _scalar(value, unit, name, allow_zero=False, equivalencies=()):
+    """``value`` (a scalar Quantity) in ``unit`` as float, or ExcitationError naming it."""
+    if not isinstance(value, u.Quantity):
+        raise ExcitationError(f"{name} must be a Quantity in {unit} (e.g. {name}=10 * u.Unit("
+                              f"'{unit}')), got {value!r}")
+    try:
+        v = value.to_value(unit, equivalencies=equivalencies)
+    except u.UnitConversionError:
+        raise ExcitationError(f"{name} has unit '{value.unit}', not convertible to {unit}") from None
+    if np.ndim(v) != 0 or not np.isfinite(v) or v < 0 or (v == 0 and not allow_zero):
+        bound = ">= 0" if allow_zero else "> 0"
+        raise ExcitationError(f"{name} must be one finite value {bound}, got {value!r}")
+    return float(v)
+
+
+def _resolve_molecule(species_or_moldata, datafile):
+    if hasattr(species_or_moldata, "energy_k"):
+        mol = species_or_moldata
+    else:
+        from ..molecules.registry import molecule
+        mol = molecule(str(species_or_moldata), datafile=datafile, need_collisions=True)
+    if not mol.collisions:
+        raise ExcitationError(f"{mol.name} has no collision rates; LVG needs a Leiden-format "
+                              "file with them (datafile=... or SYNTH_MOLDATA)")
+    return mol
+
+
+def check_options(geometry, ortho_para_ratio):
+    """Validate the geometry and ortho/para options shared by zone and snapshot solves."""
+    if geometry not in GEOMETRIES:
+        raise ExcitationError(f"geometry {geometry!r} unknown; valid: {', '.join(GEOMETRIES)}")
+    if ortho_para_ratio is not None and not (np.isfinite(ortho_para_ratio)
+                                             and ortho_para_ratio >= 0):
+        raise ExcitationError(f"ortho_para_ratio must be a finite number >= 0 or None (thermal), "
+                              f"got {ortho_para_ratio!r}")
+
+
+def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="lvg",
+           ortho_para_ratio=None, t_bg=T_CMB_K * u.K, partners=None, datafile=None,
+           fwhm=1.0 * u.km / u.s):
+    """Statistical-equilibrium excitation of one zone with an escape probability.
+
+    Parameters
+    ----------
+    species_or_moldata : str or MolecularData
+        Species name (looked up with collision rates, see :func:`synth.molecule`) or data.
+    n_h2 : Quantity ``[number density]``
+    t_kin : Quantity ``[temperature]``
+    column_per_width : Quantity, e.g. ``cm-2 / (km/s)``
+        N(species) / dv with dv the line FWHM (module docstring for the tau convention).
+    geometry : {"lvg", "sphere", "slab"}
+        Escape-probability form (:mod:`synth.excitation.escape`).
+    ortho_para_ratio : float, optional
+        Fixed H2 ortho/para ratio; default thermal, min(9 exp(-170.5/T), 3).
+    t_bg : Quantity ``[temperature]``
+        Blackbody background, default 2.725 K.
+    partners : dict, optional
+        Extra collision partners present in the data file: abundance relative to H2 (float,
+        ``{"He": 0.1}``) or density (Quantity).
+    datafile : path, optional
+        Leiden-format file (when a name is given).
+    fwhm : Quantity ``[speed]``
+        Line width used only for ``flux`` (default 1 km/s).
+
+    Returns
+    -------
+    ZoneResult
+
+    Examples
+    --------
+    >>> import astropy.units as u
+    >>> res = excite("CO", 1e4 * u.cm**-3, 20 * u.K, 1e16 * u.cm**-2 / (u.km / u.s))
+    >>> res.transitions[0], bool(res.tau[0] > 1)
+    ('1-0', True)
+    """
+    mol = _resolve_molecule(species_or_moldata, datafile)
+    check_options(geometry, ortho_para_ratio)
+    n = _scalar(n_h2, "cm-3", "n_h2")
+    t = _scalar(t_kin, "K", "t_kin", equivalencies=u.temperature())
+    ncol = _scalar(column_per_width, "cm-3 s", "column_per_width", allow_zero=True)
+    tb = _scalar(t_bg, "K", "t_bg", allow_zero=True, equivalencies=u.temperature())
+    dv = _scalar(fwhm, "km/s", "fwhm")
+    system = level_system(mol)
+    dens = partner_densities(system, [n], [t], ortho_para_ratio, partners)
+    used = {p for p, d in zip(system.partners, dens) if np.any(d > 0)}
+    check_temperature_range(system, t, t, used)
+    res = solve_levels(system, [n], [t], [ncol / GAUSS_AREA], geometry=geometry, t_bg_k=tb,
+                       ortho_para_ratio=ortho_para_ratio, partners=partners)
+    x = res.populations[0]
+    t_ex = excitation_temperature(system, x)
+    reached = np.isfinite(t_ex)
+    tau = np.where(reached, res.tau[0], 0.0)
+    j_ex = np.where(reached, radiation_temperature(system.freq_hz, np.where(reached, t_ex, 1.0)),
+                    0.0)
+    j_bg = radiation_temperature(system.freq_hz, tb) if tb > 0 else 0.0
+    t_r = np.where(reached, (j_ex - j_bg) * -np.expm1(-tau), 0.0)
+    return ZoneResult(
+        species=mol.name, transitions=tuple(mol.transition_labels),
+        frequency=(system.freq_hz * u.Hz).to(u.GHz), e_up=system.energy_k[system.upper] * u.K,
+        t_ex=t_ex * u.K, tau=tau, t_r=t_r * u.K, flux=GAUSS_AREA * t_r * dv * u.K * u.km / u.s,
+        populations=x, n_h2=n * u.cm**-3, t_kin=t * u.K, column_per_width=column_per_width,
+        fwhm=fwhm, t_bg=tb * u.K, geometry=geometry,
+        partners={p: float(d[0]) * u.cm**-3 for p, d in zip(system.partners, dens) if p in used},
+        converged=True, iterations=int(res.iterations[0]))
+
+
+def _fmt(v, spec):
+    return "-" if not np.isfinite(v) else format(v, spec)
+
+
+def format_zone_table(result, max_lines=None):
+    """Plain-text table of a :class:`ZoneResult`: one row per transition.
+
+    Columns: transition, frequency (GHz), E_u/k (K), T_ex (K), tau, T_R (K), integrated
+    intensity (K km/s). ``max_lines`` keeps the first rows only.
+    """
+    r = result
+    partners = ", ".join(f"{p} {d.to_value('cm-3'):.3g}" for p, d in r.partners.items())
+    head = [f"{r.species}: n(H2) = {r.n_h2.to_value('cm-3'):.4g} cm-3, T_kin = "
+            f"{r.t_kin.to_value('K'):.4g} K, N/dv = "
+            f"{r.column_per_width.to_value('cm-2 s / km'):.4g} cm-2 / (km/s), geometry "
+            f"{r.geometry}, T_bg = {r.t_bg.to_value('K'):.4g} K",
+            f"collision partners (cm-3): {partners}; {r.iterations} iterations; flux for "
+            f"FWHM {r.fwhm.to_value('km/s'):.4g} km/s",
+            f"{'line':>10} {'freq/GHz':>12} {'E_u/K':>9} {'T_ex/K':>9} {'tau':>10} "
+            f"{'T_R/K':>10} {'flux/K km/s':>12}"]
+    n = len(r.transitions) if max_lines is None else min(int(max_lines), len(r.transitions))
+    rows = []
+    for i in range(n):
+        rows.append(f"{r.transitions[i]:>10} {r.frequency[i].to_value('GHz'):12.6f} "
+                    f"{r.e_up[i].to_value('K'):9.2f} {_fmt(r.t_ex[i].to_value('K'), '9.3f'):>9} "
+                    f"{r.tau[i]:10.3e} {r.t_r[i].to_value('K'):10.4f} "
+                    f"{r.flux[i].to_value('K km/s'):12.4f}")
+    return "\n".join(head + rows)
+
+
+def critical_density(species_or_moldata, t_kin, ortho_para_ratio=None, include_upward=False,
+                     datafile=None):
+    """Critical density of every radiative transition, n_crit = A_ul / sum_j gamma_uj(T).
+
+    The sum runs over the downward collisional transitions out of the upper level (common
+    practice) or, with ``include_upward``, over every j != u with upward coefficients by
+    detailed balance (Shirley 2015, PASP 127, 299, eq. 4). gamma per H2 molecule: with pH2
+    and oH2 rates the ortho/para mix of :func:`partner_densities`.
+
+    Returns
+    -------
+    Quantity (cm^-3), one per radiative transition in the molecule's order.
+    """
+    mol = _resolve_molecule(species_or_moldata, datafile)
+    check_options("lvg", ortho_para_ratio)
+    t = _scalar(t_kin, "K", "t_kin", equivalencies=u.temperature())
+    system = level_system(mol)
+    dens = partner_densities(system, [1.0], [t], ortho_para_ratio)
+    check_temperature_range(system, t, t, {p for p in system.partners if p in H2_SPECIES})
+    c = collision_matrix(system, [t], dens)[0]  # c[i, j]: rate i -> j per unit n(H2)
+    out = []
+    for up in system.upper:
+        mask = np.ones(system.n_levels, dtype=bool) if include_upward else (
+            system.energy_k < system.energy_k[up])
+        mask[up] = False
+        out.append(c[up, mask].sum())
+    with np.errstate(divide="ignore"):
+        return system.a_ul_s / np.array(out) * u.cm**-3
+
+
+def lvg_excitation(snapshot, line, abundance, **options):
+    """Per-cell LVG excitation of one line; see :func:`synth.excitation.tables.lvg_excitation`."""
+    from .tables import lvg_excitation as _run
+    return _run(snapshot, line, abundance, **options)
