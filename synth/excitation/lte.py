@@ -76,11 +76,13 @@ def lte_excitation(snapshot, line, abundance, t_ex=None):
     g_u, e_u = float(mol.g[line.upper]), float(mol.energy_k[line.upper])
     t0 = H_CGS * nu / K_CGS
     pref = C_CGS**3 / (8.0 * np.pi * nu**3) * a_ul
-    t_out = np.empty(snapshot.shape, dtype=np.float32)
+    # at T_kin in a float32 snapshot, T_ex is the snapshot's own (read-only) array: no copy
+    share_t = t_ex is None and t_field.dtype == np.float32
+    t_out = t_field if share_t else np.empty(snapshot.shape, dtype=np.float32)
     k_out = np.empty(snapshot.shape, dtype=np.float32)
     flat_t, flat_n = t_field.reshape(-1), n_h2.reshape(-1)
     flat_x = None if np.ndim(x_ab) == 0 else np.asarray(x_ab).reshape(-1)
-    tv, kv = t_out.reshape(-1), k_out.reshape(-1)
+    tv, kv = (None if share_t else t_out.reshape(-1)), k_out.reshape(-1)
     for s in range(0, flat_t.size, _SLAB):
         sl = slice(s, s + _SLAB)
         t = flat_t[sl].astype(np.float64)
@@ -88,7 +90,8 @@ def lte_excitation(snapshot, line, abundance, t_ex=None):
         q = np.exp(np.interp(np.log(t), log_t, log_q))
         n_u = flat_n[sl] * xab * g_u * np.exp(-e_u / t) / q
         kv[sl] = pref * n_u * np.expm1(t0 / t)
-        tv[sl] = t
+        if not share_t:
+            tv[sl] = t
     return Excitation(line=line, t_ex_k=t_out, opacity_integral=k_out, method="lte",
                       info={"t_ex": "fixed" if t_ex is not None else "t_kin"})
 
