@@ -93,8 +93,8 @@ def _warn_if_undersampled(beam, pixscale):
     if beam.minor < pixscale:
         warnings.warn(
             f"beam minor FWHM {beam.minor.to(u.arcsec):.4g} is smaller than a pixel "
-            f"({pixscale.to(u.arcsec):.4g}): the kernel is a few pixels at most and the "
-            "smoothing is poorly sampled; use finer sky pixels (>= 3 per FWHM)",
+            f"({pixscale.to(u.arcsec):.4g}): the beam is under-sampled, so the "
+            "smoothing barely changes the map; use finer sky pixels (>= 3 per FWHM)",
             BeamUndersampledWarning, stacklevel=3)
 
 
