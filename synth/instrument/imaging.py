@@ -15,7 +15,7 @@ from scipy.signal import fftconvolve
 
 from .primary_beam import C_M_S
 
-__all__ = ["fit_restoring_beam", "beam_kernel", "restore", "fast_dirty", "fast_psf",
+__all__ = ["fit_restoring_beam", "beam_kernel", "restore", "fast_dirty", "fast_psf", "plot_uv_and_beam",
            "MAIN_LOBE_LEVEL"]
 
 #: The PSF main lobe is the connected region around the peak above this level.
@@ -110,3 +110,45 @@ def fast_psf(uvw_m, nu_hz, weights, geom):
     wgrid = np.bincount(cell, weights=weights, minlength=px * py).reshape(py, px)
     psf = np.fft.ifft2(wgrid).real * (px * py) / np.sum(weights)
     return np.fft.fftshift(psf)
+
+
+def plot_uv_and_beam(arr, declination, hour_angles, sample_interval, path, freq, npix=128):
+    """Write a PNG (matplotlib Agg) of the uv coverage (kilo-wavelengths, both Hermitian
+    halves) and the natural-weighted synthesized beam (PSF) of ``arr`` at ``freq``.
+
+    The PSF pixel is lambda / (6 B_max); the fitted restoring beam is drawn as an ellipse.
+    Returns the path.
+    """
+    import astropy.units as u
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from matplotlib.patches import Ellipse
+    from .uv import uv_tracks
+    from .visibilities import ImageGeometry, grid_dirty
+    nu_hz = u.Quantity(freq).to_value(u.Hz, equivalencies=u.spectral())
+    t = uv_tracks(arr, declination, hour_angles, sample_interval)
+    uv_kl = t.uvw_m[:, :2] * nu_hz / C_M_S / 1e3
+    pix = 1.0 / (6.0 * np.abs(uv_kl).max() * 1e3)
+    geom = ImageGeometry(npix, npix, -pix, pix, npix // 2, npix // 2)
+    w = np.ones(uv_kl.shape[0])
+    psf = grid_dirty(np.ones(w.size, complex), t.uvw_m, nu_hz, w, geom, shape=(npix, npix))
+    beam = fit_restoring_beam(psf, -pix, pix)
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(10, 4.6))
+    ax1.plot(uv_kl[:, 0], uv_kl[:, 1], ",", color="k")
+    ax1.plot(-uv_kl[:, 0], -uv_kl[:, 1], ",", color="0.5")
+    ax1.set(xlabel="u [kλ]", ylabel="v [kλ]", aspect="equal",
+            title=f"{arr.name}: uv coverage at {nu_hz / 1e9:.2f} GHz")
+    ax1.invert_xaxis()
+    half = npix / 2 * pix * 206264.806
+    im = ax2.imshow(psf, origin="lower", extent=[half, -half, -half, half], cmap="viridis")
+    ax2.add_patch(Ellipse((0, 0), beam.minor.to_value(u.arcsec), beam.major.to_value(u.arcsec),
+                          angle=-beam.pa.to_value(u.deg), fill=False, color="w"))
+    ax2.set(xlabel="ΔRA [arcsec]", ylabel="ΔDec [arcsec]",
+            title=f"synthesized beam {beam.major.to_value(u.arcsec):.2f}\" × "
+                  f"{beam.minor.to_value(u.arcsec):.2f}\"")
+    fig.colorbar(im, ax=ax2)
+    fig.tight_layout()
+    fig.savefig(path, dpi=100)
+    plt.close(fig)
+    return path

@@ -231,12 +231,18 @@ def _check_options(opts):
         raise InstrumentError(f"niter={opts['niter']!r} must be an integer >= 0")
 
 
-def _channel_width_hz(freqs, opts):
+def _channel_width_hz(cube, freqs, opts):
+    """Channel width: ``bandwidth`` if given, else the spectral WCS step in frequency."""
     if opts["bandwidth"] is not None:
         return _quantity("bandwidth", opts["bandwidth"], u.Hz).value
-    if freqs.size < 2:
-        raise InstrumentError("a single-channel cube needs bandwidth= (the channel width)")
-    return float(np.abs(np.diff(freqs)).mean())
+    if freqs.size >= 2:
+        return float(np.abs(np.diff(freqs)).mean())
+    step = cube.wcs.spectral.pixel_to_world_values(np.array([0.0, 1.0]))
+    unit = u.Unit(cube.wcs.spectral.wcs.cunit[0])
+    if unit.is_equivalent(u.Hz):
+        return float(abs(np.diff(step)[0]) * unit.to(u.Hz))
+    # radio velocity: nu = nu0 (1 - v / c)
+    return float(abs(np.diff(step)[0]) * unit.to(u.m / u.s) / 299792458.0 * cube.wcs.wcs.restfrq)
 
 
 def run_observation(cube, arrays, opts, *, noise=True, seed=None, integration_time=None):
@@ -246,7 +252,7 @@ def run_observation(cube, arrays, opts, *, noise=True, seed=None, integration_ti
     if opts.get("declination") is not None:
         dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
     freqs = cube_frequencies_hz(cube)
-    tracks = assemble_tracks(arrays, dec_rad, opts, _channel_width_hz(freqs, opts),
+    tracks = assemble_tracks(arrays, dec_rad, opts, _channel_width_hz(cube, freqs, opts),
                              integration_time)
     check_sampling(geom, tracks.uvw_m, freqs.max())
     rng = np.random.default_rng(seed) if noise else None
