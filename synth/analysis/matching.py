@@ -153,9 +153,10 @@ def beam_kernel(beam_from, beam_to):
         return beam_to
     if _same_beam(beam_from, beam_to):
         return None
+    from radio_beam.utils import BeamError
     try:
-        return beam_to.deconvolve(beam_from)
-    except ValueError as exc:
+        return beam_to.deconvolve(beam_from, failure_returns_pointlike=False)
+    except (ValueError, BeamError) as exc:
         raise InstrumentError(f"beam: cannot go from {beam_from} to {beam_to} "
                               "(the target must be at least as large in every direction)"
                               ) from exc
