@@ -133,7 +133,8 @@ def test_bad_config(tmp_path, edit, match):
 
 def test_config_reference_documents_every_key():
     """docs/config.md lists every key of the schema (the reference stays in step)."""
-    doc = open(os.path.join(os.path.dirname(__file__), "..", "docs", "config.md")).read()
+    with open(os.path.join(os.path.dirname(__file__), "..", "docs", "config.md")) as fh:
+        doc = fh.read()
     for section, spec in SCHEMA.items():
         assert section in doc
         for key in spec:
@@ -143,9 +144,9 @@ def test_config_reference_documents_every_key():
 def test_demo_configs_identical():
     """configs/demo.toml (for `synth run`) is the packaged demo config (for `synth demo`)."""
     here = os.path.dirname(__file__)
-    a = open(os.path.join(here, "..", "configs", "demo.toml")).read()
     from synth.pipeline import DEMO_CONFIG
-    assert a == open(DEMO_CONFIG).read()
+    with open(os.path.join(here, "..", "configs", "demo.toml")) as a, open(DEMO_CONFIG) as b:
+        assert a.read() == b.read()
     validate_config(load_config(DEMO_CONFIG))
 
 
@@ -228,3 +229,59 @@ def test_unknown_excitation_method():
     with pytest.raises(ExcitationError, match="valid: lte, lvg"):
         synth.synthesize(synth.demo_cloud(n=8, seed=1), synth.Line("CO", "1-0"), 1e-4,
                          excitation="nlte", distance=2 * u.kpc, channel_width=0.5 * u.km / u.s)
+
+
+DISH = """
+[[setup]]
+name = "d30"
+kind = "dish"
+diameter_m = 8
+tsys_k = 120
+integration_time_h = 2.0
+channel_width_kms = 1.0
+"""
+
+
+def test_dish_setup_writes_k_and_jy_cubes(tmp_path):
+    """A [[setup]] dish observation writes K and Jy/beam cubes that convert into each other
+    with astropy's brightness_temperature equivalency for the recorded beam (Wilson et al.
+    2013, eq. 8.19), and the measured noise equals the radiometer rms recorded in the summary
+    within 10 % in the emission-free edge channels (T_sys / (eta sqrt(dnu t)))."""
+    p = tmp_path / "c.toml"
+    p.write_text(MINIMAL.replace("velocity_min_kms = -12", "velocity_min_kms = -40")
+                 .replace("velocity_max_kms = 12", "velocity_max_kms = 40") + DISH)
+    summary = synth.run_config(str(p), str(tmp_path / "o"), progress=False)
+    k = SpectralCube.read(str(tmp_path / "o" / "13CO_1-0_d30_k.fits"))
+    jy = SpectralCube.read(str(tmp_path / "o" / "13CO_1-0_d30_jyb.fits"))
+    assert k.unit == u.K and jy.unit == u.Jy / u.beam
+    freq = synth.Line("13CO", "1-0").frequency
+    factor = (1 * u.Jy).to(u.K, u.brightness_temperature(freq, k.beam.sr)).value
+    # the conversion uses each channel's own frequency (|v| <= 40 km/s: nu^2 varies by 3e-4)
+    np.testing.assert_allclose(k.unmasked_data[:].value, jy.unmasked_data[:].value * factor,
+                               rtol=4e-4, atol=1e-7)
+    from synth.instrument.noise import radiometer_rms
+    dnu = (1 * u.km / u.s / const_c() * freq).to(u.Hz)
+    rms = radiometer_rms(120 * u.K, 0.7, dnu, 2 * u.hr).to_value(u.K)
+    entry = summary["setups"]["d30"]["13CO_1-0"]
+    assert entry["noise_rms"] == pytest.approx(rms, rel=1e-3)
+    edge = np.concatenate([k.unmasked_data[:8].value.ravel(), k.unmasked_data[-8:].value.ravel()])
+    assert np.std(edge) == pytest.approx(rms, rel=0.1)
+
+
+def const_c():
+    import astropy.constants as const
+    return const.c
+
+
+@pytest.mark.parametrize("edit, match", [
+    (("kind = \"dish\"", "kind = \"mirror\""), "valid: dish, array"),
+    (("diameter_m = 8\n", ""), "needs diameter_m or beam_arcsec"),
+    (("integration_time_h = 2.0\n", ""), "give rms_k, or tsys_k and integration_time_h"),
+    (("tsys_k = 120", "tsys = 120"), "unknown key 'tsys'.*did you mean 'tsys_k'"),
+])
+def test_bad_dish_setup(tmp_path, edit, match):
+    p = tmp_path / "c.toml"
+    p.write_text(MINIMAL + DISH.replace(*edit))
+    with pytest.raises(ConfigError, match=match):
+        synth.run_config(str(p), str(tmp_path / "o"), progress=False)
+    assert not (tmp_path / "o").exists()
