@@ -258,7 +258,131 @@ def critical_density(species_or_moldata, t_kin, ortho_para_ratio=None, include_u
         return system.a_ul_s / np.array(out) * u.cm**-3
 
 
-def lvg_excitation(snapshot, line, abundance, **options):
-    """Per-cell LVG excitation of one line; see :func:`synth.excitation.tables.lvg_excitation`."""
-    from .tables import lvg_excitation as _run
-    return _run(snapshot, line, abundance, **options)
+def _progress(progress):
+    """A callable(fraction) from None, a callable or a tqdm-like object (has ``update``)."""
+    if progress is None:
+        return None
+    if hasattr(progress, "update"):
+        state = {"done": 0.0}
+        total = float(getattr(progress, "total", None) or 1.0)
+
+        def step(fraction):
+            progress.update((fraction - state["done"]) * total)
+            state["done"] = fraction
+        return step
+    if callable(progress):
+        return progress
+    raise ExcitationError(f"progress must be None, a callable(fraction) or a tqdm bar, "
+                          f"got {progress!r}")
+
+
+def _sample_cells(active, n, rng):
+    """Up to n distinct random flat indices of active cells."""
+    flat = active.ravel()
+    n_active = int(flat.sum())
+    if n_active <= 4 * n or n_active < flat.size / 4:
+        return rng.choice(np.flatnonzero(flat), size=min(n, n_active), replace=False)
+    picks = np.unique(rng.integers(0, flat.size, size=8 * n))
+    picks = picks[flat[picks]]
+    return rng.permutation(picks)[:n]
+
+
+def _log_range(arr, where):
+    return (float(np.log10(np.min(arr, where=where, initial=np.inf))),
+            float(np.log10(np.max(arr, where=where, initial=0.0))))
+
+
+def _check_snapshot_options(abundance, accuracy, t_bg_k, max_escape_length, n_check):
+    if not (np.isfinite(accuracy) and 0 < accuracy < 1):
+        raise ExcitationError(f"accuracy must be a fraction in (0, 1), got {accuracy!r}")
+    if not (np.isfinite(t_bg_k) and t_bg_k >= 0):
+        raise ExcitationError(f"t_bg_k must be a temperature >= 0 K, got {t_bg_k!r}")
+    if not (isinstance(n_check, (int, np.integer)) and n_check >= 1):
+        raise ExcitationError(f"n_check must be a positive integer, got {n_check!r}")
+    if not (np.isfinite(abundance) and abundance >= 0):
+        raise ExcitationError(f"abundance must be a number >= 0, got {abundance!r}")
+    if max_escape_length is None:
+        return None
+    return _scalar(max_escape_length, "cm", "max_escape_length")
+
+
+def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_ratio=None,
+                   t_bg_k=T_CMB_K, max_escape_length=None, accuracy=0.01, partners=None,
+                   seed=0, progress=None, n_check=1000, max_table_nodes=60000):
+    """Non-LTE (escape-probability) excitation of one line in every cell of a snapshot.
+
+    Each cell's K = n_mol / |dv/ds| (Sobolev; :mod:`synth.excitation.gradient`, the gradient
+    floored by the local FWHM over ``max_escape_length``) enters the escape probability through
+    tau = (c^3 A / (8 pi nu^3)) K (x_l g_u/g_l - x_u) (Castor 1970), the same opacity the
+    transfer uses. Populations come from a table over (n_H2, T_kin, K), refined until the
+    line's T_R differs from direct solves of ``n_check`` random cells by less than
+    ``accuracy`` (:mod:`synth.excitation.tables`).
+
+    Parameters
+    ----------
+    snapshot : Snapshot
+    line : synth.Line
+    abundance : float
+        Abundance relative to H2 where the snapshot has no per-cell field for the species.
+    geometry, ortho_para_ratio, partners
+        As for :func:`excite`.
+    t_bg_k : float
+        Background blackbody temperature, K.
+    max_escape_length : Quantity ``[length]``, optional
+        Cap on the Sobolev length (default the longest box edge).
+    accuracy : float
+        Required relative accuracy of the table in T_R (default 1 %).
+    seed : int
+        Seed of the random check sample.
+    progress : callable(fraction) or tqdm, optional
+    n_check, max_table_nodes : int
+        Size of the check sample; cap on the table size (TableAccuracyWarning when hit).
+
+    Returns
+    -------
+    Excitation
+        ``t_ex_k``, ``opacity_integral`` (float32); ``info`` holds the achieved accuracy
+        ("table_error"), the table shape and size, the number of direct solves and ranges.
+    """
+    from .gradient import sobolev_column
+    from .product import Excitation
+    from .tables import apply_table, build_table
+    check_options(geometry, ortho_para_ratio)
+    l_max = _check_snapshot_options(abundance, accuracy, t_bg_k, max_escape_length, n_check)
+    report = _progress(progress)
+    mol = line.collision_molecule()
+    k_mol = mol.transition_index(line.transition)
+    t_kin = snapshot.t_kin_k
+    t_lo, t_hi = float(t_kin.min()), float(t_kin.max())
+    system = level_system(mol, t_hot_k=max(t_hi, t_bg_k), min_fraction=1e-14,
+                          keep_below_k=float(mol.energy_k[mol.upper[k_mol]]))
+    k_line = int(np.flatnonzero(system.lines == k_mol)[0])
+    dens = partner_densities(system, [1.0], [t_lo], ortho_para_ratio, partners)
+    check_temperature_range(system, t_lo, t_hi,
+                            {p for p, d in zip(system.partners, dens) if np.any(d > 0)})
+    ab = snapshot.abundance_for(line.species, abundance)
+    kcol = sobolev_column(snapshot, ab, mol.mass_amu, l_max)
+    active = (snapshot.n_h2_cm3 > 0) & (kcol > 0)
+    info = {"geometry": geometry, "accuracy": accuracy, "levels": system.n_levels,
+            "active_cells": int(active.sum())}
+    if info["active_cells"] == 0:
+        info.update(table_error=0.0, table_shape=(0, 0, 0), table_nodes=0, direct_solves=0)
+        shape = snapshot.shape
+        return Excitation(line, np.full(shape, t_bg_k, np.float32),
+                          np.zeros(shape, np.float32), "lvg", info)
+    fields = (snapshot.n_h2_cm3, t_kin, kcol)
+    ranges = [_log_range(f, active) for f in fields]
+    cells = _sample_cells(active, n_check, np.random.default_rng(seed))
+    sample = np.log10(np.stack([f.ravel()[cells].astype(np.float64) for f in fields], axis=1))
+    opts = {"geometry": geometry, "t_bg_k": t_bg_k, "ortho_para_ratio": ortho_para_ratio,
+            "partners": partners}
+    table = build_table(system, ranges, sample, (k_line, t_bg_k), opts, accuracy,
+                        max_table_nodes, report)
+    t_ex, op = apply_table(table, system, k_line, snapshot, ab, kcol, t_bg_k)
+    if report is not None:
+        report(1.0)
+    info.update(table_error=table.error, table_shape=table.shape,
+                table_nodes=int(np.prod(table.shape)), direct_solves=table.solves,
+                n_check=int(cells.size), ranges_log10={"n_h2_cm3": ranges[0],
+                                                       "t_kin_k": ranges[1], "k_cm3s": ranges[2]})
+    return Excitation(line, t_ex, op, "lvg", info)

@@ -106,12 +106,13 @@ class LevelSystem:
         return tuple(c.partner for c in self.collisions)
 
 
-def level_system(mol, t_hot_k=None, min_fraction=1e-20):
+def level_system(mol, t_hot_k=None, min_fraction=1e-20, keep_below_k=0.0):
     """Build a :class:`LevelSystem` from MolecularData, dropping unreachable levels.
 
     A level is kept if (g_i/g_0) exp(-E_i / k T_hot) >= ``min_fraction`` (its Boltzmann
     population relative to the ground at the hottest temperature involved); with
-    ``t_hot_k=None`` every level is kept. Dropped levels hold populations far below the
+    ``t_hot_k=None`` every level is kept; levels with E/k <= ``keep_below_k`` always are.
+    Dropped levels hold populations far below the
     round-off of the solve; their lines are reported as not computed.
     """
     energy = np.asarray(mol.energy_k, dtype=np.float64)
@@ -120,6 +121,7 @@ def level_system(mol, t_hot_k=None, min_fraction=1e-20):
         keep = np.ones(energy.size, dtype=bool)
     else:
         keep = (g / g[0]) * np.exp(-energy / float(t_hot_k)) >= min_fraction
+        keep |= energy <= keep_below_k
         keep[np.argsort(energy)[:2]] = True
     levels = np.flatnonzero(keep)
     new_index = np.full(energy.size, -1)

@@ -1,0 +1,295 @@
+"""Level-population tables over (n_H2, T_kin, K) with error-controlled refinement.
+
+Solving statistical equilibrium in every cell of a 256^3 snapshot is too slow, so the
+populations are solved on a table with log10-spaced nodes along n(H2) [cm^-3], T_kin [K] and
+K = n_mol/|dv/ds| [cm^-3 s] (the Sobolev column per velocity, :mod:`synth.excitation.gradient`)
+spanning the ranges found in the cells, and interpolated per cell, multilinearly in the log10
+coordinates (trilinear on a uniform grid), in two quantities that stay smooth where T_ex
+nears T_bg and through weak population inversions: the population difference
+f = x_l g_u/g_l - x_u (opacity per molecule, tau = tau_c K f) and the excess emissivity
+e = T_0 x_u - J(T_bg) f (T_0 = h nu/k), so that J(T_ex) - J(T_bg) = e / f and
+
+    T_R = (e / f) (1 - exp(-tau_c K f)) = e tau_c K (1 - e^{-tau}) / tau.
+
+Interpolating T_ex or ln x instead loses the difference J(T_ex) - J(T_bg) to cancellation in
+faint cells. Both are stored as asinh(v / v_0) with v_0 = 1e-6 of the largest |v| on the
+nodes: logarithmic over decades of e (e ~ n at low density), linear through zero.
+
+Error control: a random sample of cells (``numpy.random.default_rng(seed)``) is solved
+directly. The table's error is the largest relative difference in the line's radiation
+temperature T_R = [J(T_ex) - J(T_bg)](1 - e^{-tau}) (tau the cell's Sobolev optical depth)
+between interpolation and direct solve, measured against max(|T_R|, 1e-3 max|T_R| of the
+sample) so that nearly empty cells do not dominate. While it exceeds the requested accuracy
+the node spacing is halved along the axis whose coarsening (dropping every other node) raises
+the error most; new nodes start from the geometric mean of their neighbours' populations. If
+the next halving would pass ``max_nodes`` a :class:`~synth.errors.TableAccuracyWarning` gives
+the accuracy reached.
+"""
+
+from dataclasses import dataclass
+import math
+import warnings
+
+import numpy as np
+from numba import njit, prange
+
+from ..errors import TableAccuracyWarning
+from ..radiation import H_CGS, K_CGS, radiation_temperature
+from .statistical_equilibrium import solve_levels
+
+__all__ = ["PopulationTable", "build_table", "apply_table", "INITIAL_STEP_DEX"]
+
+#: Initial node spacing (dex) along log n(H2), log T_kin, log K.
+INITIAL_STEP_DEX = (0.5, 0.1, 0.5)
+_REL_FLOOR = 1e-3
+
+
+@dataclass(frozen=True, eq=False)
+class PopulationTable:
+    """Solved populations on a regular grid in (log10 n_H2, log10 T_kin, log10 K).
+
+    axes : tuple of three 1-D arrays of log10 node values (uniformly spaced, length 1 allowed);
+    values : ndarray (m_n, m_T, m_K, 2), asinh(e/e_0) and asinh(f/f_0) (module docstring);
+    scales : (e_0, f_0); line : (nu_hz, g_u/g_l, tau_c, J(T_bg)) of the tabulated line;
+    error : float, the achieved sample error in T_R (module docstring); solves : int, the number
+    of direct solves made (nodes and sample).
+    """
+
+    axes: tuple
+    values: np.ndarray
+    scales: tuple
+    line: tuple
+    error: float
+    solves: int
+
+    @property
+    def shape(self):
+        return tuple(a.size for a in self.axes)
+
+
+def _axis(lo, hi, step):
+    if hi - lo < 1e-9:
+        return np.array([lo])
+    m = 2 * math.ceil((hi - lo) / (2.0 * step)) + 1
+    return np.linspace(lo, hi, m)
+
+
+def _solve_nodes(system, axes, idx, x0, opts):
+    """Populations at grid nodes idx (N, 3) of index triples."""
+    n, t, k = (10.0 ** axes[a][idx[:, a]] for a in range(3))
+    return solve_levels(system, n, t, k, x0=x0, **opts).populations
+
+
+def _interp(axes, vals, pts):
+    """Trilinear interpolation of vals (m1, m2, m3, q) at points (N, 3) in log10 coordinates."""
+    out = np.zeros((pts.shape[0], vals.shape[-1]))
+    base, frac = [], []
+    for a, ax in enumerate(axes):
+        if ax.size == 1:
+            base.append(np.zeros(pts.shape[0], dtype=int))
+            frac.append(np.zeros(pts.shape[0]))
+            continue
+        c = np.clip((pts[:, a] - ax[0]) / (ax[1] - ax[0]), 0.0, ax.size - 1)
+        i = np.minimum(c.astype(int), ax.size - 2)
+        base.append(i)
+        frac.append(c - i)
+    for corner in range(8):
+        w = np.ones(pts.shape[0])
+        ix = []
+        for a in range(3):
+            bit = (corner >> a) & 1
+            ix.append(np.minimum(base[a] + bit, axes[a].size - 1))
+            w = w * (frac[a] if bit else 1.0 - frac[a])
+        out += w[:, None] * vals[ix[0], ix[1], ix[2]]
+    return out
+
+
+def line_t_r(x_u, x_l, kcol, line):
+    """T_R of the line from populations and Sobolev K (the per-cell check quantity), K."""
+    nu, gr, tau_coef, j_bg = line
+    f = x_l * gr - x_u
+    return _t_r(H_CGS * nu / K_CGS * x_u - j_bg * f, f, tau_coef * kcol)
+
+
+def _t_r(e, f, tau_per_f):
+    """T_R = e tau_c K (1 - e^-tau)/tau, tau = tau_c K f (module docstring)."""
+    tau = tau_per_f * f
+    safe = np.where(tau == 0.0, 1.0, tau)
+    return e * tau_per_f * np.where(tau == 0.0, 1.0, -np.expm1(-safe) / safe)
+
+
+def _node_values(pops, up, lo, line, scales=None):
+    """asinh-scaled (e, f) of the line at the nodes, and the scales."""
+    nu, gr, _, j_bg = line
+    f = pops[..., lo] * gr - pops[..., up]
+    e = H_CGS * nu / K_CGS * pops[..., up] - j_bg * f
+    if scales is None:
+        scales = (1e-6 * np.abs(e).max() + 1e-300, 1e-6 * np.abs(f).max() + 1e-300)
+    return np.stack([np.arcsinh(e / scales[0]), np.arcsinh(f / scales[1])], axis=-1), scales
+
+
+def _error(axes, vals, pts, ref_tr, kcol, line, scales):
+    v = _interp(axes, vals, pts)
+    tr = _t_r(scales[0] * np.sinh(v[:, 0]), scales[1] * np.sinh(v[:, 1]), line[2] * kcol)
+    scale = np.maximum(np.abs(ref_tr), _REL_FLOOR * np.abs(ref_tr).max() + 1e-300)
+    return float(np.max(np.abs(tr - ref_tr) / scale))
+
+
+def _worst_axis(axes, vals, pts, ref_tr, kcol, line, scales):
+    """The axis whose coarsening by 2 raises the sample error most (None if none can be)."""
+    best, worst = None, -1.0
+    for a, ax in enumerate(axes):
+        if ax.size < 3:
+            continue
+        coarse = list(axes)
+        coarse[a] = ax[::2]
+        sl = [slice(None)] * 3
+        sl[a] = slice(None, None, 2)
+        e = _error(coarse, vals[tuple(sl)], pts, ref_tr, kcol, line, scales)
+        if e > worst:
+            best, worst = a, e
+    return best
+
+
+def _refine(system, axes, pops, a, opts):
+    """Halve the spacing along axis a: old nodes kept, the new (odd) planes solved."""
+    ax = axes[a]
+    new_ax = np.linspace(ax[0], ax[-1], 2 * ax.size - 1)
+    shape = list(pops.shape)
+    shape[a] = new_ax.size
+    new = np.empty(shape)
+    even = [slice(None)] * 4
+    even[a] = slice(None, None, 2)
+    new[tuple(even)] = pops
+    lo, hi = [slice(None)] * 4, [slice(None)] * 4
+    lo[a], hi[a] = slice(None, -1), slice(1, None)
+    guess = np.sqrt(np.maximum(pops[tuple(lo)], 1e-300) * np.maximum(pops[tuple(hi)], 1e-300))
+    axes = tuple(new_ax if b == a else axes[b] for b in range(3))
+    grid = [np.arange(n) for n in shape[:3]]
+    grid[a] = np.arange(1, new_ax.size, 2)
+    idx = np.stack(np.meshgrid(*grid, indexing="ij"), axis=-1).reshape(-1, 3)
+    g = guess.reshape(-1, shape[3])  # same C order as idx
+    g = g / g.sum(axis=1, keepdims=True)
+    new[idx[:, 0], idx[:, 1], idx[:, 2]] = _solve_nodes(system, axes, idx, g, opts)
+    return axes, new, idx.shape[0]
+
+
+def build_table(system, ranges, sample, line, opts, accuracy=0.01, max_nodes=60000,
+                progress=None):
+    """Solve and refine a :class:`PopulationTable` (module docstring).
+
+    Parameters
+    ----------
+    system : LevelSystem
+    ranges : sequence of three (lo, hi)
+        log10 ranges of n(H2), T_kin and K in the cells.
+    sample : ndarray (N, 3)
+        log10 (n, T, K) of the randomly drawn check cells.
+    line : tuple
+        (kept-line index in ``system``, t_bg_k) of the line whose T_R is checked.
+    opts : dict
+        Keyword options of :func:`~synth.excitation.statistical_equilibrium.solve_levels`.
+    """
+    k_line, t_bg = line
+    up, lo = int(system.upper[k_line]), int(system.lower[k_line])
+    nu = system.freq_hz[k_line]
+    consts = (nu, system.g[up] / system.g[lo], system.tau_coef[k_line],
+              radiation_temperature(nu, t_bg) if t_bg > 0 else 0.0)
+    axes = tuple(_axis(r[0], r[1], s) for r, s in zip(ranges, INITIAL_STEP_DEX))
+    idx = np.stack(np.meshgrid(*[np.arange(a.size) for a in axes], indexing="ij"),
+                   axis=-1).reshape(-1, 3)
+    pops = _solve_nodes(system, axes, idx, None, opts).reshape(tuple(a.size for a in axes) + (-1,))
+    ref = solve_levels(system, *(10.0 ** sample.T), **opts).populations
+    kcol = 10.0 ** sample[:, 2]
+    ref_tr = line_t_r(ref[:, up], ref[:, lo], kcol, consts)
+    solves = idx.shape[0] + sample.shape[0]
+    scales = None
+    while True:
+        vals, scales = _node_values(pops, up, lo, consts, scales)
+        err = _error(axes, vals, sample, ref_tr, kcol, consts, scales)
+        if progress is not None:
+            progress(min(0.8, 0.8 * accuracy / max(err, accuracy)))
+        if err <= accuracy:
+            break
+        a = _worst_axis(axes, vals, sample, ref_tr, kcol, consts, scales)
+        size = np.prod([ax.size for ax in axes])
+        if a is None or size * (2 * axes[a].size - 1) / axes[a].size > max_nodes:
+            warnings.warn(f"LVG table stopped at {size} nodes (cap max_table_nodes="
+                          f"{max_nodes}) with a T_R error of {err:.3g} > accuracy {accuracy:g}",
+                          TableAccuracyWarning, stacklevel=3)
+            break
+        axes, pops, n_new = _refine(system, axes, pops, a, opts)
+        solves += n_new
+    return PopulationTable(axes, vals, scales, consts, err, solves)
+
+
+@njit(parallel=True, cache=True)
+def _apply(n_h2, abund, t_k, kcol, lo, step, size, ve, vf, e0, f0, t0, j_bg, tau_coef, t_bg,
+           t_ex_out, op_out):
+    nx, ny, nz = n_h2.shape
+    for i in prange(nx):
+        b = np.zeros(3, dtype=np.int64)
+        fr = np.zeros(3)
+        ix = np.zeros(3, dtype=np.int64)
+        for j in range(ny):
+            for k in range(nz):
+                nm = n_h2[i, j, k] * abund[i, j, k]
+                if nm <= 0.0 or kcol[i, j, k] <= 0.0:
+                    t_ex_out[i, j, k] = t_bg
+                    op_out[i, j, k] = 0.0
+                    continue
+                coords = (math.log10(n_h2[i, j, k]), math.log10(t_k[i, j, k]),
+                          math.log10(kcol[i, j, k]))
+                for a in range(3):
+                    b[a] = 0
+                    fr[a] = 0.0
+                    if size[a] > 1:
+                        c = min(max((coords[a] - lo[a]) / step[a], 0.0), size[a] - 1.0)
+                        b[a] = min(int(c), size[a] - 2)
+                        fr[a] = c - b[a]
+                se = 0.0
+                sf = 0.0
+                for corner in range(8):
+                    w = 1.0
+                    for a in range(3):
+                        bit = (corner >> a) & 1
+                        ix[a] = min(b[a] + bit, size[a] - 1)
+                        w *= fr[a] if bit else 1.0 - fr[a]
+                    se += w * ve[ix[0], ix[1], ix[2]]
+                    sf += w * vf[ix[0], ix[1], ix[2]]
+                e = e0 * math.sinh(se)
+                f = f0 * math.sinh(sf)
+                op_out[i, j, k] = tau_coef * nm * f
+                t_ex_out[i, j, k] = _t_ex(e, f, t0, j_bg)
+
+
+@njit(inline="always")
+def _t_ex(e, f, t0, j_bg):
+    """T_ex from J(T_ex) = e/f + J(T_bg); J in [-T_0, 0] (unphysical) is clamped to 1e-3 K."""
+    if f == 0.0:
+        return 1e30 if e >= 0.0 else -1e30
+    jj = e / f + j_bg
+    if -t0 <= jj <= 0.0:
+        return 1e-3
+    return t0 / math.log1p(t0 / jj)
+
+
+def apply_table(table, system, k_line, snapshot, abundance, kcol, t_bg_k):
+    """Per-cell T_ex (K) and opacity_integral (s^-1), float32, from the table.
+
+    opacity_integral = (c^3 A / (8 pi nu^3)) n_mol f with f = x_l g_u/g_l - x_u (Castor 1970;
+    the convention of :mod:`synth.excitation.product`); empty cells get T_ex = T_bg and 0.
+    """
+    axes = table.axes
+    step = np.array([a[1] - a[0] if a.size > 1 else 1.0 for a in axes])
+    shape = snapshot.shape
+    ab = np.asarray(abundance, dtype=np.float64)
+    ab = np.broadcast_to(ab, shape) if ab.ndim == 0 else ab
+    t_ex = np.empty(shape, dtype=np.float32)
+    op = np.empty(shape, dtype=np.float32)
+    nu, _, tau_coef, j_bg = table.line
+    _apply(snapshot.n_h2_cm3, ab, snapshot.t_kin_k, kcol, np.array([a[0] for a in axes]), step,
+           np.array(table.shape, dtype=np.int64), np.ascontiguousarray(table.values[..., 0]),
+           np.ascontiguousarray(table.values[..., 1]), table.scales[0], table.scales[1],
+           H_CGS * nu / K_CGS, j_bg, tau_coef, float(t_bg_k), t_ex, op)
+    return t_ex, op
