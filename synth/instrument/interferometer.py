@@ -309,7 +309,7 @@ def new_observed_cube(template, data, meta, beam, unit="Jy/beam"):
     """A SpectralCube of ``data`` (Jy/beam, or K via the beam's Rayleigh-Jeans factor) on the
     template's WCS, with the beam and its own ``meta``."""
     from spectral_cube import SpectralCube
-    meta = dict(meta)
+    meta = {k: v for k, v in meta.items() if k not in ("BUNIT", "beam")}
     if unit == "K":
         freqs = cube_frequencies_hz(template)
         data = data * beam.jtok(freqs * u.Hz).value[:, None, None]

@@ -26,7 +26,10 @@ __all__ = ["ImageGeometry", "EPSILON", "NTHREADS", "predict", "grid_dirty", "vis
            "cube_geometry", "cube_frequencies_hz", "jy_per_pixel_factor"]
 
 EPSILON = 1e-7
+#: threads for prediction (each visibility is computed independently: deterministic) and for
+#: gridding (one thread, so that a seeded run gives the same bytes every time)
 NTHREADS = 2
+NTHREADS_GRID = 1
 K_B_SI = k_B.si.value
 JY_SI = 1e-26
 
@@ -124,7 +127,8 @@ def grid_dirty(vis, uvw_m, nu_hz, weights, geom, shape=None):
     img = vis2dirty(uvw=g.ducc_uvw(uvw_m), freq=np.array([float(nu_hz)]),
                     vis=np.ascontiguousarray(vis, dtype=np.complex128)[:, None],
                     wgt=np.ascontiguousarray(weights, dtype=np.float64)[:, None],
-                    npix_x=npx, npix_y=npy, **g.ducc_kwargs(npx, npy))
+                    npix_x=npx, npix_y=npy, **{**g.ducc_kwargs(npx, npy),
+                                               "nthreads": NTHREADS_GRID})
     img = img.T / wsum
     return img if shape is not None else img[:geom.ny, :geom.nx]
 
