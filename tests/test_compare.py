@@ -131,3 +131,12 @@ def test_no_common_velocity_range():
                         restfreq=NU0, beam=Beam(6 * u.arcsec))
     with pytest.raises(InstrumentError, match="velocity range"):
         compare(a, b)
+
+
+def test_structure_figure(tmp_path):
+    """The comparison figure is written as a PNG with two panels."""
+    from matplotlib.image import imread
+    from synth.analysis.plots import structure_figure
+    a = _make(48, 2.0, 0.25, 10, Beam(6 * u.arcsec))
+    fig = structure_figure(compare(a, a), tmp_path / "s.png")
+    assert len(fig.axes) == 2 and imread(tmp_path / "s.png").std() > 0

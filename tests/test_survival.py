@@ -237,3 +237,21 @@ def test_bad_input(make, kwargs, match):
     ideal, obs = make()
     with pytest.raises(InstrumentError, match=match):
         assess(ideal, obs, **kwargs)
+
+
+def test_figures_write_pngs(tmp_path):
+    """Figure helpers return Figures with the expected panels and write readable PNGs."""
+    from matplotlib.image import imread
+    from synth.analysis.plots import fidelity_figure, moment_figure, recovery_figure, \
+        spectra_figure
+    ideal = _cube(_ideal())
+    obs = _cube(0.7 * _ideal())
+    m = assess(ideal, obs)
+    figs = {"mom.png": moment_figure(m, tmp_path / "mom.png"),
+            "rec.png": recovery_figure({"a": m}, tmp_path / "rec.png"),
+            "fid.png": fidelity_figure(m, tmp_path / "fid.png"),
+            "spec.png": spectra_figure(ideal, obs, [(64, 64), (70, 60)], tmp_path / "spec.png")}
+    assert len(figs["mom.png"].axes) == 8            # 4 maps + 4 colour bars
+    for name in figs:
+        img = imread(tmp_path / name)
+        assert img.shape[0] > 100 and img.std() > 0

@@ -112,5 +112,5 @@ def fidelity_summary(obs, ref, mask):
     finite = np.log10(f[np.isfinite(f) & (f > 0)])
     edges = FIDELITY_LOG_EDGES
     counts, _ = np.histogram(np.clip(finite, edges[0], edges[-1]), bins=edges)
-    return float(np.percentile(f, 50, method="nearest")), dict(zip(FIDELITY_PERCENTILES, map(float, pct))), \
-        (edges, counts)
+    median = float(np.percentile(f, 50, method="nearest"))     # nearest rank: inf-safe
+    return median, dict(zip(FIDELITY_PERCENTILES, map(float, pct))), (edges, counts)

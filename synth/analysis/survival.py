@@ -128,7 +128,11 @@ def reference_cube(ideal, observed):
 
 
 def _flux_jy(data, kind, beam, nu_hz, pix_sr):
-    """Flux density per pixel in Jy (K: 2 k nu^2 Omega_pix T / c^2; Jy/beam: x Omega_pix/Omega_b)."""
+    """Flux density per pixel in Jy.
+
+    K: S = 2 k nu^2 Omega_pix T / c^2 (Rayleigh-Jeans, astropy brightness_temperature);
+    Jy/beam: S = I Omega_pix / Omega_beam.
+    """
     if kind == "Jy/beam":
         return data * (pix_sr / beam.sr.value)
     fac = np.array([(1 * u.K).to_value(u.Jy, u.brightness_temperature(n * u.Hz,
