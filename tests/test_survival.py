@@ -255,3 +255,17 @@ def test_figures_write_pngs(tmp_path):
     for name in figs:
         img = imread(tmp_path / name)
         assert img.shape[0] > 100 and img.std() > 0
+
+
+def test_attenuated_reference_for_uncorrected_images():
+    """An image not corrected for the primary beam equals the sky times the Gaussian
+    response exp(-4 ln 2 r^2 / FWHM^2) (common practice); with attenuate=True the reference
+    carries the same response, so recovery is 1 and fidelity infinite-like (> 1e6)."""
+    ideal = PROFILE[:, None, None] * (_gauss(20.0) + _gauss(6.0, 25, -10))
+    y, x = np.mgrid[:N, :N] - (N - 1) / 2
+    pb = np.exp(-4 * np.log(2) * (x**2 + y**2) / 40.0**2)
+    m = assess(_cube(ideal), _cube(ideal * pb), primary_beam=40 * u.arcsec, attenuate=True)
+    assert np.allclose(m.recovery["recovered_fraction"], 1.0, rtol=1e-9)
+    assert m.fidelity > 1e6
+    with pytest.raises(InstrumentError, match="primary_beam"):
+        assess(_cube(ideal), _cube(ideal), attenuate=True)

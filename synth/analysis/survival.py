@@ -141,19 +141,33 @@ def _flux_jy(data, kind, beam, nu_hz, pix_sr):
     return data * fac[:, None, None]
 
 
+def _fwhm_arcsec(primary_beam):
+    if primary_beam is None:
+        raise InstrumentError("primary_beam: needed for attenuate=True (e.g. 25 * u.arcsec)")
+    fwhm = getattr(primary_beam, "major", primary_beam)
+    try:
+        return float(u.Quantity(fwhm).to_value(u.arcsec))
+    except (u.UnitConversionError, TypeError) as exc:
+        raise InstrumentError(f"primary_beam: {primary_beam!r} is not an angle or a Beam"
+                              ) from exc
+
+
+def _radius_arcsec(shape, pix_arcsec):
+    ny, nx = shape
+    y, x = np.mgrid[:ny, :nx]
+    return np.hypot(x - (nx - 1) / 2.0, y - (ny - 1) / 2.0) * pix_arcsec
+
+
 def _pb_mask(shape, pix_arcsec, primary_beam):
     if primary_beam is None:
         return None
-    fwhm = getattr(primary_beam, "major", primary_beam)
-    try:
-        fwhm_arcsec = u.Quantity(fwhm).to_value(u.arcsec)
-    except u.UnitConversionError as exc:
-        raise InstrumentError(f"primary_beam: {primary_beam!r} is not an angle or a Beam"
-                              ) from exc
-    ny, nx = shape
-    y, x = np.mgrid[:ny, :nx]
-    r = np.hypot(x - (nx - 1) / 2.0, y - (ny - 1) / 2.0) * pix_arcsec
-    return r <= 0.5 * fwhm_arcsec
+    return _radius_arcsec(shape, pix_arcsec) <= 0.5 * _fwhm_arcsec(primary_beam)
+
+
+def _pb_response(shape, pix_arcsec, primary_beam):
+    """Gaussian primary-beam power response exp(-4 ln 2 r^2 / FWHM^2) (common practice)."""
+    r = _radius_arcsec(shape, pix_arcsec)
+    return np.exp(-4 * np.log(2) * r**2 / _fwhm_arcsec(primary_beam) ** 2)
 
 
 def _pearson(a, b):
@@ -171,7 +185,7 @@ def _moments(data, mask, v_kms, dv_kms, unit, sigma):
 
 
 def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.01,
-           nbins=None):
+           nbins=None, attenuate=False):
     """Measure what of the ideal cube survives in the observed cube.
 
     Parameters
@@ -187,6 +201,9 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
         Primary-beam FWHM for the flux inside the half-power circle around the map centre.
     emission_floor : float
         Voxels where the reference exceeds this fraction of its peak are "emitting".
+    attenuate : bool
+        Multiply the reference by a Gaussian primary-beam response of FWHM ``primary_beam``
+        centred on the map, to compare with an image that is not primary-beam corrected.
 
     Returns
     -------
@@ -200,6 +217,10 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
     if not 0 < emission_floor < 1:
         raise InstrumentError(f"emission_floor: {emission_floor}; valid: 0 < floor < 1")
     ref, ideal_k, notes = reference_cube(ideal, observed)
+    if attenuate:
+        ref = ref * _pb_response(ref.shape[1:], pixel_scale_arcsec(observed), primary_beam)
+        notes.append(f"attenuated the reference by a Gaussian primary beam of FWHM "
+                     f"{_fwhm_arcsec(primary_beam):.3g} arcsec")
     obs, kind = cube_values(observed, "observed cube")
     unit = u.K if kind == "K" else u.Jy / u.beam
     beam = cube_beam(observed)
