@@ -165,7 +165,7 @@ class Tracks:
 
 def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None):
     """uv tracks of every array toward ``dec_rad`` with the radiometer noise of each row."""
-    uvw, sig, keys = [], [], []
+    uvw, sig, gid, table = [], [], [], {}
     for arr in arrays:
         t = uv_tracks(arr, dec_rad * u.rad, opts["hour_angles"], opts["sample_interval"])
         d = arr.diameters_m
@@ -177,14 +177,13 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None):
             s = s * np.sqrt(t_tot / _quantity("integration_time", integration_time, u.s).value)
         uvw.append(t.uvw_m)
         sig.append(s)
-        d1, d2 = np.minimum(d[t.ant1], d[t.ant2]), np.maximum(d[t.ant1], d[t.ant2])
-        keys += [(a, b, arr.pb_shape, arr.taper) for a, b in zip(d1, d2)]
-    keys_arr = np.array([hash(k) for k in keys])
-    groups = []
-    for h in np.unique(keys_arr):
-        idx = np.nonzero(keys_arr == h)[0]
-        groups.append((idx,) + keys[idx[0]])
-    return Tracks(np.concatenate(uvw), np.concatenate(sig), tuple(groups),
+        pairs = np.column_stack([np.minimum(d[t.ant1], d[t.ant2]), np.maximum(d[t.ant1], d[t.ant2])])
+        uniq, inv = np.unique(pairs, axis=0, return_inverse=True)
+        ids = [table.setdefault((a, b, arr.pb_shape, arr.taper), len(table)) for a, b in uniq]
+        gid.append(np.asarray(ids)[inv.ravel()])
+    gid = np.concatenate(gid)
+    groups = tuple((np.nonzero(gid == k)[0],) + key for key, k in table.items())
+    return Tracks(np.concatenate(uvw), np.concatenate(sig), groups,
                   tuple(a.name for a in arrays))
 
 
@@ -210,9 +209,12 @@ def _psf(tracks, nu_hz, weights, geom, fast):
 def _dirty(sky, tracks, nu_hz, weights, geom, pbs, pb_eff, opts, rng):
     if opts["fast"]:
         return fast_dirty(sky * pb_eff, tracks.uvw_m, nu_hz, weights, geom, tracks.sigma_jy, rng)
-    vis = np.empty(tracks.uvw_m.shape[0], dtype=np.complex128)
-    for (idx, *_), pb in zip(tracks.groups, pbs):
-        vis[idx] = predict(sky * pb, tracks.uvw_m[idx], nu_hz, geom)
+    if len(pbs) == 1:
+        vis = predict(sky * pbs[0], tracks.uvw_m, nu_hz, geom)
+    else:
+        vis = np.empty(tracks.uvw_m.shape[0], dtype=np.complex128)
+        for (idx, *_), pb in zip(tracks.groups, pbs):
+            vis[idx] = predict(sky * pb, tracks.uvw_m[idx], nu_hz, geom)
     if rng is not None:
         vis = add_thermal_noise(vis, tracks.sigma_jy, rng)
     return grid_dirty(vis, tracks.uvw_m, nu_hz, weights, geom)

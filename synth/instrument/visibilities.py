@@ -149,8 +149,8 @@ def visibility_sigma_jy(tsys_k, area1_m2, area2_m2, efficiency, channel_width_hz
 
 def add_thermal_noise(vis, sigma_jy, rng):
     """Add complex Gaussian noise of rms ``sigma_jy`` in each of the real and imaginary parts."""
-    n = vis.shape[0]
-    return vis + sigma_jy * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+    z = rng.standard_normal(2 * vis.shape[0]).view(np.complex128)
+    return vis + sigma_jy * z
 
 
 def _positive(name, q, unit):
