@@ -337,7 +337,7 @@ def _warn_outside(outside, total):
     if frac > OUTSIDE_PB_WARN_FRACTION:
         warnings.warn(f"{100 * frac:.1f}% of the sky cube's flux lies outside the primary-beam "
                       "half-power radius; this model has no mosaicking, so that emission is "
-                      "attenuated or lost", FieldLargerThanPrimaryBeamWarning, stacklevel=3)
+                      "attenuated or lost", FieldLargerThanPrimaryBeamWarning, stacklevel=4)
 
 
 def observe_interferometric(cube, instrument, *, noise=True, seed=None, integration_time=None,
