@@ -15,6 +15,7 @@ OPTIONAL = {
     "yt": ("yt", "reading simulation snapshots through yt"),
     "distributed": ("cluster", "running on a dask.distributed cluster"),
     "reproject": ("compare", "regridding one cube onto another in `synth compare`"),
+    "zarr": ("zarr", "reading snapshots stored as zarr"),
 }
 
 

@@ -21,7 +21,7 @@ def open_source(path, fmt, field_names):
         return _FitsFiles(path, field_names)
     if not os.path.exists(path):
         raise SnapshotError(f"snapshot file '{path}' does not exist")
-    return {"npz": _Npz, "hdf5": _Hdf5, "fits": _FitsExtensions}[fmt](path)
+    return {"npz": _Npz, "hdf5": _Hdf5, "fits": _FitsExtensions, "zarr": _Zarr}[fmt](path)
 
 
 class _Source:
@@ -104,7 +104,7 @@ class _Hdf5(_Source):
         return "/" + name.lstrip("/") in self._names
 
     def get(self, name):
-        return self._file[name][()]
+        return self._file[name]  # an h5py Dataset: sliced lazily by the reader
 
     def unit(self, name):
         attrs = self._file[name].attrs
@@ -148,7 +148,7 @@ class _FitsExtensions(_Source):
         from astropy.io import fits
         self.label = f"snapshot file '{path}'"
         try:
-            self._hdul = fits.open(path, memmap=False)
+            self._hdul = fits.open(path, memmap=True)
         except OSError as exc:
             raise SnapshotError(f"{self.label} is not a readable FITS file: {exc}") from None
         self._hdus = {h.name.upper(): h for h in self._hdul if h.data is not None}
@@ -202,12 +202,18 @@ class _FitsFiles(_Source):
             from astropy.io import fits
             if not os.path.exists(path):
                 raise SnapshotError(f"snapshot file '{path}' (field '{name}') does not exist")
-            with fits.open(path, memmap=False) as hdul:
-                hdu = next((h for h in hdul if h.data is not None), None)
-                if hdu is None:
-                    raise SnapshotError(f"snapshot file '{path}' holds no image data")
-                self._cache[path] = (np.array(hdu.data), hdu.header.copy())
+            hdul = fits.open(path, memmap=True)
+            hdu = next((h for h in hdul if h.data is not None), None)
+            if hdu is None:
+                hdul.close()
+                raise SnapshotError(f"snapshot file '{path}' holds no image data")
+            self._cache[path] = (hdu.data, hdu.header.copy(), hdul)  # memory-mapped
         return self._cache[path]
+
+    def close(self):
+        for _, _, hdul in self._cache.values():
+            hdul.close()
+        self._cache.clear()
 
     def get(self, name):
         return self._hdu(name)[0]
@@ -221,3 +227,38 @@ class _FitsFiles(_Source):
             if value is not None:
                 return value, unit
         return None, None
+
+
+class _Zarr(_Source):
+    """A zarr store (directory); arrays by path, units in the array attribute ``units``."""
+
+    cell_size_hint = "root attribute 'cell_size' with 'cell_size_unit'"
+
+    def __init__(self, path):
+        from .._optional import require
+        zarr = require("zarr")
+        self.label = f"snapshot store '{path}'"
+        try:
+            self._root = zarr.open_group(str(path), mode="r")
+        except Exception as exc:  # zarr raises several types for a non-store
+            raise SnapshotError(f"{self.label} is not a readable zarr group: {exc}") from None
+        self._names = [name for name, _ in self._root.arrays()]
+
+    def names(self):
+        return list(self._names)
+
+    def has(self, name):
+        return name.strip("/") in self._names
+
+    def get(self, name):
+        return self._root[name.strip("/")]  # a zarr Array: sliced lazily by the reader
+
+    def unit(self, name):
+        attrs = self._root[name.strip("/")].attrs
+        return _text(attrs.get("units", attrs.get("unit")))
+
+    def cell_size(self):
+        attrs = self._root.attrs
+        if "cell_size" not in attrs:
+            return None, None
+        return attrs["cell_size"], _text(attrs.get("cell_size_unit"))

@@ -33,10 +33,10 @@ from ..errors import ConfigError, SnapshotError
 from ._sources import open_source
 from .core import Snapshot
 
-__all__ = ["read_snapshot", "write_npz", "FORMATS", "FIELD_NAMES", "AXIS_ORDERS"]
+__all__ = ["read_snapshot", "snapshot_shape", "write_npz", "FORMATS", "FIELD_NAMES", "AXIS_ORDERS"]
 
 #: File formats read_snapshot understands.
-FORMATS = ("npz", "hdf5", "fits")
+FORMATS = ("npz", "hdf5", "fits", "zarr")
 #: Field names accepted as keys of the ``fields`` mapping.
 FIELD_NAMES = ("n_h2", "density", "t_kin", "velocity", "vx", "vy", "vz", "sigma_turb",
                "abundance")
@@ -44,12 +44,12 @@ FIELD_NAMES = ("n_h2", "density", "t_kin", "velocity", "vx", "vy", "vz", "sigma_
 AXIS_ORDERS = ("xyz", "zyx")
 
 _SUFFIXES = {".npz": "npz", ".h5": "hdf5", ".hdf5": "hdf5", ".hdf": "hdf5",
-             ".fits": "fits", ".fit": "fits", ".fts": "fits"}
-_DEFAULT_ORDER = {"npz": "xyz", "hdf5": "xyz", "fits": "zyx"}
+             ".fits": "fits", ".fit": "fits", ".fts": "fits", ".zarr": "zarr"}
+_DEFAULT_ORDER = {"npz": "xyz", "hdf5": "xyz", "fits": "zyx", "zarr": "xyz"}
 
 
 def read_snapshot(path, fields=None, cell_size=None, format=None, *, units=None,
-                  axis_order=None, sigma_turb=None, mean_mass=None):
+                  axis_order=None, sigma_turb=None, mean_mass=None, region=None):
     """Read a Snapshot from a file (see the module docstring for names, units and axes).
 
     Parameters
@@ -71,6 +71,10 @@ def read_snapshot(path, fields=None, cell_size=None, format=None, *, units=None,
         Microturbulent dispersion, overriding a stored ``sigma_turb`` field.
     mean_mass : Quantity ``[mass]``, optional
         Mass per H2 for a mass density (default 2.8 m_H; Kauffmann et al. 2008, appendix A).
+    region : (axis, start, stop), optional
+        Read only the slab ``start:stop`` along snapshot axis ``axis`` (0, 1, 2 = x, y, z).
+        HDF5, zarr and FITS files are read lazily, so only that slab leaves the disk (used by
+        :class:`synth.snapshot.lazy.SnapshotFile` for tiled runs).
 
     Returns
     -------
@@ -91,7 +95,34 @@ def read_snapshot(path, fields=None, cell_size=None, format=None, *, units=None,
         raise ConfigError(f"axis_order '{order}' is not known; use one of {AXIS_ORDERS}")
     spec = _field_spec(fields, units)
     with open_source(path, fmt, FIELD_NAMES) as src:
+        src.region = _check_region(region)
         return _assemble(src, spec, order, cell_size, sigma_turb, mean_mass)
+
+
+def snapshot_shape(path, fields=None, format=None, *, axis_order=None):
+    """The (nx, ny, nz) shape of a snapshot file, read from its metadata only."""
+    fmt = _resolve_format(path, format)
+    order = _DEFAULT_ORDER[fmt] if axis_order is None else axis_order
+    spec = _field_spec(fields, None)
+    with open_source(path, fmt, FIELD_NAMES) as src:
+        name = spec[_density_key(src, spec)][0]
+        shape = tuple(src.get(name).shape)
+    if len(shape) != 3:
+        raise SnapshotError(f"snapshot file '{path}': density '{name}' has shape {shape}; "
+                            "expected 3 spatial axes")
+    return shape if order == "xyz" else shape[::-1]
+
+
+def _check_region(region):
+    if region is None:
+        return None
+    try:
+        axis, start, stop = (int(v) for v in region)
+    except (TypeError, ValueError):
+        raise ConfigError(f"region must be (axis, start, stop), got {region!r}") from None
+    if axis not in (0, 1, 2) or start < 0 or stop <= start:
+        raise ConfigError(f"region {region!r}: need axis 0, 1 or 2 and 0 <= start < stop")
+    return axis, start, stop
 
 
 def write_npz(snapshot, path):
@@ -131,7 +162,7 @@ def _resolve_format(path, fmt):
         return fmt
     if isinstance(path, dict):
         return "fits"
-    name = str(path).lower()
+    name = str(path).lower().rstrip("/")
     name = name[:-3] if name.endswith(".gz") else name
     suffix = os.path.splitext(name)[1]
     if suffix not in _SUFFIXES:
@@ -262,7 +293,19 @@ def _array(src, name, order, key, vector=False):
     if not src.has(name):
         raise SnapshotError(f"{src.label}: field '{key}' not found (looked for '{name}'); "
                             f"{src.listing()}")
-    arr = np.asarray(src.get(name))
+    arr = src.get(name)
+    region = getattr(src, "region", None)
+    if region is not None and arr.ndim >= 3:
+        axis, start, stop = region
+        vec4 = vector and arr.ndim == 4
+        pos = axis + (1 if vec4 else 0) if order == "xyz" else arr.ndim - 1 - axis
+        if stop > arr.shape[pos]:
+            raise SnapshotError(f"{src.label}: region {region} exceeds field '{key}' of shape "
+                                f"{tuple(arr.shape)}")
+        index = [slice(None)] * arr.ndim
+        index[pos] = slice(start, stop)
+        arr = arr[tuple(index)]
+    arr = np.asarray(arr)
     if arr.dtype.kind not in "fiu":
         raise SnapshotError(f"{src.label}: field '{key}' ('{name}') has dtype {arr.dtype}; "
                             "expected numbers")

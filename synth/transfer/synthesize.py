@@ -11,18 +11,19 @@ import astropy.units as u
 from spectral_cube import SpectralCube
 
 from ..errors import ConfigError, ExcitationError
-from ..excitation.product import EXCITATION_METHODS
+from ..excitation.product import EXCITATION_METHODS, Excitation
+from ..parallel import DaskExecutor, SerialExecutor
+from ..snapshot.lazy import SnapshotFile
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
 from .kernel import N_SIGMA, transfer_columns
 from .skycube import channel_grid, sky_wcs
+from .tiles import plan_tiles
 
 __all__ = ["synthesize", "synthesize_products", "SynthesisResult", "excite_snapshot",
            "LINES_OF_SIGHT", "auto_velocity_range"]
 
 #: Axis views a tracer can be seen along (rotations are given as a dict, see views).
 LINES_OF_SIGHT = ("z", "-z", "x", "-x", "y", "-y")
-
-_TILE_CELLS = 1 << 20
 
 
 @dataclass(frozen=True, eq=False)
@@ -59,13 +60,30 @@ def excite_snapshot(snapshot, line, abundance, excitation="lte", t_ex=None, opti
     return lvg_excitation(snapshot, line, abundance, **options)
 
 
-def auto_velocity_range(snapshot, line, systemic_kms=0.0):
-    """(low, high) km/s covering every cell's centroid +- N_SIGMA dispersions."""
-    vz = snapshot.velocity_cms[2] / 1e5 + systemic_kms
-    sig = np.sqrt(K_CGS * float(snapshot.t_kin_k.max()) / (line.mass_amu * AMU_CGS)
-                  + np.max(snapshot.sigma_turb_cms) ** 2) / 1e5
+def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z"):
+    """(low, high) km/s covering every cell's centroid +- N_SIGMA dispersions.
+
+    ``snapshot`` is a Snapshot already seen along its line of sight, or a SnapshotFile (read
+    slab by slab along ``line_of_sight``).
+    """
+    if isinstance(snapshot, SnapshotFile):
+        nx = snapshot.view_shape(line_of_sight)[0]
+        step = max(1, (1 << 22) // max(1, int(np.prod(snapshot.shape)) // nx))
+        parts = [_extremes(snapshot.block(x0, min(nx, x0 + step), line_of_sight), line)
+                 for x0 in range(0, nx, step)]
+        lo, hi, sig = (min(p[0] for p in parts), max(p[1] for p in parts),
+                       max(p[2] for p in parts))
+    else:
+        lo, hi, sig = _extremes(snapshot, line)
     pad = N_SIGMA * sig
-    return (float(vz.min()) - pad, float(vz.max()) + pad) * u.km / u.s
+    return (lo + systemic_kms - pad, hi + systemic_kms + pad) * u.km / u.s
+
+
+def _extremes(snap, line):
+    vz = snap.velocity_cms[2]
+    sig = np.sqrt(K_CGS * float(snap.t_kin_k.max()) / (line.mass_amu * AMU_CGS)
+                  + float(np.max(snap.sigma_turb_cms)) ** 2) / 1e5
+    return float(vz.min()) / 1e5, float(vz.max()) / 1e5, sig
 
 
 def synthesize(snapshot, line, abundance, excitation="lte", **kw):
@@ -116,35 +134,62 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
                         channel_width, velocity_range=None, line_of_sight="z",
                         systemic_velocity=0.0 * u.km / u.s, position=None, t_bg=T_CMB_K * u.K,
                         t_ex=None, excitation_options=None, products=(), progress=False,
-                        tile_cells=_TILE_CELLS):
-    """Like :func:`synthesize`, also returning ``products`` ("tau", "column") and diagnostics."""
+                        memory=None, executor=None):
+    """Like :func:`synthesize`, also returning ``products`` ("tau", "column") and diagnostics.
+
+    ``snapshot`` may also be a :class:`synth.snapshot.lazy.SnapshotFile` (read tile by tile);
+    ``memory`` caps what the stage allocates (bytes or "8GB"; see
+    :func:`synth.transfer.tiles.plan_tiles`); ``executor`` runs the tile jobs
+    (:mod:`synth.parallel`; default: in this process).
+    """
     unknown = set(products) - {"tau", "column"}
     if unknown:
         raise ConfigError(f"unknown products {sorted(unknown)}; valid: 'tau', 'column'")
     dist_cm = _positive(distance, u.cm, "distance")
     v_sys = _finite(systemic_velocity, u.km / u.s, "systemic_velocity")
     t_bg_k = _positive(t_bg, u.K, "t_bg")
-    snap = snapshot if line_of_sight == "z" else snapshot.view(line_of_sight)
+    on_disk = isinstance(snapshot, SnapshotFile)
+    if on_disk:
+        snap, shape = None, snapshot.view_shape(line_of_sight)
+    else:
+        snap = snapshot if line_of_sight == "z" else snapshot.view(line_of_sight)
+        shape = snap.shape
     if velocity_range is None:
-        velocity_range = auto_velocity_range(snap, line, v_sys)
+        velocity_range = auto_velocity_range(snapshot if on_disk else snap, line, v_sys,
+                                             line_of_sight=line_of_sight)
     grid = channel_grid(channel_width, velocity_range)
-    exc = excite_snapshot(snap, line, abundance, excitation, t_ex, excitation_options)
-    data, tau = _integrate(snap, line, exc, grid, v_sys, t_bg_k, "tau" in products,
-                           tile_cells, progress)
-    nx, ny, _ = snap.shape
-    pixel_deg = np.degrees(snap.cell_size_cm / dist_cm)
+    exc = None
+    if excitation != "lte" or excitation_options:
+        if on_disk:
+            raise ConfigError("LVG excitation needs the snapshot in memory (velocity gradients "
+                              "across tiles); load it with SnapshotFile.load() first")
+        exc = excite_snapshot(snap, line, abundance, excitation, t_ex, excitation_options)
+    n_cubes = 1 + ("tau" in products)
+    plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
+                      in_flight=getattr(executor, "n_workers", 1),
+                      extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes)
+    job = _Job(line, float(abundance), t_ex, grid, v_sys,
+               float(radiation_temperature(line.freq_hz, t_bg_k)), "tau" in products,
+               "column" in products, line_of_sight if on_disk else "z")
+    data, tau, col = _integrate(snapshot if on_disk else snap, exc, plan, job,
+                                executor or SerialExecutor(), progress)
+    nx, ny, _ = shape
+    cell_cm = snapshot.block(0, 1, line_of_sight).cell_size_cm if on_disk else snap.cell_size_cm
+    pixel_deg = np.degrees(cell_cm / dist_cm)
     wcs = sky_wcs(nx, ny, pixel_deg, grid, line.freq_hz, position)
-    meta = {"BUNIT": "K", "LINE": str(line), "EXCIT": exc.method,
+    meta = {"BUNIT": "K", "LINE": str(line), "EXCIT": excitation,
             "ABUND": float(abundance), "DISTPC": dist_cm / u.pc.to(u.cm),
             "LOS": str(line_of_sight), "TBG": t_bg_k}
     cube = _cube(data, wcs, meta, "K")
     tau_cube = _cube(tau, wcs, dict(meta, BUNIT=""), "") if tau is not None else None
-    column = _column_map(snap, line, abundance) if "column" in products else None
+    column = col.T * u.cm**-2 if col is not None else None
     stats = {"peak_k": float(np.nanmax(data)), "n_channels": grid.n,
              "integrated_k_kms": float(data.sum(dtype=np.float64) * grid.width_kms)}
     if tau is not None:
         stats["tau_max"] = float(np.max(tau))
-    return SynthesisResult(cube, tau_cube, column, exc.info, stats)
+    info = exc.info if exc is not None else {"t_ex": "t_kin" if t_ex is None else "fixed"}
+    stats["tiles"] = len(plan.tiles)
+    return SynthesisResult(cube, tau_cube, column, info, stats)
 
 
 def _cube(data, wcs, meta, unit):
@@ -152,25 +197,91 @@ def _cube(data, wcs, meta, unit):
     return SpectralCube(data=q, wcs=wcs, meta=dict(meta))
 
 
-def _integrate(snap, line, exc, grid, v_sys, t_bg_k, want_tau, tile_cells, progress):
-    """Run the kernel tile by tile; returns the (v, y, x) cube and optional tau cube."""
-    nx, ny, nz = snap.shape
-    data = np.empty((grid.n, ny, nx), dtype=np.float32)
-    tau = np.empty((grid.n, ny, nx), dtype=np.float32) if want_tau else None
-    tx = max(1, min(nx, tile_cells // max(1, ny * nz)))
-    starts = range(0, nx, tx)
+@dataclass(frozen=True)
+class _Job:
+    """What every tile job needs besides its block (small; pickles to dask workers)."""
+
+    line: object
+    abundance: float
+    t_ex: object
+    grid: object
+    v_sys_kms: float
+    j_bg: float
+    want_tau: bool
+    want_column: bool
+    line_of_sight: str
+
+    def __call__(self, source, x0, x1, exc_block, numba_threads=None):
+        if numba_threads:
+            import numba
+            numba.set_num_threads(min(int(numba_threads), numba.config.NUMBA_NUM_THREADS))
+        block = source.block(x0, x1, self.line_of_sight) if isinstance(source, SnapshotFile) \
+            else source
+        if exc_block is None:
+            from ..excitation.lte import lte_excitation
+            exc_block = lte_excitation(block, self.line, self.abundance, t_ex=self.t_ex)
+        out, tau = transfer_tile(block, self.line, exc_block, slice(0, x1 - x0), self.grid,
+                                 self.v_sys_kms, self.j_bg, self.want_tau)
+        col = None
+        if self.want_column:
+            x_ab = block.abundance_for(self.line.species, self.abundance)
+            col = (block.n_h2_cm3 * x_ab).sum(axis=2) * block.cell_size_cm
+        return out, tau, col
+
+
+def _block(snap, x0, x1):
+    """Columns x0:x1 of an in-memory snapshot as a Snapshot of their own."""
+    c = snap._cgs
+    sig = c["sigma_turb_cms"]
+    abund = c["abundance"]
+    if abund is not None:
+        abund = {k: (v if np.ndim(v) == 0 else v[x0:x1]) for k, v in abund.items()}
+    return snap._replace(n_h2_cm3=c["n_h2_cm3"][x0:x1], t_kin_k=c["t_kin_k"][x0:x1],
+                         velocity_cms=c["velocity_cms"][:, x0:x1],
+                         sigma_turb_cms=sig if np.ndim(sig) == 0 else sig[x0:x1],
+                         abundance=abund)
+
+
+def _exc_block(exc, x0, x1):
+    if exc is None:
+        return None
+    return Excitation(exc.line, exc.t_ex_k[x0:x1], exc.opacity_integral[x0:x1], exc.method,
+                      exc.info)
+
+
+def _integrate(source, exc, plan, job, executor, progress):
+    """Run the tile jobs; assemble the (v, y, x) cube, optional tau cube and column map."""
+    nx, ny, _ = plan.shape
+    nch = plan.n_channels
+    data = np.empty((nch, ny, nx), dtype=np.float32)
+    tau = np.empty((nch, ny, nx), dtype=np.float32) if job.want_tau else None
+    col = np.empty((nx, ny)) if job.want_column else None
+    tiles = plan.tiles
+    threads = 1 if isinstance(executor, DaskExecutor) else None
+    on_disk = isinstance(source, SnapshotFile)
+
+    def args():
+        for x0, x1 in tiles:
+            src = source if on_disk else _block(source, x0, x1)
+            yield src, x0, x1, _exc_block(exc, x0, x1), threads
+
+    bar = None
     if progress:
         from tqdm.auto import tqdm
-        starts = tqdm(starts, desc=f"{line} tiles", unit="tile", leave=False)
-    j_bg = float(radiation_temperature(line.freq_hz, t_bg_k))
-    for x0 in starts:
-        sl = slice(x0, min(nx, x0 + tx))
-        out, tau_t = transfer_tile(snap, line, exc, sl, grid, v_sys, j_bg, want_tau)
-        n = sl.stop - sl.start
-        data[:, :, sl] = out.reshape(n, ny, grid.n).transpose(2, 1, 0)
-        if want_tau:
-            tau[:, :, sl] = tau_t.reshape(n, ny, grid.n).transpose(2, 1, 0)
-    return data, tau
+        bar = tqdm(total=len(tiles), desc=f"{job.line} tiles", unit="tile", leave=False)
+    try:
+        for i, (out, tau_t, col_t) in executor.map(job, args(), progress=bar):
+            x0, x1 = tiles[i]
+            n = x1 - x0
+            data[:, :, x0:x1] = out.reshape(n, ny, nch).transpose(2, 1, 0)
+            if tau is not None:
+                tau[:, :, x0:x1] = tau_t.reshape(n, ny, nch).transpose(2, 1, 0)
+            if col is not None:
+                col[x0:x1] = col_t
+    finally:
+        if bar is not None:
+            bar.close()
+    return data, tau, col
 
 
 def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=False):
@@ -196,12 +307,6 @@ def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=Fals
                      float(grid.start_kms), float(grid.width_kms), int(grid.n), j_bg,
                      out, tau_out)
     return out, (tau_out if want_tau else None)
-
-
-def _column_map(snap, line, abundance):
-    x_ab = snap.abundance_for(line.species, abundance)
-    col = (snap.n_h2_cm3 * x_ab).sum(axis=2) * snap.cell_size_cm
-    return col.T * u.cm**-2
 
 
 def _positive(q, unit, name):

@@ -1,0 +1,114 @@
+"""Where tile jobs run: in this process, or as dask tasks on a dask.distributed cluster.
+
+One block-level job function is mapped either way (STYLE.md, item 10), so the serial, chunked
+and cluster paths give the same cubes. A lost worker's tasks are re-run by the scheduler
+(dask.distributed reschedules the tasks of a worker that dies, up to
+``distributed.scheduler.allowed-failures`` times); a task that still fails stops the run with
+a clear error and, in a pipeline run, leaves no output files.
+"""
+
+import uuid
+from contextlib import contextmanager
+
+from ._optional import require
+from .errors import ConfigError, SynthError
+
+__all__ = ["Executor", "SerialExecutor", "DaskExecutor", "make_executor", "executor_context"]
+
+
+class Executor:
+    """Maps a job over argument tuples, yielding (index, result) as results arrive."""
+
+    n_workers = 1
+
+    def map(self, fn, args_list, progress=None):  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+class SerialExecutor(Executor):
+    """Run jobs one after another in this process (numba uses this process's threads)."""
+
+    def map(self, fn, args_list, progress=None):
+        for i, args in enumerate(args_list):
+            yield i, fn(*args)
+            if progress is not None:
+                progress.update(1)
+
+
+class DaskExecutor(Executor):
+    """Run jobs as tasks on a dask.distributed Client (at most 2 per worker in flight)."""
+
+    def __init__(self, client):
+        self.client = client
+        info = client.scheduler_info()
+        self.n_workers = max(1, len(info.get("workers", {})))
+
+    def map(self, fn, args_list, progress=None):
+        distributed = require("distributed")
+        pending, queue = {}, enumerate(args_list)
+        limit = 2 * self.n_workers
+        ac = distributed.as_completed()
+        run = uuid.uuid4().hex[:12]
+        exhausted = False
+        while not exhausted or pending:
+            while not exhausted and len(pending) < limit:
+                item = next(queue, None)
+                if item is None:
+                    exhausted = True
+                    break
+                i, args = item
+                fut = self.client.submit(fn, *args, pure=False, key=f"synth-tile-{run}-{i}")
+                pending[fut.key] = (i, fut)
+                ac.add(fut)
+            if not pending:
+                break
+            fut = next(ac)
+            i, _ = pending.pop(fut.key)
+            try:
+                result = fut.result()
+            except Exception as exc:
+                raise SynthError(f"tile {i} failed on the dask cluster: {type(exc).__name__}: "
+                                 f"{exc}") from exc
+            finally:
+                fut.release()
+            yield i, result
+            if progress is not None:
+                progress.update(1)
+
+
+@contextmanager
+def executor_context(workers=None, scheduler=None):
+    """An Executor for the options: a local cluster of ``workers`` processes (one thread
+    each, loopback only), an existing scheduler address, or serial."""
+    if workers is not None and scheduler is not None:
+        raise ConfigError("give either --workers (a local cluster) or --scheduler (an existing one), not both")
+    if workers is None and scheduler is None:
+        yield SerialExecutor()
+        return
+    distributed = require("distributed")
+    if scheduler is not None:
+        try:
+            client = distributed.Client(scheduler, timeout="10s")
+        except (OSError, TimeoutError) as exc:
+            raise ConfigError(f"cannot reach the dask scheduler at {scheduler}: {exc}") from None
+        try:
+            yield DaskExecutor(client)
+        finally:
+            client.close()
+        return
+    if int(workers) < 1:
+        raise ConfigError(f"--workers must be >= 1, got {workers}")
+    cluster = distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1,
+                                       processes=True, host="127.0.0.1",
+                                       dashboard_address=None)
+    client = distributed.Client(cluster)
+    try:
+        yield DaskExecutor(client)
+    finally:
+        client.close()
+        cluster.close()
+
+
+def make_executor(client=None):
+    """An Executor from a dask Client (or serial when None)."""
+    return SerialExecutor() if client is None else DaskExecutor(client)
