@@ -322,14 +322,17 @@ def _newton_step(system, c_gain, kcol, x, geometry, n_bg):
     return xn / xn.sum(axis=1, keepdims=True)
 
 
-def _newton(system, c_gain, kcol, x, geometry, n_bg, tol, max_iter):
-    """Newton iterations on all zones of a chunk; iterations per zone, -1 if not converged."""
+def _newton(system, c_gain, kcol, x, geometry, n_bg, tol, max_iter, damping=1.0):
+    """(Damped) Newton iterations on all zones of a chunk; iterations per zone, -1 if not
+    converged. ``damping`` < 1 takes that fraction of each step (breaks limit cycles)."""
     iters = np.full(x.shape[0], -1, dtype=np.int64)
     active = np.arange(x.shape[0])
     for it in range(1, max_iter + 1):
         xa = x[active]
         xn = _newton_step(system, c_gain[active], kcol[active], xa, geometry, n_bg)
-        change = np.abs(xn - xa) / np.maximum(xn, _X_FLOOR)
+        if damping != 1.0:
+            xn = xa + damping * (xn - xa)
+        change = np.abs(xn - xa) / np.maximum(xn, _X_FLOOR) / damping
         x[active] = xn
         done = np.all(change <= tol, axis=1)
         iters[active[done]] = it
@@ -342,16 +345,17 @@ def _newton(system, c_gain, kcol, x, geometry, n_bg, tol, max_iter):
 def _solve_chunk(system, c_gain, kcol, starts, geometry, n_bg, tol, max_iter):
     """Newton from each starting point in turn for the zones not yet converged.
 
-    ``starts`` are callables zone-indices -> populations (the given start, LTE at T_kin, the
-    optically thin solution); a zone that fails from one gets the next.
+    ``starts`` are (callable zone-indices -> populations, damping) pairs (the given start, LTE
+    at T_kin, the optically thin solution, then damped restarts); a zone that fails from one
+    gets the next.
     """
     nb = kcol.size
     x = np.empty((nb, system.n_levels))
     iters = np.full(nb, -1, dtype=np.int64)
     todo = np.arange(nb)
-    for start in starts:
+    for start, damping in starts:
         xs, it = _newton(system, c_gain[todo], kcol[todo], start(todo), geometry, n_bg, tol,
-                         max_iter)
+                         max_iter, damping)
         x[todo], iters[todo] = xs, it
         todo = todo[it < 0]
         if todo.size == 0:
@@ -395,7 +399,8 @@ def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="lvg", t_bg_k
         Relative convergence criterion and iteration cap.
     x0 : ndarray (nb, nlev), optional
         Starting populations. Zones that do not converge from it (or when it is not given)
-        are restarted from LTE at T_kin, then from the optically thin solution.
+        are restarted from LTE at T_kin, then from the optically thin solution, then from
+        both again with Newton steps damped by 0.5 and 0.25.
 
     Returns
     -------
@@ -417,10 +422,11 @@ def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="lvg", t_bg_k
     for s in range(0, n_h2.size, _CHUNK):
         sl = slice(s, s + _CHUNK)
         gain = np.swapaxes(collision_matrix(system, t_k[sl], [d[sl] for d in dens]), 1, 2)
-        starts = [lambda i, t=t_k[sl]: lte_populations(system, t[i]),
-                  lambda i, g=gain: _polish(system, g[i], np.zeros(i.size), None, geometry, n_bg)]
+        lte = lambda i, t=t_k[sl]: lte_populations(system, t[i])  # noqa: E731
+        thin = lambda i, g=gain: _polish(system, g[i], np.zeros(i.size), None, geometry, n_bg)  # noqa: E731
+        starts = [(lte, 1.0), (thin, 1.0), (lte, 0.5), (thin, 0.25)]
         if x0 is not None:
-            starts.insert(0, lambda i, x=np.asarray(x0, dtype=np.float64)[sl]: x[i].copy())
+            starts.insert(0, (lambda i, x=np.asarray(x0, dtype=np.float64)[sl]: x[i].copy(), 1.0))
         x_all[sl], iters[sl] = _solve_chunk(system, gain, kcol[sl], starts, geometry, n_bg,
                                             tol, max_iter)
     failed = iters < 0

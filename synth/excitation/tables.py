@@ -231,6 +231,7 @@ def _apply(n_h2, abund, t_k, kcol, lo, step, size, ve, vf, e0, f0, t0, j_bg, tau
         b = np.zeros(3, dtype=np.int64)
         fr = np.zeros(3)
         ix = np.zeros(3, dtype=np.int64)
+        coords = np.zeros(3)
         for j in range(ny):
             for k in range(nz):
                 nm = n_h2[i, j, k] * abund[i, j, k]
@@ -238,8 +239,9 @@ def _apply(n_h2, abund, t_k, kcol, lo, step, size, ve, vf, e0, f0, t0, j_bg, tau
                     t_ex_out[i, j, k] = t_bg
                     op_out[i, j, k] = 0.0
                     continue
-                coords = (math.log10(n_h2[i, j, k]), math.log10(t_k[i, j, k]),
-                          math.log10(kcol[i, j, k]))
+                coords[0] = math.log10(n_h2[i, j, k])
+                coords[1] = math.log10(t_k[i, j, k])
+                coords[2] = math.log10(kcol[i, j, k])
                 for a in range(3):
                     b[a] = 0
                     fr[a] = 0.0
