@@ -22,6 +22,14 @@ def _add_run_options(p):
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (must not exist)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
     p.add_argument("--quiet", action="store_true", help="no progress bars or messages")
+    g = p.add_argument_group("execution")
+    g.add_argument("--memory", metavar="SIZE", default=None,
+                   help="memory budget for the transfer stage, e.g. 8GB or 512MiB "
+                        "(snapshot files in HDF5/zarr/FITS are then read tile by tile)")
+    g.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="run the tiles on a local dask cluster of N worker processes")
+    g.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="run the tiles on an existing dask.distributed scheduler, e.g. tcp://host:8786")
 
 
 def build_parser():
@@ -82,7 +90,8 @@ def _cmd_run(args):
 
 def _run(conf, args, run_config):
     log = (lambda *a, **k: None) if args.quiet else print
-    summary = run_config(conf, args.out, overwrite=args.overwrite, progress=not args.quiet, log=log)
+    summary = run_config(conf, args.out, overwrite=args.overwrite, progress=not args.quiet, log=log,
+                         memory=args.memory, workers=args.workers, scheduler=args.scheduler)
     if not args.quiet:
         for name, t in summary["tracers"].items():
             print(f"{name:>14s}: peak T_B {t['peak_tb_k']:7.2f} K, peak ∫T dv "

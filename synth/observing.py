@@ -67,13 +67,16 @@ def observe_options(st):
 
 
 def observe_setups(conf, ideal, tmp, chash, progress, log):
-    """Observe every ideal cube with every setup; write cubes and figures; return a summary."""
+    """Observe every ideal cube with every setup; write cubes and figures.
+
+    Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
+    """
     from .instrument.observe import observe
     from .instrument.beam import to_unit
     setups = {st["name"]: st for st in conf["setup"]}
     instruments = {name: make_instrument(st) for name, st in setups.items()}
     figures = conf["output"]["figures"]
-    summary = {}
+    summary, observed = {}, {}
     from tqdm.auto import tqdm
     jobs = [(t, s) for t in ideal for s in setups]
     for tname, sname in tqdm(jobs, desc="observations", unit="obs", disable=not progress):
@@ -93,9 +96,10 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
             from .report.figures import ideal_vs_observed_figure
             ideal_vs_observed_figure(cube, obs, f"{tname} with {sname}", f"{base}_mom0.png")
         summary.setdefault(sname, {})[tname] = entry
+        observed[(tname, sname)] = obs
     if figures:
         _uv_figures(setups, instruments, ideal, tmp)
-    return summary
+    return summary, observed
 
 
 def _obs_summary(obs):

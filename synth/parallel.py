@@ -57,6 +57,8 @@ class DaskExecutor(Executor):
                     exhausted = True
                     break
                 i, args = item
+                args = tuple(a if isinstance(a, (int, float, str, bool, type(None)))
+                             else self.client.scatter(a, hash=False) for a in args)
                 fut = self.client.submit(fn, *args, pure=False, key=f"synth-tile-{run}-{i}")
                 pending[fut.key] = (i, fut)
                 ac.add(fut)

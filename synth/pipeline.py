@@ -87,17 +87,26 @@ def _finish_output(tmp, out_dir):
         os.replace(tmp, out_dir)
 
 
-def run_config(config, out_dir, overwrite=False, progress=True, log=print):
+def run_config(config, out_dir, overwrite=False, progress=True, log=print, memory=None,
+               workers=None, scheduler=None):
     """Run a configuration (a path or a dict) and write its products into ``out_dir``.
 
-    Returns the run summary (also written as ``summary.json``).
+    ``memory`` (bytes or "8GB") caps the transfer stage and makes snapshot files in HDF5,
+    zarr or FITS be read tile by tile; ``workers`` runs the tiles on a local dask cluster,
+    ``scheduler`` on an existing one. Returns the run summary (also ``summary.json``).
     """
     conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
     chash = config_hash(conf)
     lines = [tracer_line(tr) for tr in conf["tracer"]]  # resolve names before any work
+    if memory is not None:
+        from .transfer.tiles import parse_memory
+        memory = parse_memory(memory)
     tmp = prepare_output(out_dir, overwrite)
     try:
-        summary = _run(conf, lines, chash, tmp, progress, log)
+        from .parallel import executor_context
+        with executor_context(workers, scheduler) as executor:
+            summary = _run(conf, lines, chash, tmp, progress, log,
+                           {"memory": memory, "executor": executor})
         _finish_output(tmp, out_dir)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -105,10 +114,32 @@ def run_config(config, out_dir, overwrite=False, progress=True, log=print):
     return summary
 
 
-def _run(conf, lines, chash, tmp, progress, log):
+def _lazy_source(conf, memory):
+    """A SnapshotFile when the run should read its snapshot tile by tile, else None."""
+    cloud = conf["cloud"]
+    if memory is None or cloud["source"] == "demo" or cloud["format"] == "yt":
+        return None
+    if any(tr["excitation"] != "lte" for tr in conf["tracer"]):
+        return None  # LVG needs whole-grid velocity gradients: load into memory
+    if not isinstance(conf["sky"]["line_of_sight"], str):
+        return None
+    from .snapshot.lazy import SnapshotFile
+    from .snapshot.readers import _resolve_format
+    if _resolve_format(cloud["source"], cloud["format"]) == "npz":
+        return None
+    kw = {}
+    if cloud["cell_size_pc"] is not None:
+        kw["cell_size"] = cloud["cell_size_pc"] * u.pc
+    if cloud["sigma_turb_kms"] is not None:
+        kw["sigma_turb"] = cloud["sigma_turb_kms"] * u.km / u.s
+    return SnapshotFile(cloud["source"], fields=cloud["fields"], format=cloud["format"], **kw)
+
+
+def _run(conf, lines, chash, tmp, progress, log, execution):
     from .transfer.synthesize import synthesize_products
     t_start = time.perf_counter()
-    snap = build_snapshot(conf["cloud"])
+    lazy = _lazy_source(conf, execution["memory"])
+    snap = lazy if lazy is not None else build_snapshot(conf["cloud"])
     sky, chan = conf["sky"], conf["channels"]
     vrange = None
     if chan["velocity_min_kms"] is not None or chan["velocity_max_kms"] is not None:
@@ -116,14 +147,15 @@ def _run(conf, lines, chash, tmp, progress, log):
             raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
         vrange = (chan["velocity_min_kms"], chan["velocity_max_kms"]) * u.km / u.s
     los = sky["line_of_sight"]
-    view = snap if los == "z" else snap.view(los)
+    view = snap if (los == "z" or lazy is not None) else snap.view(los)
+    view_los = los if lazy is not None else "z"
     if vrange is None:
         from .transfer.synthesize import auto_velocity_range
-        ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"]).value for ln in lines]
+        ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
+                                      line_of_sight=view_los).value for ln in lines]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
     summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
-               "snapshot": {"shape": list(snap.shape),
-                            "cell_size_pc": float(snap.cell_size_cm * u.cm.to(u.pc))},
+               "snapshot": {"shape": list(snap.shape), "read_by_tiles": lazy is not None},
                "tracers": {}}
     products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
     from tqdm.auto import tqdm
@@ -135,15 +167,16 @@ def _run(conf, lines, chash, tmp, progress, log):
         res = synthesize_products(
             view, line, tr["abundance"], tr["excitation"],
             distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
-            velocity_range=vrange, line_of_sight="z",
+            velocity_range=vrange, line_of_sight=view_los,
             systemic_velocity=sky["systemic_velocity_kms"] * u.km / u.s,
             position=(sky["ra_deg"] * u.deg, sky["dec_deg"] * u.deg),
             t_bg=sky["background_k"] * u.K,
             t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
-            excitation_options=_lvg_options(tr), products=products, progress=progress)
+            excitation_options=_lvg_options(tr), products=products, progress=progress,
+            memory=execution["memory"], executor=execution["executor"])
         ideal[tr["name"]] = res.cube
         summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash)
-    summary["setups"] = _observe_all(conf, ideal, tmp, chash, progress, log)
+    summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
     write_json(summary, os.path.join(tmp, "summary.json"))
     return summary
@@ -185,6 +218,6 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
 def _observe_all(conf, ideal, tmp, chash, progress, log):
     """Observe every ideal cube with every [[setup]] (filled in by the instrument stage)."""
     if not conf["setup"]:
-        return {}
+        return {}, {}
     from .observing import observe_setups
     return observe_setups(conf, ideal, tmp, chash, progress, log)
