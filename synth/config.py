@@ -27,6 +27,10 @@ CLOUD = {
     "sigma_turb_kms": (_NUM, None, "microturbulent 1-D dispersion in km/s (default: the file's, or 0)"),
     "size": (int, 64, "demo cloud: cells per axis"),
     "seed": (int, 1, "demo cloud: random seed"),
+    "box_pc": (_NUM, 4.0, "demo cloud: box edge length, pc"),
+    "mean_density_cm3": (_NUM, 3e3, "demo cloud: mean n(H2), cm^-3"),
+    "mach": (_NUM, 10.0, "demo cloud: 3-D turbulent Mach number"),
+    "solenoidal_fraction": (_NUM, 0.7, "demo cloud: solenoidal share of the turbulent power"),
     "level": (int, 0, "yt: refinement level of the covering grid"),
 }
 SKY = {
