@@ -354,7 +354,7 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_rati
     k_mol = mol.transition_index(line.transition)
     t_kin = snapshot.t_kin_k
     t_lo, t_hi = float(t_kin.min()), float(t_kin.max())
-    system = level_system(mol, t_hot_k=max(t_hi, t_bg_k), min_fraction=1e-14,
+    system = level_system(mol, t_hot_k=max(t_hi, t_bg_k), min_fraction=1e-10,
                           keep_below_k=float(mol.energy_k[mol.upper[k_mol]]))
     k_line = int(np.flatnonzero(system.lines == k_mol)[0])
     dens = partner_densities(system, [1.0], [t_lo], ortho_para_ratio, partners)

@@ -124,7 +124,7 @@ def _node_values(pops, up, lo, line, scales=None):
     f = pops[..., lo] * gr - pops[..., up]
     e = H_CGS * nu / K_CGS * pops[..., up] - j_bg * f
     if scales is None:
-        scales = (1e-6 * np.abs(e).max() + 1e-300, 1e-6 * np.abs(f).max() + 1e-300)
+        scales = (1e-6 * np.abs(e).max() + 1e-300, 1e-2 * np.abs(f).max() + 1e-300)
     return np.stack([np.arcsinh(e / scales[0]), np.arcsinh(f / scales[1])], axis=-1), scales
 
 
