@@ -1,10 +1,11 @@
 """Run configuration: a TOML file with sections of our own naming, validated against a schema.
 
 Sections: ``[cloud]`` (the snapshot), ``[sky]`` (where the cloud is), ``[channels]`` (the ideal
-cube's spectral grid), ``[[tracer]]`` (one per line, several per run), ``[output]``, and
-``[[setup]]`` (observing setups, one per instrument). Unknown or misspelled keys are errors
-that suggest the nearest valid key; values are checked for type and range. The schema below
-is the config reference (docs/config.md mirrors it; a test keeps them in step).
+cube's spectral grid), ``[[tracer]]`` (one per line, several per run), ``[output]``,
+``[[setup]]`` (observing setups, one per instrument) and ``[analysis]`` (survival metrics,
+spectra and planning in the run report). Unknown or misspelled keys are errors that suggest
+the nearest valid key; values are checked for type and range. The schema below is the config
+reference (docs/config.md mirrors it; a test keeps them in step).
 """
 
 import difflib
@@ -89,8 +90,15 @@ SETUP = {
     "fast": (bool, False, "array: the approximate Fourier-plane path instead of visibilities"),
     "combine_with": (list, None, "array: other setup names to image jointly / feather with"),
 }
+ANALYSIS = {
+    "target_snr": (_NUM, 5.0, "planning: S/N wanted per channel on the chosen percentile"),
+    "percentile": (_NUM, 50.0, "planning: percentile of the emitting voxels to reach (0-100)"),
+    "emission_floor": (_NUM, 0.01, "voxels above this fraction of the peak count as emitting"),
+    "time_h": (_NUM, None, "planning: hours for the noise column (default: each setup's)"),
+    "spectra_positions": (list, None, "pixels [[x, y], ...] for spectra (default: centre, brightest)"),
+}
 SCHEMA = {"cloud": CLOUD, "sky": SKY, "channels": CHANNELS, "tracer": TRACER,
-          "output": OUTPUT, "setup": SETUP}
+          "output": OUTPUT, "setup": SETUP, "analysis": ANALYSIS}
 _LISTS = ("tracer", "setup")  # array-of-tables sections
 
 
@@ -187,6 +195,22 @@ def _check_values(conf):
     for p in conf["output"]["products"]:
         if p not in ("tau", "column"):
             raise ConfigError(f"[output].products has '{p}'; valid: 'tau', 'column'")
+    _check_analysis(conf["analysis"])
+
+
+def _check_analysis(an):
+    checks = (("target_snr", an["target_snr"] > 0, "> 0"),
+              ("percentile", 0 <= an["percentile"] <= 100, "in 0..100"),
+              ("emission_floor", 0 < an["emission_floor"] < 1, "in (0, 1)"),
+              ("time_h", an["time_h"] is None or an["time_h"] > 0, "> 0"))
+    for key, ok, valid in checks:
+        if not ok:
+            raise ConfigError(f"[analysis].{key} must be {valid}, got {an[key]}")
+    for pos in an["spectra_positions"] or []:
+        if not (isinstance(pos, list) and len(pos) == 2
+                and all(isinstance(v, int) and not isinstance(v, bool) for v in pos)):
+            raise ConfigError(f"[analysis].spectra_positions has {pos!r}; give pixel pairs "
+                              "[x, y] of integers, e.g. [[10, 12], [30, 5]]")
 
 
 def load_config(path):
