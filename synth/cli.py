@@ -132,8 +132,23 @@ def _cmd_zone(args):
 _COMMANDS = {"demo": _cmd_demo, "run": _cmd_run, "lines": _cmd_lines, "zone": _cmd_zone}
 
 
+def _one_line_warnings():
+    """Show each distinct warning once, on one line, as ``synth: warning: ...``."""
+    import warnings
+    seen = set()
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        text = " ".join(str(message).split())
+        if text not in seen:
+            seen.add(text)
+            print(f"synth: warning: {text}", file=sys.stderr)
+
+    warnings.showwarning = show
+
+
 def main(argv=None):
     args = build_parser().parse_args(argv)
+    _one_line_warnings()
     try:
         return _COMMANDS[args.command](args)
     except SynthError as exc:

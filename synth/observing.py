@@ -78,12 +78,16 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
     figures = conf["output"]["figures"]
     summary, observed = {}, {}
     from tqdm.auto import tqdm
-    jobs = [(t, s) for t in ideal for s in setups]
+    # dishes first, then arrays, then combinations (they feather with the dish's own cube)
+    order = sorted(setups, key=lambda n: (setups[n]["kind"] != "dish",
+                                          bool(setups[n]["combine_with"])))
+    jobs = [(t, s) for t in ideal for s in order]
     for tname, sname in tqdm(jobs, desc="observations", unit="obs", disable=not progress):
         st, cube = setups[sname], ideal[tname]
         inst = instruments[sname]
         if st["combine_with"]:
-            inst = [inst] + [instruments[o] for o in st["combine_with"]]
+            inst = [inst] + [observed[(tname, o)] if setups[o]["kind"] == "dish"
+                             else instruments[o] for o in st["combine_with"]]
         obs = observe(cube, inst, **observe_options(st))
         base = os.path.join(tmp, f"{tname}_{sname}")
         extra = {"SETUP": sname, "TRACER": tname}

@@ -104,6 +104,8 @@ def random_layout(n, radius_m, min_separation_m, seed=0, max_tries=100000):
 
 #: name -> (generator, keyword arguments); all invented, seeded.
 BUILTIN_LAYOUTS = {
+    "compact-10": (random_layout, dict(n=10, radius_m=30.0, min_separation_m=13.0, seed=10)),
+    "ring-16": (ring_layout, dict(n=16, radius_m=60.0, seed=17)),
     "compact-16": (random_layout, dict(n=16, radius_m=55.0, min_separation_m=15.0, seed=16)),
     "ring-24": (ring_layout, dict(n=24, radius_m=150.0, seed=24)),
     "y-27": (y_layout, dict(n=27, arm_length_m=600.0, seed=27)),

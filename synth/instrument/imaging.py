@@ -40,6 +40,16 @@ def fit_restoring_beam(psf, dx_rad, dy_rad):
     import astropy.units as u
     from radio_beam import Beam
     lobe, cy, cx = _main_lobe(psf)
+    if lobe.sum() < 5:
+        # under-sampled PSF: fit the positive pixels of the central 3 x 3 instead, and say so
+        import warnings
+        from ..errors import BeamUndersampledWarning
+        warnings.warn(f"the synthesized beam is under-sampled ({int(lobe.sum())} pixel(s) above "
+                      f"{MAIN_LOBE_LEVEL} of the peak); the restoring beam is fitted to the "
+                      "central 3x3 pixels: use sky pixels <= 1/3 of the beam",
+                      BeamUndersampledWarning, stacklevel=3)
+        lobe = np.zeros_like(lobe)
+        lobe[cy - 1:cy + 2, cx - 1:cx + 2] = psf[cy - 1:cy + 2, cx - 1:cx + 2] > 1e-3
     yy, xx = np.nonzero(lobe)
     l, m = (xx - cx) * dx_rad, (yy - cy) * dy_rad
     val = psf[yy, xx]
