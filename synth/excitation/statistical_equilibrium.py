@@ -13,8 +13,8 @@ follow from the tabulated downward ones by detailed balance,
 
 With the escape-probability mean intensity J = (1 - beta) S + beta B(T_bg) the net radiative
 rate of a line becomes beta A_ul [x_u (1 + n_bg) - x_l (g_u/g_l) n_bg], n_bg = 1/(e^{h nu/kT_bg}
-- 1) the background photon occupation number (this is exact algebra on the J above, e.g.
-van der Tak et al. 2007 is one published statement of it). Each line's optical depth is
+- 1) the background photon occupation number (exact algebra on the J above; e.g. Draine 2011,
+ch. 19). Each line's optical depth is
 
     tau = (c^3 A_ul / (8 pi nu^3)) K (x_l g_u / g_l - x_u)
 
@@ -112,8 +112,8 @@ def level_system(mol, t_hot_k=None, min_fraction=1e-20, keep_below_k=0.0):
     A level is kept if (g_i/g_0) exp(-E_i / k T_hot) >= ``min_fraction`` (its Boltzmann
     population relative to the ground at the hottest temperature involved); with
     ``t_hot_k=None`` every level is kept; levels with E/k <= ``keep_below_k`` always are.
-    Dropped levels hold populations far below the
-    round-off of the solve; their lines are reported as not computed.
+    Dropped levels would hold less than ``min_fraction``
+    of the molecules; their feedback on the kept levels is of that order.
     """
     energy = np.asarray(mol.energy_k, dtype=np.float64)
     g = np.asarray(mol.g, dtype=np.float64)

@@ -12,8 +12,9 @@ e = T_0 x_u - J(T_bg) f (T_0 = h nu/k), so that J(T_ex) - J(T_bg) = e / f and
     T_R = (e / f) (1 - exp(-tau_c K f)) = e tau_c K (1 - e^{-tau}) / tau.
 
 Interpolating T_ex or ln x instead loses the difference J(T_ex) - J(T_bg) to cancellation in
-faint cells. Both are stored as asinh(v / v_0) with v_0 = 1e-6 of the largest |v| on the
-nodes: logarithmic over decades of e (e ~ n at low density), linear through zero.
+faint cells. Both are stored as asinh(v / v_0): e with v_0 = 1e-6 of its largest |e| on the
+nodes (logarithmic over the decades e spans, e ~ n at low density), f with v_0 = 1e-2 of its
+largest |f| (f changes sign in weak inversions, where a logarithm would interpolate badly).
 
 Error control: a random sample of cells (``numpy.random.default_rng(seed)``) is solved
 directly. The table's error is the largest relative difference in the line's radiation
