@@ -125,7 +125,7 @@ def _cmd_zone(args):
                  column_per_width=args.column_per_width * u.cm**-2 / (u.km / u.s),
                  geometry=args.geometry, ortho_para_ratio=args.ortho_para,
                  datafile=args.datafile)
-    print(format_zone_table(res, max_rows=args.max_rows or None))
+    print(format_zone_table(res, max_lines=args.max_rows or None))
     return 0
 
 

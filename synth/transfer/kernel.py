@@ -25,7 +25,8 @@ and the output is T_B = I_k - J_bg (Rybicki & Lightman 1979, eq. 1.29, in
 Rayleigh-Jeans-equivalent units). Each cell is evaluated only over the channels where its
 profile exceeds ``N_SIGMA`` dispersions (plus delta/2) from its centroid; cumulative-profile
 values are shared between neighbouring channels (one CDF evaluation per channel edge), and
-for tau_ck < 0.05 the exponentials are replaced by their 5th-order series (error < 3e-11).
+for |tau_ck| < 0.05 the exponentials are replaced by their 5th-order series (error < 3e-11);
+negative tau (population inversion from an LVG solution) amplifies, as the formal solution says.
 The Gaussian CDF and G are interpolated from tables (cubic Hermite, error ~2e-10).
 """
 
@@ -171,7 +172,7 @@ def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, t
                 cur = _cdf(e0 + (k + 1) * dv, vc, sg, dl, tt, cdf, pdf, gstd)
                 tau = scale * (cur - prev)
                 prev = cur
-                if tau < _SERIES:
+                if -_SERIES < tau < _SERIES:
                     # 1 - exp(-tau) to 5th order (Horner)
                     a = tau * (1.0 - tau * (0.5 - tau * (1.0 / 6.0 - tau * (1.0 / 24.0
                                                                         - tau / 120.0))))
