@@ -151,7 +151,7 @@ def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, t
         tsum = np.zeros(nch if want_tau else 0)
         for z in range(nz):
             ti = tau_int[c, z]
-            if ti <= 0.0:
+            if ti == 0.0:
                 continue
             s = src[c, z]
             vc = v0[c, z]
