@@ -30,6 +30,22 @@ _API = {
     "compare": "synth.analysis.compare",
     "plan": "synth.planning",
     "run_config": "synth.pipeline",
+    "view": "synth.snapshot.views",
+    "write_npz": "synth.snapshot.readers",
+    "read_yt": "synth.snapshot.yt_reader",
+    "demo_source": "synth.snapshot.demo",
+    "SnapshotFile": "synth.snapshot.lazy",
+    "builtin_species": "synth.molecules.registry",
+    "synthesize_products": "synth.transfer.synthesize",
+    "critical_density": "synth.excitation.lvg",
+    "interferometer_rms": "synth.instrument.visibilities",
+    "largest_recoverable_scale": "synth.instrument.uv",
+    "plot_uv_and_beam": "synth.instrument.imaging",
+    "radiometer_rms": "synth.instrument.noise",
+    "survival_matrix": "synth.analysis.survival",
+    "structure_statistics": "synth.analysis.stats",
+    "moment_maps": "synth.analysis.moments",
+    "executor_context": "synth.parallel",
 }
 
 __all__ = sorted(_API) + ["__version__"]
