@@ -165,7 +165,7 @@ def test_axis_order_zyx(snap, tmp_path):
 
 
 def test_constants_exported():
-    assert FORMATS == ("npz", "hdf5", "fits") and "zyx" in AXIS_ORDERS and "n_h2" in FIELD_NAMES
+    assert FORMATS == ("npz", "hdf5", "fits", "zarr") and "zyx" in AXIS_ORDERS and "n_h2" in FIELD_NAMES
 
 
 def _npz(tmp_path, name="bad.npz", **arrays):
