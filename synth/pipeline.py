@@ -179,7 +179,11 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
         ideal[tr["name"]] = res.cube
         summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash)
     summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log)
+    from .report.html import write_report
+    from .report.run_analysis import run_analysis
+    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
+    write_report(tmp, summary, log=log)
     write_json(summary, os.path.join(tmp, "summary.json"))
     return summary
 

@@ -1,0 +1,262 @@
+"""The run report: one self-contained HTML page per run (no server, no network).
+
+Every figure of the run folder is embedded as a base64 ``data:`` URI, the style is a short
+inline ``<style>`` block, and there is no script, external font or link to fetch, so the page
+can be mailed or archived alone. Every string from the run (names, notes, the config) is
+escaped with :func:`html.escape`. docs/report.md describes each section.
+"""
+
+import base64
+import glob
+import html
+import json
+import os
+import platform
+import sys
+
+from ..fitsio import write_text
+from .run_analysis import PLAN_COLUMNS, SURVIVAL_COLUMNS, cell_text
+
+__all__ = ["write_report", "report_html", "REPORT_NAME"]
+
+#: file name of the page inside the run folder
+REPORT_NAME = "report.html"
+
+_CSS = """
+body{font-family:sans-serif;max-width:1100px;margin:1em auto;padding:0 1em;color:#222;
+line-height:1.4}
+h1{border-bottom:2px solid #456}h2{border-bottom:1px solid #aab;margin-top:2em}
+table{border-collapse:collapse;margin:.5em 0;font-size:.85em}
+td,th{border:1px solid #ccd;padding:2px 6px;text-align:right}
+th{background:#eef}td.t,th.t{text-align:left}
+pre{background:#f6f6f8;padding:.6em;overflow-x:auto;font-size:.8em;max-height:30em}
+figure{display:inline-block;margin:.3em;vertical-align:top}
+figure img{max-width:100%;border:1px solid #ddd}
+figcaption{font-size:.8em;color:#555}
+.row{display:flex;flex-wrap:wrap;gap:.5em}.row figure{flex:1 1 45%}
+.note{background:#fff6d6;border-left:4px solid #d9a400;padding:.5em .8em}
+.yes{color:#070;font-weight:bold}.no{color:#a00;font-weight:bold}
+"""
+
+_e = html.escape
+
+
+class _Page:
+    """Collects HTML parts and the figures embedded so far."""
+
+    def __init__(self, run_dir):
+        self.run_dir = run_dir
+        self.parts = []
+        self.used = set()
+
+    def add(self, text):
+        self.parts.append(text)
+
+    def img(self, name, caption):
+        """A <figure> with the PNG embedded, or nothing if the run has no such file."""
+        path = os.path.join(self.run_dir, str(name or ""))
+        if not name or not os.path.isfile(path):
+            return ""
+        self.used.add(os.path.basename(path))
+        with open(path, "rb") as fh:
+            data = base64.b64encode(fh.read()).decode("ascii")
+        return (f'<figure><img src="data:image/png;base64,{data}" alt="{_e(caption)}">'
+                f"<figcaption>{_e(caption)}</figcaption></figure>")
+
+
+def _table(head, rows, left=1):
+    """An HTML table; the first ``left`` columns are text (left-aligned)."""
+    def cls(i):
+        return ' class="t"' if i < left else ""
+    out = ["<table><tr>" + "".join(f"<th{cls(i)}>{_e(str(h))}</th>"
+                                   for i, h in enumerate(head)) + "</tr>"]
+    for r in rows:
+        out.append("<tr>" + "".join(f"<td{cls(i)}>{c if isinstance(c, _Raw) else _e(str(c))}"
+                                    "</td>" for i, c in enumerate(r)) + "</tr>")
+    return "".join(out) + "</table>"
+
+
+class _Raw(str):
+    """A cell already written as HTML."""
+
+
+def _fmt(v, fmt="{:.4g}"):
+    if v is None or (isinstance(v, float) and v != v):
+        return "-"
+    return fmt.format(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else str(v)
+
+
+def _job(page, s):
+    an = s.get("analysis") or {}
+    page.add('<h2 id="job">Job</h2>')
+    rows = [(name, t.get("line"), t.get("excitation"), _fmt(t.get("abundance")),
+             _fmt(t.get("frequency_ghz"), "{:.4f}"), _fmt(t.get("peak_tb_k")),
+             _fmt(t.get("peak_integrated_k_kms")), _fmt(t.get("tau_max")))
+            for name, t in s.get("tracers", {}).items()]
+    page.add(f"<p>{len(rows)} tracer(s), {len(s.get('setups') or {})} setup(s); "
+             f"snapshot shape {_e(str(s.get('snapshot', {}).get('shape')))}; "
+             f"run time {_e(_fmt(s.get('elapsed_s'), '{:.1f}'))} s; "
+             f"date {_e(str(an.get('date', '-')))}.</p>")
+    page.add(_table(("tracer", "line", "excitation", "abundance", "GHz", "peak T_B (K)",
+                     "peak ∫T dv (K km/s)", "max tau"), rows, left=3))
+    obs = [(sname, tname, e.get("unit"), _fmt(e.get("beam_major_arcsec"), "{:.3g}"),
+            _fmt(e.get("beam_minor_arcsec"), "{:.3g}"), _fmt(e.get("noise_rms"), "{:.3g}"),
+            _fmt(e.get("peak"), "{:.3g}"), e.get("channels"))
+           for sname, per in (s.get("setups") or {}).items() for tname, e in per.items()]
+    if obs:
+        page.add(_table(("setup", "tracer", "unit", "beam major (\")", "beam minor (\")",
+                         "noise rms", "peak", "channels"), obs, left=3))
+
+
+def _config(page, s):
+    page.add('<h2 id="config">Configuration</h2>')
+    text = json.dumps(s.get("config", {}), indent=2, sort_keys=False, default=str)
+    page.add(f"<pre>{_e(text)}</pre>")
+
+
+def _tracers(page, s):
+    an = s.get("analysis") or {}
+    page.add('<h2 id="tracers">Tracers: ideal and observed</h2>')
+    page.add("<p>\"ideal\" in the observed panels is the ideal cube as the observation "
+             "should see it: on the observed channels, convolved to the observed beam and in "
+             "the observed unit (the reference of docs/analysis.md).</p>")
+    for tname, t in an.get("tracers", {}).items():
+        figs = t.get("figures", {})
+        pos = ", ".join(f"({x}, {y})" for x, y in t.get("spectra_positions", []))
+        page.add(f"<h3>{_e(tname)}</h3><div class=\"row\">"
+                 + page.img(figs.get("mom0"), f"{tname}: ideal integrated intensity")
+                 + page.img(figs.get("spectra"), f"{tname}: ideal spectra at pixels {pos}")
+                 + "</div>")
+        for sname, o in t.get("setups", {}).items():
+            of = o.get("figures", {})
+            page.add(f"<h4>{_e(tname)} with {_e(sname)}</h4><div class=\"row\">"
+                     + page.img(of.get("mom0"), f"{tname} with {sname}: ideal vs observed "
+                                "integrated intensity (each in its own unit)")
+                     + page.img(of.get("moments"), f"{tname} with {sname}: moments 0 and 1, "
+                                "reference vs observed")
+                     + page.img(of.get("spectra"), f"{tname} with {sname}: spectra, "
+                                "reference vs observed") + "</div>")
+            if o.get("notes"):
+                page.add("<ul>" + "".join(f"<li>{_e(n)}</li>" for n in o["notes"]) + "</ul>")
+        if figs.get("recovery"):
+            page.add(page.img(figs["recovery"], f"{tname}: recovered fraction of power per "
+                              "angular scale, one curve per setup (dotted: half-recovery scale)"))
+
+
+def _instruments(page, s):
+    uv = (s.get("analysis") or {}).get("uv", {})
+    if not uv:
+        return
+    page.add('<h2 id="instruments">uv coverage and synthesized beams</h2><div class="row">')
+    for sname, name in uv.items():
+        page.add(page.img(name, f"{sname}: uv coverage and synthesized beam"))
+    page.add("</div>")
+
+
+def _survival(page, s):
+    rows = (s.get("analysis") or {}).get("survival", [])
+    page.add('<h2 id="survival">Survival matrix</h2>')
+    if not rows:
+        page.add("<p>No observing setups in this run: nothing to assess.</p>")
+        return
+    page.add("<p>One row per tracer and setup (survival.csv, survival.json). flux: observed / "
+             "ideal total flux; flux (PB): the same inside the primary-beam half-power circle; "
+             "half-scale: the largest angular scale still recovered at half power ('&gt;' = "
+             "never dropped below half, a lower limit); fidelity: median over the emitting "
+             "voxels; peak S/N; &gt;3 sigma: share of emitting voxels detected; r(mom0): "
+             "correlation of the moment-0 maps. survives = peak S/N &ge; 5 and flux &ge; 0.5 "
+             "(a plain rule of our own). Definitions: docs/analysis.md.</p>")
+    body = []
+    for r in rows:
+        cells = [cell_text(r, k, f) for k, _, f in SURVIVAL_COLUMNS]
+        ok = r.get("survives")
+        cells[-1] = _Raw(f'<span class="{"yes" if ok else "no"}">{"yes" if ok else "no"}</span>')
+        body.append(cells)
+    page.add(_table([h for _, h, _ in SURVIVAL_COLUMNS], body, left=2))
+
+
+def _planning(page, s):
+    an = s.get("analysis") or {}
+    rows = an.get("plan", [])
+    page.add('<h2 id="planning">Planning estimates</h2>')
+    page.add(f'<p class="note">{_e(an.get("disclaimer", ""))}</p>')
+    if not rows:
+        page.add("<p>No observing setups in this run: nothing to plan.</p>")
+    st = an.get("settings", {})
+    page.add(f"<p>Target: S/N {_e(_fmt(st.get('target_snr'), '{:g}'))} per channel on the "
+             f"{_e(_fmt(st.get('percentile'), '{:g}'))}th percentile of the emitting voxels "
+             "(above the emission floor, at each setup's resolution); rms(time) is the noise "
+             "per channel in the time shown; a combination is planned for its own array. "
+             "LAS: largest recoverable scale. Methods: docs/planning.md. plan.csv and "
+             "plan.txt hold the same rows.</p>")
+    body = []
+    for r in rows:
+        unit = "K" if r.get("kind") == "single dish" else "Jy/beam"
+        r = dict(r, rms=r.get(f"rms_{unit}"), target=r.get(f"target_{unit}"))
+        body.append([cell_text(r, k, f) + (f" {unit}" if k in ("rms", "target")
+                                           and r.get(k) is not None else "")
+                     for k, _, f in PLAN_COLUMNS])
+    if body:
+        page.add(_table([h for _, h, _ in PLAN_COLUMNS], body, left=2))
+    for sk in an.get("plan_skipped", []):
+        page.add(f"<p>not planned: {_e(sk['setup'])} / {_e(sk['tracer'])}: "
+                 f"{_e(sk['reason'])}</p>")
+
+
+def _versions():
+    out = {"python": platform.python_version(), "platform": platform.platform()}
+    for mod in ("numpy", "astropy", "spectral_cube", "radio_beam", "matplotlib", "scipy"):
+        m = sys.modules.get(mod)
+        if m is None:
+            try:
+                m = __import__(mod)
+            except ImportError:
+                continue
+        out[mod] = getattr(m, "__version__", "?")
+    return out
+
+
+def _provenance(page, s):
+    an = s.get("analysis") or {}
+    page.add('<h2 id="provenance">Provenance</h2>')
+    rows = [("synth version", s.get("synth_version")), ("config hash", s.get("config_hash")),
+            ("date (UTC)", an.get("date")), ("elapsed (s)", _fmt(s.get("elapsed_s"), "{:.2f}"))]
+    rows += list(_versions().items())
+    page.add(_table(("item", "value"), rows, left=2))
+    page.add("<p>Every FITS file of the run records SYNTHVER and CONFHASH in its header; "
+             "summary.json holds this page's numbers.</p>")
+
+
+def _others(page):
+    rest = sorted(os.path.basename(p) for p in glob.glob(os.path.join(page.run_dir, "*.png"))
+                  if os.path.basename(p) not in page.used)
+    if rest:
+        page.add('<h2 id="other">Other figures</h2><div class="row">'
+                 + "".join(page.img(name, name) for name in rest) + "</div>")
+
+
+def report_html(run_dir, summary):
+    """The report page of a run folder as an HTML string (figures read from ``run_dir``)."""
+    page = _Page(run_dir)
+    title = f"synth run {summary.get('config_hash', '')}"
+    page.add(f'<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+             f"<title>{_e(title)}</title><style>{_CSS}</style></head><body>")
+    page.add(f"<h1>{_e(title)}</h1><p>"
+             + " · ".join(f'<a href="#{a}">{b}</a>' for a, b in (
+                 ("job", "job"), ("config", "configuration"), ("tracers", "tracers"),
+                 ("instruments", "uv coverage"), ("survival", "survival matrix"),
+                 ("planning", "planning"), ("provenance", "provenance"))) + "</p>")
+    for section in (_job, _config, _tracers, _instruments, _survival, _planning, _provenance):
+        section(page, summary)
+    _others(page)
+    page.add("</body></html>\n")
+    return "".join(page.parts)
+
+
+def write_report(run_dir, summary, log=None):
+    """Write ``report.html`` into the run folder (atomically); return its path."""
+    path = os.path.join(run_dir, REPORT_NAME)
+    write_text(report_html(run_dir, summary), path)
+    if log is not None:
+        log(f"run report: {REPORT_NAME} in the output folder (one self-contained page)")
+    return path

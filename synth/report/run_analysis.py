@@ -1,0 +1,342 @@
+"""The analysis part of a run: survival metrics, figures, spectra and planning rows on disk.
+
+:func:`run_analysis` is called by the pipeline after the observations, with the run's ideal
+cubes (``{tracer: SpectralCube}``) and observed cubes (``{(tracer, setup): SpectralCube}``);
+it writes into the run folder and returns a JSON-able summary that :func:`write_report`
+turns into the run page. The metrics are those of :func:`synth.analysis.survival.assess`
+(docs/analysis.md); the planning rows those of :func:`synth.planning.plan` (docs/planning.md).
+"""
+
+import csv
+import io
+import os
+from datetime import datetime, timezone
+
+import numpy as np
+import astropy.units as u
+
+from ..errors import ConfigError, InstrumentError
+from ..fitsio import atomic_path, write_json, write_text
+
+__all__ = ["run_analysis", "analysis_settings", "assess_observation", "plan_config",
+           "spectra_positions", "rows_csv", "survival_text", "cell_text", "SURVIVAL_COLUMNS",
+           "plan_text", "PLAN_COLUMNS"]
+
+#: [analysis] defaults when a config dict has no such section
+_DEFAULTS = {"target_snr": 5.0, "percentile": 50.0, "emission_floor": 0.01, "time_h": None,
+             "spectra_positions": None}
+
+
+def analysis_settings(conf):
+    """The [analysis] settings of a config, with defaults for missing keys."""
+    given = {k: v for k, v in (conf.get("analysis") or {}).items() if v is not None}
+    return {**_DEFAULTS, **given}
+
+
+def _noise_of(cube):
+    """The observed cube's recorded rms per channel (NOISERMS, NOISEUNI), or None."""
+    meta = {str(k).upper(): v for k, v in cube.meta.items()}
+    try:
+        rms = float(meta.get("NOISERMS"))
+    except (TypeError, ValueError):
+        return None
+    if not rms > 0:
+        return None   # a noiseless observation: assess estimates the rms itself
+    return rms * u.Unit(str(meta.get("NOISEUNI") or cube.unit.to_string()))
+
+
+def _primary_beam(setup_conf, cube):
+    """Gaussian primary-beam FWHM of an array setup, taper x lambda / D (common practice)."""
+    if setup_conf is None or setup_conf["kind"] != "array":
+        return None
+    from ..instrument.primary_beam import gaussian_fwhm_rad
+    d_m = setup_conf["diameter_m"] or 12.0
+    return gaussian_fwhm_rad(cube.wcs.wcs.restfrq, d_m) * u.rad
+
+
+def assess_observation(ideal, observed, setup_conf=None, emission_floor=0.01):
+    """``assess`` of one observation as a run does it.
+
+    The noise is the observed cube's recorded NOISERMS (estimated if absent or zero); for an
+    array setup the reference is attenuated by the Gaussian primary beam (the images are not
+    primary-beam corrected) and the flux inside its half-power circle is measured too.
+    """
+    from ..analysis.survival import assess
+    pb = _primary_beam(setup_conf, ideal)
+    pbcorr = bool({str(k).upper(): v for k, v in observed.meta.items()}.get("PBCORR", False))
+    return assess(ideal, observed, noise=_noise_of(observed), primary_beam=pb,
+                  emission_floor=emission_floor, attenuate=pb is not None and not pbcorr)
+
+
+def spectra_positions(cube, given=None):
+    """Pixel positions (x, y) for spectra: ``given``, or the map centre and the brightest pixel.
+
+    The brightest pixel is the maximum of the integrated intensity (sum over channels).
+    """
+    ny, nx = cube.shape[1:]
+    if given:
+        for x, y in given:
+            if not (0 <= x < nx and 0 <= y < ny):
+                raise ConfigError(f"[analysis].spectra_positions has [{x}, {y}]; valid: "
+                                  f"0 <= x < {nx}, 0 <= y < {ny}")
+        return [(int(x), int(y)) for x, y in given]
+    mom = np.nansum(np.asarray(cube.unmasked_data[:].value), axis=0)
+    y, x = np.unravel_index(int(np.nanargmax(mom)), mom.shape)
+    out = [(nx // 2, ny // 2)]
+    return out if (int(x), int(y)) in out else out + [(int(x), int(y))]
+
+
+def rows_csv(rows):
+    """CSV text of a list of dicts; the header is the union of keys in first-seen order."""
+    if not rows:
+        return ""
+    keys = list(dict.fromkeys(k for r in rows for k in r))
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=keys, lineterminator="\n")
+    writer.writeheader()
+    writer.writerows(rows)
+    return buf.getvalue()
+
+
+def _save(fig, path):
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=90)
+    return os.path.basename(path)
+
+
+def _ideal_spectra_figure(cube, positions, title):
+    """Spectra of one cube at pixel positions (the no-setup case)."""
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=(6.5, 2.0 * len(positions) + 0.6), layout="constrained")
+    axes = np.atleast_1d(fig.subplots(len(positions), 1, sharex=True))
+    v = cube.with_spectral_unit(u.km / u.s, velocity_convention="radio").spectral_axis.value
+    for ax, (x, y) in zip(axes, positions):
+        ax.step(v, cube.unmasked_data[:, y, x].value, where="mid", label="ideal (K)")
+        ax.set_title(f"pixel ({x}, {y})", fontsize=9)
+        ax.legend(fontsize=7)
+    axes[-1].set_xlabel("radio velocity (km/s)")
+    fig.suptitle(title, fontsize=10)
+    return fig
+
+
+def _reference_as_cube(ideal, observed):
+    """The ideal cube as the observation should see it, on the observed grid (a cube)."""
+    from spectral_cube import SpectralCube
+    from ..analysis.survival import reference_cube
+    ref, _, _ = reference_cube(ideal, observed)
+    return SpectralCube(ref * observed.unit, wcs=observed.wcs)
+
+
+def _observation_figures(tname, sname, ideal, obs, m, positions, tmp):
+    from ..analysis.plots import moment_figure, spectra_figure
+    base = os.path.join(tmp, f"{tname}_{sname}")
+    out = {"moments": _save(moment_figure(m, title=f"{tname} with {sname}"),
+                            f"{base}_moments.png")}
+    ref = _reference_as_cube(ideal, obs).with_spectral_unit(u.km / u.s,
+                                                            velocity_convention="radio")
+    obs_v = obs.with_spectral_unit(u.km / u.s, velocity_convention="radio")
+    out["spectra"] = _save(spectra_figure(ref, obs_v, positions), f"{base}_spectra.png")
+    if os.path.exists(f"{base}_mom0.png"):
+        out["mom0"] = os.path.basename(f"{base}_mom0.png")
+    return out
+
+
+def _tracer_figures(tname, cube, positions, tmp):
+    out = {}
+    if os.path.exists(os.path.join(tmp, f"{tname}_mom0.png")):
+        out["mom0"] = f"{tname}_mom0.png"
+    out["spectra"] = _save(_ideal_spectra_figure(cube, positions, f"{tname}: ideal spectra"),
+                           os.path.join(tmp, f"{tname}_spectra.png"))
+    return out
+
+
+def plan_config(conf, ideal, settings=None):
+    """Planning rows (``Plan.as_row``) for every tracer x setup of a config.
+
+    Each setup is planned with its own instrument (a combination is planned for its own
+    array), the ideal cube of each tracer giving the target brightness, the field and the
+    declination, and the setup's channel width and track. A setup that cannot be planned
+    (e.g. a dish given by ``rms_k`` without ``tsys_k``) is listed in ``skipped``.
+
+    Returns (plans, rows, skipped).
+    """
+    from ..molecules.registry import Line
+    from ..observing import make_instrument
+    from ..planning import plan
+    settings = settings or analysis_settings(conf)
+    tracers = {tr["name"]: tr for tr in conf["tracer"]}
+    plans, rows, skipped = [], [], []
+    for st in conf["setup"]:
+        inst = make_instrument(st)
+        hours = settings["time_h"] or st["integration_time_h"]
+        kw = {} if st["kind"] == "dish" else {
+            "hour_angles": (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
+            "sample_interval": st["sample_interval_s"] * u.s}
+        for tname, cube in ideal.items():
+            tr = tracers[tname]
+            line = Line(tr["species"], tr["transition"], datafile=tr["datafile"])
+            try:
+                p = plan(inst, line, target_snr=float(settings["target_snr"]), cube=cube,
+                         percentile=float(settings["percentile"]),
+                         channel_width=(None if st["channel_width_kms"] is None
+                                        else st["channel_width_kms"] * u.km / u.s),
+                         integration_time=None if hours is None else hours * u.hr,
+                         emission_floor=float(settings["emission_floor"]), **kw)
+            except InstrumentError as exc:
+                skipped.append({"setup": st["name"], "tracer": tname, "reason": str(exc)})
+                continue
+            plans.append(p)
+            rows.append({"tracer": tname, **p.as_row(), "time_h": hours})
+    return plans, rows, skipped
+
+
+def _clean(v):
+    if isinstance(v, (float, np.floating)):
+        return float(v) if np.isfinite(v) else None
+    return v
+
+
+def _write_plan(rows, tmp):
+    clean = [{k: _clean(v) for k, v in r.items()} for r in rows]
+    write_text(rows_csv(clean), os.path.join(tmp, "plan.csv"))
+    write_text(plan_text(clean) + "\n", os.path.join(tmp, "plan.txt"))
+    return clean
+
+
+def _survival_files(results, tmp):
+    from ..analysis.survival import matrix_csv, matrix_json_rows, survival_matrix
+    rows = survival_matrix(results)
+    write_text(matrix_csv(rows), os.path.join(tmp, "survival.csv"))
+    clean = matrix_json_rows(rows)
+    write_json(clean, os.path.join(tmp, "survival.json"))
+    return clean
+
+
+def run_analysis(conf, ideal, observed, tmp, *, log=None):
+    """Assess every observation, write figures, survival and planning files into ``tmp``.
+
+    Parameters
+    ----------
+    conf : dict
+        The validated run configuration.
+    ideal : dict
+        ``{tracer: SpectralCube}`` ideal cubes (K).
+    observed : dict
+        ``{(tracer, setup): SpectralCube}`` observed cubes (may be empty).
+    tmp : str
+        The run folder being written.
+
+    Returns
+    -------
+    dict
+        JSON-able: settings, survival rows, planning rows, per tracer and observation the
+        figure file names, spectra positions and what assess did to match the cubes.
+    """
+    settings = analysis_settings(conf)
+    figures = conf["output"]["figures"]
+    setups = {st["name"]: st for st in conf["setup"]}
+    out = {"settings": settings, "date": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+           "tracers": {}, "files": []}
+    results = {}
+    for tname, cube in ideal.items():
+        positions = spectra_positions(cube, settings["spectra_positions"])
+        entry = {"spectra_positions": [list(p) for p in positions], "setups": {},
+                 "figures": _tracer_figures(tname, cube, positions, tmp) if figures else {}}
+        for (t, sname), obs in observed.items():
+            if t != tname:
+                continue
+            m = assess_observation(cube, obs, setups.get(sname), settings["emission_floor"])
+            results[(tname, sname)] = m
+            entry["setups"][sname] = {
+                "notes": list(m.notes), "noise": float(m.noise.value), "unit": m.unit,
+                "figures": (_observation_figures(tname, sname, cube, obs, m, positions, tmp)
+                            if figures else {})}
+        if figures and entry["setups"]:
+            from ..analysis.plots import recovery_figure
+            mine = {s: results[(tname, s)] for s in entry["setups"]}
+            entry["figures"]["recovery"] = _save(
+                recovery_figure(mine, title=f"{tname}: recovered power per scale"),
+                os.path.join(tmp, f"{tname}_recovery.png"))
+        out["tracers"][tname] = entry
+    out["uv"] = {s: f"uv_{s}.png" for s, st in setups.items()
+                 if st["kind"] == "array" and os.path.exists(os.path.join(tmp, f"uv_{s}.png"))}
+    out["survival"] = _survival_files(results, tmp) if results else []
+    out["files"] += ["survival.csv", "survival.json"] if results else []
+    _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)
+    out["plan"] = _write_plan(rows, tmp) if setups else []
+    out["files"] += ["plan.csv", "plan.txt"] if setups else []
+    from ..planning import DISCLAIMER
+    out["disclaimer"] = DISCLAIMER
+    if log is not None:
+        _log_tables(log, out["survival"], out["plan"])
+    return out
+
+
+#: the survival-matrix columns shown in the terminal and in the report (key, heading, format)
+SURVIVAL_COLUMNS = (("tracer", "tracer", "{}"), ("setup", "setup", "{}"),
+                    ("flux_fraction", "flux", "{:.3g}"),
+                    ("flux_fraction_pb", "flux (PB)", "{:.3g}"),
+                    ("half_recovery_scale_arcsec", "half-scale\"", "{:.3g}"),
+                    ("fidelity_median", "fidelity", "{:.3g}"),
+                    ("peak_snr", "peak S/N", "{:.3g}"),
+                    ("fraction_above_3sigma", ">3 sigma", "{:.2f}"),
+                    ("mom0_correlation", "r(mom0)", "{:.3f}"),
+                    ("survives", "survives", "{}"))
+
+
+def cell_text(row, key, fmt):
+    """One table cell: "-" for a missing or non-finite value; a lower limit gets ">"."""
+    v = row.get(key)
+    if v is None or (isinstance(v, float) and not np.isfinite(v)):
+        return "-"
+    text = fmt.format(v)
+    if key == "half_recovery_scale_arcsec" and row.get("half_recovery_bounded") is False:
+        text = ">" + text
+    return text
+
+
+def survival_text(rows):
+    """The survival matrix as a plain-text table."""
+    cells = [[cell_text(r, k, f) for k, _, f in SURVIVAL_COLUMNS] for r in rows]
+    head = [h for _, h, _ in SURVIVAL_COLUMNS]
+    widths = [max([len(h)] + [len(c[i]) for c in cells]) for i, h in enumerate(head)]
+    fmt = "  ".join("{:<%d}" % w for w in widths)
+    return "\n".join([fmt.format(*head), fmt.format(*("-" * w for w in widths))]
+                     + [fmt.format(*c) for c in cells])
+
+
+#: planning columns shown in the terminal, plan.txt and the report (key, heading, format);
+#: "rms" and "target" are in K for a dish, Jy/beam for an array
+PLAN_COLUMNS = (("tracer", "tracer", "{}"), ("setup", "setup", "{}"),
+                ("frequency_ghz", "GHz", "{:.3f}"), ("beam_major_arcsec", "beam\"", "{:.3g}"),
+                ("largest_scale_arcsec", "LAS\"", "{:.3g}"),
+                ("channel_width_kms", "dv km/s", "{:.3g}"), ("time_h", "time h", "{:.3g}"),
+                ("rms", "rms(time)", "{:.3g}"), ("target", "target", "{:.3g}"),
+                ("target_snr", "S/N", "{:g}"), ("time_per_pointing_h", "h/pointing", "{:.3g}"),
+                ("n_pointings", "pointings", "{}"), ("total_time_h", "total h", "{:.3g}"))
+
+
+def plan_text(rows):
+    """The planning rows as a plain-text table, the disclaimer under it."""
+    from ..planning import DISCLAIMER
+    cells = []
+    for r in rows:
+        unit = "K" if r.get("kind") == "single dish" else "Jy/beam"
+        r = dict(r, rms=r.get(f"rms_{unit}"), target=r.get(f"target_{unit}"))
+        cells.append([cell_text(r, k, f) + (f" {unit}" if k in ("rms", "target")
+                                            and r.get(k) is not None else "")
+                      for k, _, f in PLAN_COLUMNS])
+    head = [h for _, h, _ in PLAN_COLUMNS]
+    widths = [max([len(h)] + [len(c[i]) for c in cells]) for i, h in enumerate(head)]
+    fmt = "  ".join("{:<%d}" % w for w in widths)
+    return "\n".join([fmt.format(*head), fmt.format(*("-" * w for w in widths))]
+                     + [fmt.format(*c) for c in cells] + ["", DISCLAIMER])
+
+
+def _log_tables(log, rows, plan_rows):
+    if rows:
+        log("survival matrix (survival.csv; docs/analysis.md):")
+        log(survival_text(rows))
+    if plan_rows:
+        log("planning estimates (plan.txt; docs/planning.md):")
+        log(plan_text(plan_rows))
