@@ -5,6 +5,8 @@
     synth lines [SPECIES ...]       built-in species and transitions
     synth zone SPECIES --density N --temperature T --column-per-width X
                                     one-zone escape-probability excitation table
+    synth plan CONFIG               planning estimates per tracer x setup of a config
+    synth compare A.fits B.fits     the same statistics of two cubes, side by side
 
 Bad input prints one line ``synth: error: ...`` and exits with status 2.
 """
@@ -69,7 +71,37 @@ def build_parser():
     p.add_argument("--ortho-para", type=float, default=None, help="H2 ortho/para ratio")
     p.add_argument("--datafile", default=None, help="a Leiden-format molecular data file")
     p.add_argument("--max-rows", type=int, default=10, help="transitions to show (0 = all)")
+    _add_plan_compare(sub)
     return ap
+
+
+def _add_plan_compare(sub):
+    p = sub.add_parser("plan", help="planning estimates per tracer and setup of a config",
+                       description="Resolution, largest recoverable scale, noise per channel "
+                                   "and time to reach a target S/N for every tracer x setup "
+                                   "of a config (see docs/planning.md). Estimates only: the "
+                                   "observatory's own official tools and policies decide a "
+                                   "proposal.")
+    p.add_argument("config", help="path to a TOML configuration with [[setup]] tables")
+    p.add_argument("--target-snr", type=float, default=None, metavar="S/N",
+                   help="S/N per channel to reach (default: [analysis].target_snr, 5)")
+    p.add_argument("--percentile", type=float, default=None, metavar="P",
+                   help="percentile of the emitting voxels to reach (default 50)")
+    p.add_argument("--time", default=None, metavar="TIME",
+                   help="time for the noise column, e.g. 1h or 30min (default: each setup's)")
+    p = sub.add_parser("compare", help="compare two cubes with the same statistics",
+                       description="Match two FITS cubes (unit, beam, grid, channels) and "
+                                   "measure both the same way (see docs/report.md).")
+    p.add_argument("cube_a", metavar="A.fits")
+    p.add_argument("cube_b", metavar="B.fits")
+    p.add_argument("--names", nargs=2, default=None, metavar=("A", "B"),
+                   help="labels of the two cubes (default: the file names)")
+    p.add_argument("--out", default=None, metavar="DIR",
+                   help="write figures and comparison.json into this new folder")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --out folder")
+    p.add_argument("--scale-range", nargs=2, type=float, default=None, metavar=("LO", "HI"),
+                   help="power-spectrum slope fit range in arcsec (default: from the beam "
+                        "and the map)")
 
 
 def _cmd_demo(args):
@@ -129,7 +161,88 @@ def _cmd_zone(args):
     return 0
 
 
-_COMMANDS = {"demo": _cmd_demo, "run": _cmd_run, "lines": _cmd_lines, "zone": _cmd_zone}
+def _ideal_cubes(conf):
+    """The ideal cube of every tracer of a config, made by the pipeline itself (no setups)."""
+    import copy
+    import os
+    import tempfile
+    from spectral_cube import SpectralCube
+    from .pipeline import run_config
+    bare = copy.deepcopy(conf)
+    bare["setup"] = []
+    bare["output"] = {"products": [], "figures": False}
+    with tempfile.TemporaryDirectory(prefix="synth-plan-") as tmp:
+        out = os.path.join(tmp, "run")
+        run_config(bare, out, progress=False, log=lambda *a, **k: None)
+        return {tr["name"]: SpectralCube.read(os.path.join(out, f"{tr['name']}_ideal.fits"))
+                for tr in conf["tracer"]}
+
+
+def _plan_settings(conf, args):
+    import astropy.units as u
+    from .report.run_analysis import analysis_settings
+    settings = analysis_settings(conf)
+    if args.target_snr is not None:
+        if not args.target_snr > 0:
+            raise SynthError(f"--target-snr must be > 0, got {args.target_snr}")
+        settings["target_snr"] = args.target_snr
+    if args.percentile is not None:
+        if not 0 <= args.percentile <= 100:
+            raise SynthError(f"--percentile must be in 0..100, got {args.percentile}")
+        settings["percentile"] = args.percentile
+    if args.time is not None:
+        try:
+            hours = u.Quantity(args.time).to_value(u.hour)
+        except (ValueError, TypeError, u.UnitsError):
+            raise SynthError(f"--time {args.time!r} is not a time; e.g. 1h, 30min, 2.5 h"
+                             ) from None
+        if not hours > 0:
+            raise SynthError(f"--time must be > 0, got {args.time!r}")
+        settings["time_h"] = hours
+    return settings
+
+
+def _cmd_plan(args):
+    from .config import load_config
+    from .report.run_analysis import plan_config, plan_text
+    conf = load_config(args.config)
+    settings = _plan_settings(conf, args)
+    if not conf["setup"]:
+        raise SynthError(f"{args.config} has no [[setup]] tables: nothing to plan")
+    _, rows, skipped = plan_config(conf, _ideal_cubes(conf), settings)
+    print(f"target: S/N {settings['target_snr']:g} per channel on the "
+          f"{settings['percentile']:g}th percentile of the emission")
+    print(plan_text(rows))
+    for sk in skipped:
+        print(f"not planned: {sk['setup']} / {sk['tracer']}: {sk['reason']}")
+    return 0
+
+
+def _cmd_compare(args):
+    import os
+    from .analysis.compare import compare
+    from .report.comparison import (check_out_dir, comparison_text, read_cube,
+                                    write_comparison)
+    names = args.names or [os.path.splitext(os.path.basename(p))[0]
+                           for p in (args.cube_a, args.cube_b)]
+    if names[0] == names[1]:
+        names = ["a", "b"]
+    if args.out is not None:
+        check_out_dir(args.out, args.overwrite)
+    a, b = read_cube(args.cube_a, "A.fits"), read_cube(args.cube_b, "B.fits")
+    rng = None if args.scale_range is None else tuple(args.scale_range)
+    if rng is not None and not 0 < rng[0] < rng[1]:
+        raise SynthError(f"--scale-range needs 0 < LO < HI arcsec, got {rng[0]:g} {rng[1]:g}")
+    result = compare(a, b, names=tuple(names), scale_range=rng)
+    print(comparison_text(result))
+    if args.out is not None:
+        files = write_comparison(result, args.out, overwrite=args.overwrite)
+        print(f"wrote {', '.join(files)} into {args.out}")
+    return 0
+
+
+_COMMANDS = {"demo": _cmd_demo, "run": _cmd_run, "lines": _cmd_lines, "zone": _cmd_zone,
+             "plan": _cmd_plan, "compare": _cmd_compare}
 
 
 def _one_line_warnings():

@@ -1,0 +1,131 @@
+"""Files for ``synth compare``: read two cubes, describe the comparison, write its folder.
+
+The statistics are those of :func:`synth.analysis.compare.compare` (docs/analysis.md); this
+module only reads the inputs, prints the result and writes figures and a JSON of it.
+"""
+
+import os
+import shutil
+import tempfile
+
+import numpy as np
+
+from ..errors import ConfigError, OutputError, SynthError
+from ..fitsio import atomic_path, write_json
+
+__all__ = ["read_cube", "comparison_text", "comparison_json", "write_comparison",
+           "check_out_dir"]
+
+
+def read_cube(path, label):
+    """A SpectralCube from a FITS file, or a ConfigError naming the file and the problem."""
+    from spectral_cube import SpectralCube
+    if not os.path.isfile(path):
+        raise ConfigError(f"{label}: the file {path} does not exist")
+    try:
+        cube = SpectralCube.read(path)
+    except SynthError:
+        raise
+    except Exception as exc:   # any reader failure at this file boundary: say which file
+        why = " ".join(str(exc).split())[:160]
+        raise ConfigError(f"{label}: {path} is not a spectral cube FITS file "
+                          f"({type(exc).__name__}: {why})") from None
+    if getattr(cube, "ndim", 0) != 3:
+        raise ConfigError(f"{label}: {path} is not a 3-D cube (shape {cube.shape})")
+    return cube
+
+
+def _num(v):
+    v = float(v)
+    return v if np.isfinite(v) else None
+
+
+def comparison_json(comparison):
+    """JSON-able dict: names, matching steps, common beam, and each cube's statistics."""
+    beam = comparison.beam
+    return {"names": list(comparison.names), "steps": list(comparison.steps),
+            "beam": None if beam is None else {
+                "major_arcsec": float(beam.major.to_value("arcsec")),
+                "minor_arcsec": float(beam.minor.to_value("arcsec")),
+                "pa_deg": float(beam.pa.to_value("deg"))},
+            "stats": {n: {k: _num(v) for k, v in comparison.stats[n].as_dict().items()}
+                      for n in comparison.names}}
+
+
+def comparison_text(comparison):
+    """The matching steps and the side-by-side statistics table, as terminal text."""
+    a, b = comparison.names
+    t = comparison.table()
+    rows = [(str(r["statistic"]), _g(r[a]), _g(r[b]), _g(r["ratio"])) for r in t]
+    head = ("statistic", a, b, f"{b} / {a}")
+    widths = [max(len(head[i]), *(len(r[i]) for r in rows)) for i in range(4)]
+    fmt = "{:<%d}  {:>%d}  {:>%d}  {:>%d}" % tuple(widths)
+    lines = ["matching steps:"] + [f"  {i + 1}. {s}" for i, s in enumerate(comparison.steps)]
+    lines += ["", fmt.format(*head), fmt.format(*("-" * w for w in widths))]
+    return "\n".join(lines + [fmt.format(*r) for r in rows])
+
+
+def _g(v):
+    v = float(v)
+    return "-" if not np.isfinite(v) else f"{v:.6g}"
+
+
+def _moment0_figure(comparison):
+    """Moment-0 maps of the two matched cubes side by side, on one colour scale."""
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=(9, 4), layout="constrained")
+    axes = fig.subplots(1, 2)
+    maps = {n: comparison.stats[n].moments.mom0 for n in comparison.names}
+    top = max(float(np.nanmax(m.value)) for m in maps.values())
+    for ax, (name, m) in zip(axes, maps.items()):
+        im = ax.imshow(m.value, origin="lower", cmap="viridis", vmin=0, vmax=top)
+        ax.set_title(f"{name}: moment 0 (matched)", fontsize=9)
+        ax.set_xticks([])
+        ax.set_yticks([])
+        fig.colorbar(im, ax=ax, shrink=0.8, label=m.unit.to_string())
+    return fig
+
+
+def _save(fig, path):
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png", dpi=90)
+
+
+def check_out_dir(out_dir, overwrite=False):
+    """The absolute output folder, or an OutputError if it exists (without overwrite) or
+    its parent is not a writable folder."""
+    out_dir = os.path.abspath(out_dir)
+    parent = os.path.dirname(out_dir)
+    if os.path.exists(out_dir) and not overwrite:
+        raise OutputError(f"output folder {out_dir} exists; choose another --out or pass "
+                          "--overwrite")
+    if not os.path.isdir(parent) or not os.access(parent, os.W_OK):
+        raise OutputError(f"cannot create {out_dir}: {parent} is not a writable folder")
+    return out_dir
+
+
+def write_comparison(comparison, out_dir, overwrite=False):
+    """Write structure.png, moments.png and comparison.json into a new folder ``out_dir``.
+
+    The folder is written under a temporary name beside it and renamed into place; an
+    existing folder is replaced only with ``overwrite=True``. Returns the file names.
+    """
+    from ..analysis.plots import structure_figure
+    out_dir = check_out_dir(out_dir, overwrite)
+    parent = os.path.dirname(out_dir)
+    tmp = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
+    try:
+        _save(structure_figure(comparison), os.path.join(tmp, "structure.png"))
+        _save(_moment0_figure(comparison), os.path.join(tmp, "moments.png"))
+        write_json(comparison_json(comparison), os.path.join(tmp, "comparison.json"))
+        if os.path.exists(out_dir):
+            old = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.old-", dir=parent)
+            os.replace(out_dir, os.path.join(old, "previous"))
+            os.replace(tmp, out_dir)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, out_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return ["structure.png", "moments.png", "comparison.json"]
