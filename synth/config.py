@@ -95,7 +95,7 @@ ANALYSIS = {
     "percentile": (_NUM, 50.0, "planning: percentile of the emitting voxels to reach (0-100)"),
     "emission_floor": (_NUM, 0.01, "voxels above this fraction of the peak count as emitting"),
     "time_h": (_NUM, None, "planning: hours for the noise column (default: each setup's)"),
-    "spectra_positions": (list, None, "pixels [[x, y], ...] for spectra (default: centre, brightest)"),
+    "spectra_positions": (list, None, "spectra pixels [[x, y], ...] (default: centre, brightest)"),
 }
 SCHEMA = {"cloud": CLOUD, "sky": SKY, "channels": CHANNELS, "tracer": TRACER,
           "output": OUTPUT, "setup": SETUP, "analysis": ANALYSIS}
