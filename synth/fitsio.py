@@ -21,6 +21,15 @@ __all__ = ["config_hash", "atomic_path", "write_cube", "write_json", "write_text
            "write_image"]
 
 
+def _umask():
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _umask()
+
+
 def config_hash(config):
     """A short stable hash (sha256, 16 hex digits) of a JSON-serialisable configuration."""
     blob = json.dumps(config, sort_keys=True, default=str).encode()
@@ -39,6 +48,7 @@ def atomic_path(path):
     os.close(fd)
     try:
         yield tmp
+        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; outputs get the usual mode
         os.replace(tmp, path)
     finally:
         if os.path.exists(tmp):
@@ -52,7 +62,18 @@ def _provenance(header, conf_hash, extra):
     for key, value in (extra or {}).items():
         if isinstance(value, (bool, int, float, str, np.floating, np.integer)):
             header[key[:8].upper()] = value
+    for key in _NUMERIC_CARDS:  # spectral-cube keeps meta as strings: restore the numbers
+        if key in header and isinstance(header[key], str):
+            try:
+                header[key] = float(header[key])
+            except ValueError:
+                pass
     return header
+
+
+#: Header cards written by the instrument stages that hold numbers.
+_NUMERIC_CARDS = ("NOISERMS", "CHANWID", "NSEED", "ROBUST", "NVIS", "CLEANIT", "THEORMS",
+                  "SDSCALE", "ABUND", "DISTPC", "TBG")
 
 
 def write_cube(cube, path, conf_hash=None, extra=None):

@@ -2,9 +2,9 @@
 
 Each ideal cube is observed with each setup. A dish setup writes the observed cube in K and
 in Jy/beam; an array setup writes Jy/beam (and K), jointly imaged with the arrays named in
-``combine_with`` and feathered with a dish named there. Each observation also gets a figure
-of ideal vs observed integrated intensity, and each array setup a uv-coverage / synthesized
-beam figure.
+``combine_with`` and feathered with a dish named there. Each array setup gets a uv-coverage /
+synthesized-beam figure; the ideal-vs-observed figures come from the run analysis
+(:mod:`synth.report.run_analysis`).
 """
 
 import os
@@ -96,9 +96,6 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
         other = to_unit(obs, "K" if "Jy" in unit else "Jy/beam")
         write_cube(other, f"{base}_{'k' if 'Jy' in unit else 'jyb'}.fits", chash, extra)
         entry = _obs_summary(obs)
-        if figures:
-            from .report.figures import ideal_vs_observed_figure
-            ideal_vs_observed_figure(cube, obs, f"{tname} with {sname}", f"{base}_mom0.png")
         summary.setdefault(sname, {})[tname] = entry
         observed[(tname, sname)] = obs
     if figures:

@@ -160,8 +160,8 @@ def test_report_is_self_contained(small_run):
     srcs = _report_images(text)
     assert len(re.findall(r"src=", text)) == len(srcs)
     pngs = sorted(p for p in os.listdir(out) if p.endswith(".png"))
-    # per tracer mom0 + spectra, per observation mom0 + moments + spectra, recovery, uv
-    assert len(srcs) == len(pngs) == 2 * 2 + 2 * 2 * 3 + 2 + 1
+    # per tracer mom0 + spectra, per observation moments + spectra, recovery, uv
+    assert len(srcs) == len(pngs) == 2 * 2 + 2 * 2 * 2 + 2 + 1
     blobs = sorted(base64.b64decode(s.split(",", 1)[1]) for s in srcs)
     assert all(s.startswith("data:image/png;base64,") for s in srcs)
     assert blobs == sorted((out / p).read_bytes() for p in pngs)
@@ -258,7 +258,7 @@ def test_report_renders_in_chromium(small_run, tmp_path):
     n_img = int(re.search(r'data-images="(\d+)"', body.group(0)).group(1))
     n_ok = int(re.search(r'data-loaded="(\d+)"', body.group(0)).group(1))
     n_png = sum(p.endswith(".png") for p in os.listdir(out))
-    assert n_img == n_ok == n_png == 19
+    assert n_img == n_ok == n_png == 15
     shot = tmp_path / "shot.png"
     with tempfile.TemporaryDirectory() as prof:
         _chromium(["--window-size=1200,1800", f"--screenshot={shot}",
