@@ -7,10 +7,11 @@ Three parts, each printing its figures with their targets, one line each:
     (``SnapshotFile``) under memory budgets; each budget runs in a fresh subprocess that
     measures the tracemalloc peak of the call and its RSS high-water mark above the pre-call
     RSS; peak / budget (target <= 1) and peak / (snapshot + cube bytes);
-  * dask: the same in-memory synthesis on a LocalCluster of 1 and of 2 worker processes (one
-    thread each), clusters started and warmed (numba compiled on every worker) before the
-    timing; speed-up t(1 worker) / t(2 workers) (target >= 1.6), and the serial in-process
-    time (numba on this process's threads) for reference.
+  * dask: the same synthesis on a LocalCluster of 1 and of 2 worker processes (one thread
+    each), clusters started and warmed (numba compiled on every worker) before the timing,
+    with the snapshot in memory (tiles shipped to the workers) and in HDF5 (each worker reads
+    its slabs); speed-up t(1 worker) / t(2 workers) (target >= 1.6), the serial in-process
+    time (numba on this process's threads), and a plain 2-process speed-up for reference.
 Usage:  python tests/bench/bench_scale.py [--n 256] [--quick] [--part scaling|memory|dask]
         [--json out.json]
 Not collected by pytest (speed is measured here, never in timed tests).
@@ -227,21 +228,12 @@ def machine_speedup(reps=30):
     return times[1] / times[2]
 
 
-def part_dask(n, n_channels, fig):
+def _cluster_times(snap, sources, grid, rows, n_channels):
+    """{(source name, workers): seconds} of the synthesis on 1- and 2-worker clusters."""
     from synth.parallel import executor_context
     from synth.snapshot.demo import demo_cloud
     from synth.transfer.synthesize import synthesize_products
-    import numba
-    logging.getLogger("distributed").setLevel(logging.ERROR)  # nanny shutdown chatter
-    snap = demo_cloud(n=n, seed=SEED)
-    grid = channel_grid(snap, n_channels)
     kw = grid_kw(grid)
-    warm(grid)
-    rows = max(1, n // 16)
-    res, t_serial = timed(synthesize_products, snap, line(), ABUNDANCE,
-                          memory=same_tiles_budget(snap.shape, n_channels, rows, 1), **kw)
-    print(f"serial: {res.stats['tiles']} tiles, {t_serial:.2f} s", flush=True)
-    ceiling = [machine_speedup()]
     times = {}
     for workers in (1, 2):
         with executor_context(workers=workers) as ex:
@@ -249,22 +241,52 @@ def part_dask(n, n_channels, fig):
             small = demo_cloud(n=32, seed=SEED)  # and the scatter/submit path warmed
             synthesize_products(small, line(), ABUNDANCE, executor=ex, **kw)
             budget = same_tiles_budget(snap.shape, n_channels, rows, workers)
-            res, times[workers] = timed(synthesize_products, snap, line(), ABUNDANCE,
-                                        executor=ex, memory=budget, **kw)
-            print(f"{workers} worker(s) {sorted(pids.values())}: {res.stats['tiles']} tiles, "
-                  f"{times[workers]:.2f} s", flush=True)
+            for name, source in sources.items():
+                res, t = timed(synthesize_products, source, line(), ABUNDANCE, executor=ex,
+                               memory=budget, **kw)
+                times[name, workers] = t
+                print(f"{workers} worker(s) {sorted(pids.values())}, snapshot {name}: "
+                      f"{res.stats['tiles']} tiles, {t:.2f} s", flush=True)
+    return times
+
+
+def part_dask(n, n_channels, fig):
+    from synth.snapshot.demo import demo_cloud
+    from synth.snapshot.lazy import SnapshotFile
+    from synth.transfer.synthesize import synthesize_products
+    import numba
+    logging.getLogger("distributed").setLevel(logging.ERROR)  # nanny shutdown chatter
+    snap = demo_cloud(n=n, seed=SEED)
+    grid = channel_grid(snap, n_channels)
+    warm(grid)
+    rows = max(1, n // 16)
+    res, t_serial = timed(synthesize_products, snap, line(), ABUNDANCE,
+                          memory=same_tiles_budget(snap.shape, n_channels, rows, 1),
+                          **grid_kw(grid))
+    print(f"serial: {res.stats['tiles']} tiles, {t_serial:.2f} s", flush=True)
+    ceiling = [machine_speedup()]
+    with tempfile.TemporaryDirectory(prefix="synth-bench-") as tmp:
+        path = os.path.join(tmp, f"cloud{n}.h5")
+        write_hdf5(snap, path)
+        sources = {"in memory": snap, "in HDF5": SnapshotFile(
+            path, sigma_turb=float(snap.sigma_turb_cms) / 1e5 * u.km / u.s)}
+        times = _cluster_times(snap, sources, grid, rows, n_channels)
+    ceiling = float(np.mean(ceiling + [machine_speedup()]))  # before and after the timings
     print(f"grid {n}^3 into {n_channels} channels; serial run with {numba.get_num_threads()} "
           f"numba threads on {os.cpu_count()} cores")
     figure(fig, "serial_s", "serial in-process time [s]", t_serial)
-    figure(fig, "dask1_s", "dask 1 worker time [s]", times[1])
-    figure(fig, "dask2_s", "dask 2 workers time [s]", times[2])
-    figure(fig, "dask_speedup", "dask speed-up 1 -> 2 workers", times[1] / times[2], ">=", 1.6)
-    figure(fig, "dask2_vs_serial", "serial time / dask 2 workers time", t_serial / times[2])
-    ceiling = float(np.mean(ceiling + [machine_speedup()]))  # before and after the timings
+    for key, name in (("", "in memory"), ("_file", "in HDF5")):
+        t1, t2 = times[name, 1], times[name, 2]
+        figure(fig, f"dask1{key}_s", f"dask 1 worker time, snapshot {name} [s]", t1)
+        figure(fig, f"dask2{key}_s", f"dask 2 workers time, snapshot {name} [s]", t2)
+        figure(fig, f"dask_speedup{key}", f"dask speed-up 1 -> 2 workers, snapshot {name}",
+               t1 / t2, ">=", 1.6)
+        figure(fig, f"dask_vs_ceiling{key}",
+               f"dask speed-up, snapshot {name} / plain 2-process", t1 / t2 / ceiling)
+    figure(fig, "dask2_vs_serial", "serial time / dask 2 workers time (in memory)",
+           t_serial / times["in memory", 2])
     figure(fig, "machine_speedup", "plain 2-process speed-up of numpy work", ceiling,
            note=f"  (load average {os.getloadavg()[0]:.1f})")
-    figure(fig, "dask_vs_ceiling", "dask speed-up / plain 2-process speed-up",
-           times[1] / times[2] / ceiling)
 
 
 def main(argv=None):
