@@ -38,8 +38,9 @@ class SerialExecutor(Executor):
 class DaskExecutor(Executor):
     """Run jobs as tasks on a dask.distributed Client (at most 2 per worker in flight)."""
 
-    def __init__(self, client):
+    def __init__(self, client, local=False):
         self.client = client
+        self.local = local  # workers share this machine's file system (a LocalCluster)
         info = client.scheduler_info()
         self.n_workers = max(1, len(info.get("workers", {})))
 
@@ -105,7 +106,7 @@ def executor_context(workers=None, scheduler=None):
                                        dashboard_address=None)
     client = distributed.Client(cluster)
     try:
-        yield DaskExecutor(client)
+        yield DaskExecutor(client, local=True)
     finally:
         client.close()
         cluster.close()

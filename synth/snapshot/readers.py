@@ -33,7 +33,7 @@ from ..errors import ConfigError, SnapshotError
 from ._sources import open_source
 from .core import Snapshot
 
-__all__ = ["read_snapshot", "snapshot_shape", "write_npz", "FORMATS", "FIELD_NAMES", "AXIS_ORDERS"]
+__all__ = ["read_snapshot", "snapshot_shape", "write_npz", "write_hdf5", "FORMATS", "FIELD_NAMES", "AXIS_ORDERS"]
 
 #: File formats read_snapshot understands.
 FORMATS = ("npz", "hdf5", "fits", "zarr")
@@ -145,6 +145,38 @@ def write_npz(snapshot, path):
     try:
         with os.fdopen(fd, "wb") as fh:
             np.savez(fh, **out)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_hdf5(snapshot, path):
+    """Write ``snapshot`` to an HDF5 file that :func:`read_snapshot` (and
+    :class:`~synth.snapshot.lazy.SnapshotFile`) read back exactly: datasets ``n_h2``,
+    ``t_kin``, ``velocity``, ``sigma_turb`` (when per cell), ``abundance[_<species>]``, each with
+    a ``units`` attribute; root attributes ``cell_size`` (cm) and ``sigma_turb`` (cm/s, when
+    scalar). Chunked by x slabs; written to a temporary name and renamed."""
+    import h5py
+    c = snapshot._cgs
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
+    os.close(fd)
+    try:
+        with h5py.File(tmp, "w") as f:
+            f.attrs["cell_size"], f.attrs["cell_size_unit"] = c["cell_size_cm"], "cm"
+            nx, ny, nz = snapshot.shape
+            for name, arr, unit in (("n_h2", c["n_h2_cm3"], "cm-3"), ("t_kin", c["t_kin_k"], "K"),
+                                    ("velocity", c["velocity_cms"], "cm / s")):
+                chunks = (1, ny, nz) if arr.ndim == 3 else (3, 1, ny, nz)
+                f.create_dataset(name, data=arr, chunks=chunks).attrs["units"] = unit
+            if np.ndim(c["sigma_turb_cms"]) == 3:
+                f.create_dataset("sigma_turb", data=c["sigma_turb_cms"]).attrs["units"] = "cm / s"
+            for species, arr in (c["abundance"] or {}).items():
+                if np.ndim(arr) == 3:
+                    name = "abundance" if species is None else f"abundance_{species}"
+                    f.create_dataset(name, data=arr).attrs["units"] = ""
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):

@@ -4,6 +4,10 @@ The work is chunked over sky tiles (blocks of x rows, all y and z): memory grows
 tile and the output cube, never with snapshot x channels.
 """
 
+import os
+import shutil
+import tempfile
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -13,6 +17,7 @@ from spectral_cube import SpectralCube
 from ..errors import ConfigError, ExcitationError
 from ..excitation.product import EXCITATION_METHODS, Excitation
 from ..parallel import DaskExecutor, SerialExecutor
+from ..snapshot.core import Snapshot
 from ..snapshot.lazy import SnapshotFile
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
 from .kernel import N_SIGMA, transfer_columns
@@ -171,8 +176,9 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     job = _Job(line, float(abundance), t_ex, grid, v_sys,
                float(radiation_temperature(line.freq_hz, t_bg_k)), "tau" in products,
                "column" in products, line_of_sight if on_disk else "z")
-    data, tau, col = _integrate(snapshot if on_disk else snap, exc, plan, job,
-                                executor or SerialExecutor(), progress)
+    executor = executor or SerialExecutor()
+    with _worker_source(snapshot if on_disk else snap, exc, executor) as source:
+        data, tau, col = _integrate(source, exc, plan, job, executor, progress)
     nx, ny, _ = shape
     cell_cm = snapshot.block(0, 1, line_of_sight).cell_size_cm if on_disk else snap.cell_size_cm
     pixel_deg = np.degrees(cell_cm / dist_cm)
@@ -193,8 +199,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
 
 
 def _cube(data, wcs, meta, unit):
-    q = data * (u.Unit(unit) if unit else u.dimensionless_unscaled)
-    return SpectralCube(data=q, wcs=wcs, meta=dict(meta))
+    q = u.Quantity(data, u.Unit(unit) if unit else u.dimensionless_unscaled, copy=False)
+    return SpectralCube(data=q, wcs=wcs, meta=dict(meta))  # keeps the array: no second copy
 
 
 @dataclass(frozen=True)
@@ -227,6 +233,29 @@ class _Job:
             x_ab = block.abundance_for(self.line.species, self.abundance)
             col = (block.n_h2_cm3 * x_ab).sum(axis=2) * block.cell_size_cm
         return out, tau, col
+
+
+@contextmanager
+def _worker_source(source, exc, executor):
+    """What the tile jobs read from. On a local dask cluster an in-memory snapshot is
+    written once to a temporary HDF5 file that the workers slice themselves, instead of
+    pickling every tile through this process (which then competes with the workers for the
+    cores); elsewhere the source is used as it is."""
+    spill = (isinstance(source, Snapshot) and exc is None and getattr(executor, "local", False)
+             and all(np.ndim(a) == 3 for a in (source._cgs["abundance"] or {}).values()))
+    if not spill:
+        yield source
+        return
+    from ..snapshot.readers import write_hdf5
+    folder = tempfile.mkdtemp(prefix="synth-tiles-")
+    try:
+        path = os.path.join(folder, "snapshot.h5")
+        write_hdf5(source, path)
+        sig = source.sigma_turb_cms
+        kw = {"sigma_turb": float(sig) * u.cm / u.s} if np.ndim(sig) == 0 else {}
+        yield SnapshotFile(path, **kw)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
 
 
 def _block(snap, x0, x1):
