@@ -35,11 +35,7 @@ def build_snapshot(cloud):
             snap = snap._replace(sigma_turb_cms=np.asarray(cloud["sigma_turb_kms"] * 1e5))
         return snap
     from .snapshot.readers import read_snapshot
-    kw = {}
-    if cloud["cell_size_pc"] is not None:
-        kw["cell_size"] = cloud["cell_size_pc"] * u.pc
-    if cloud["sigma_turb_kms"] is not None:
-        kw["sigma_turb"] = cloud["sigma_turb_kms"] * u.km / u.s
+    kw = _reader_kwargs(cloud)
     if cloud["format"] == "yt":
         from .snapshot.yt_reader import read_yt
         return read_yt(cloud["source"], level=cloud["level"], fields=cloud["fields"], **kw)
@@ -129,12 +125,18 @@ def _lazy_source(conf, memory):
     from .snapshot.readers import _resolve_format
     if _resolve_format(cloud["source"], cloud["format"]) == "npz":
         return None
+    return SnapshotFile(cloud["source"], fields=cloud["fields"], format=cloud["format"],
+                        **_reader_kwargs(cloud))
+
+
+def _reader_kwargs(cloud):
+    """cell_size / sigma_turb overrides from a [cloud] table, as reader keyword arguments."""
     kw = {}
     if cloud["cell_size_pc"] is not None:
         kw["cell_size"] = cloud["cell_size_pc"] * u.pc
     if cloud["sigma_turb_kms"] is not None:
         kw["sigma_turb"] = cloud["sigma_turb_kms"] * u.km / u.s
-    return SnapshotFile(cloud["source"], fields=cloud["fields"], format=cloud["format"], **kw)
+    return kw
 
 
 def _run(conf, lines, chash, tmp, progress, log, execution):

@@ -12,7 +12,7 @@ import synth
 from synth.errors import ConfigError, MemoryBudgetError
 from synth.parallel import SerialExecutor, executor_context
 from synth.snapshot.lazy import SnapshotFile
-from synth.snapshot.readers import write_npz
+from synth.snapshot.readers import write_hdf5 as _write_hdf5, write_npz
 from synth.transfer.synthesize import synthesize_products
 from synth.transfer.tiles import parse_memory, plan_tiles
 
@@ -65,17 +65,6 @@ def test_parse_memory(text, value):
 def test_parse_memory_bad(text):
     with pytest.raises(ConfigError, match="memory budget"):
         parse_memory(text)
-
-
-def _write_hdf5(snap, path):
-    import h5py
-    with h5py.File(path, "w") as f:
-        f.attrs["cell_size"] = snap.cell_size_cm
-        f.attrs["cell_size_unit"] = "cm"
-        for name, arr, unit in (("n_h2", snap.n_h2_cm3, "cm-3"), ("t_kin", snap.t_kin_k, "K"),
-                                ("velocity", snap.velocity_cms, "cm/s")):
-            d = f.create_dataset(name, data=arr, chunks=True)
-            d.attrs["units"] = unit
 
 
 def _write_zarr(snap, path):

@@ -29,6 +29,8 @@ import time
 import tracemalloc
 
 import numpy as np
+
+from synth.snapshot.readers import write_hdf5
 import astropy.units as u
 
 LINE = ("13CO", "1-0")
@@ -102,18 +104,6 @@ def part_scaling(n, n_channels, fig):
 
 
 # ---- memory -----------------------------------------------------------------------------------
-def write_hdf5(snap, path):
-    """Write the snapshot's fields (CGS, chunked) to an HDF5 file that SnapshotFile reads."""
-    import h5py
-    with h5py.File(path, "w") as f:
-        f.attrs["cell_size"] = snap.cell_size_cm
-        f.attrs["cell_size_unit"] = "cm"
-        for name, arr, unit in (("n_h2", snap.n_h2_cm3, "cm-3"), ("t_kin", snap.t_kin_k, "K"),
-                                ("velocity", snap.velocity_cms, "cm/s")):
-            d = f.create_dataset(name, data=arr, chunks=True)
-            d.attrs["units"] = unit
-
-
 def _status_kib(key):
     with open("/proc/self/status") as f:
         for row in f:
