@@ -20,13 +20,15 @@ class Executor:
     """Maps a job over argument tuples, yielding (index, result) as results arrive."""
 
     n_workers = 1
+    in_flight = 1
 
     def map(self, fn, args_list, progress=None):  # pragma: no cover - interface
         raise NotImplementedError
 
 
 class SerialExecutor(Executor):
-    """Run jobs one after another in this process (numba uses this process's threads)."""
+    """Run jobs one after another in this process (the numba kernel uses this process's
+    threads: a parallel loop over the columns of a tile)."""
 
     def map(self, fn, args_list, progress=None):
         for i, args in enumerate(args_list):
@@ -43,11 +45,12 @@ class DaskExecutor(Executor):
         self.local = local  # workers share this machine's file system (a LocalCluster)
         info = client.scheduler_info()
         self.n_workers = max(1, len(info.get("workers", {})))
+        self.in_flight = 2 * self.n_workers
 
     def map(self, fn, args_list, progress=None):
         distributed = require("distributed")
         pending, queue = {}, enumerate(args_list)
-        limit = 2 * self.n_workers
+        limit = self.in_flight
         ac = distributed.as_completed()
         run = uuid.uuid4().hex[:12]
         exhausted = False

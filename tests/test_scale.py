@@ -134,7 +134,7 @@ def test_local_cluster_same_cube(cloud, serial):
     pytest.importorskip("distributed")
     with executor_context(workers=2) as ex:
         assert ex.n_workers == 2
-        res = synthesize_products(cloud, LINE, 2e-6, memory="0.7MB", executor=ex, **KW)
+        res = synthesize_products(cloud, LINE, 2e-6, memory="1MB", executor=ex, **KW)
     _same(res, serial)
 
 

@@ -171,7 +171,7 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
         exc = excite_snapshot(snap, line, abundance, excitation, t_ex, excitation_options)
     n_cubes = 1 + ("tau" in products)
     plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
-                      in_flight=getattr(executor, "n_workers", 1),
+                      in_flight=getattr(executor or SerialExecutor(), "in_flight", 1),
                       extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes)
     job = _Job(line, float(abundance), t_ex, grid, v_sys,
                float(radiation_temperature(line.freq_hz, t_bg_k)), "tau" in products,
@@ -218,7 +218,7 @@ class _Job:
     line_of_sight: str
 
     def __call__(self, source, x0, x1, exc_block, numba_threads=None):
-        if numba_threads:
+        if numba_threads:  # one thread per dask worker process (threads_per_worker=1)
             import numba
             numba.set_num_threads(min(int(numba_threads), numba.config.NUMBA_NUM_THREADS))
         block = source.block(x0, x1, self.line_of_sight) if isinstance(source, SnapshotFile) \
