@@ -27,8 +27,10 @@ def _panel(fig, ax, image, title, cmap, vmin=None, vmax=None, label=""):
 def moment_figure(survival, path=None, title=""):
     """Ideal (beam-convolved) and observed moment maps 0 and 1, side by side."""
     mi, mo = survival.ideal_moments, survival.observed_moments
-    fig = Figure(figsize=(8, 7), layout="constrained")
-    axes = fig.subplots(2, 2)
+    fig = Figure(figsize=(8, 7))  # a fixed layout: constrained layout costs 2x the drawing
+    axes = fig.subplots(2, 2, gridspec_kw=dict(left=0.02, right=0.93, bottom=0.02,
+                                               top=0.9 if title else 0.95, wspace=0.3,
+                                               hspace=0.15))
     top = np.nanmax(mi.mom0.value) if np.isfinite(np.nanmax(mi.mom0.value)) else None
     unit0 = mi.mom0.unit.to_string()
     _panel(fig, axes[0, 0], mi.mom0.value, "ideal moment 0", "viridis", 0, top, unit0)
@@ -44,10 +46,12 @@ def moment_figure(survival, path=None, title=""):
 
 def recovery_figure(survivals, path=None, title="Recovered fraction of power per scale"):
     """Recovered fraction against angular scale for several {label: Survival}."""
-    fig = Figure(figsize=(6.5, 4.5), layout="constrained")
-    ax = fig.subplots()
+    fig = Figure(figsize=(6.5, 4.5))
+    ax = fig.subplots(gridspec_kw=dict(left=0.12, right=0.97, bottom=0.12, top=0.92))
     for label, m in survivals.items():
         t = m.recovery[m.recovery["reliable"]]
+        if m.beam is not None:  # below the restoring beam the ratio is noise over nothing
+            t = t[np.asarray(t["scale_arcsec"]) >= m.beam.major.to_value("arcsec")]
         order = np.argsort(t["scale_arcsec"])
         line, = ax.plot(np.asarray(t["scale_arcsec"])[order],
                         np.asarray(t["recovered_fraction"])[order], marker="o", ms=3,
@@ -57,7 +61,10 @@ def recovery_figure(survivals, path=None, title="Recovered fraction of power per
             ax.axvline(half, color=line.get_color(), ls=":", lw=1)
     ax.axhline(0.5, color="0.5", lw=0.8)
     ax.set_xscale("log")
-    ax.set_xlabel("angular scale 1/k (arcsec)")
+    from matplotlib.ticker import NullFormatter, ScalarFormatter
+    ax.xaxis.set_major_formatter(ScalarFormatter())
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    ax.set_xlabel("angular scale 1/k (arcsec; scales >= each restoring beam)")
     ax.set_ylabel("observed / ideal power")
     ax.set_title(title, fontsize=10)
     ax.legend(fontsize=8)
@@ -106,8 +113,10 @@ def structure_figure(comparison, path=None):
 
 def spectra_figure(ideal, observed, positions, path=None):
     """Spectra of two cubes at pixel positions [(x, y), ...] (same sky grid)."""
-    fig = Figure(figsize=(6.5, 2.2 * len(positions) + 0.5), layout="constrained")
-    axes = np.atleast_1d(fig.subplots(len(positions), 1, sharex=True))
+    height = 2.2 * len(positions) + 0.5
+    fig = Figure(figsize=(6.5, height))
+    axes = np.atleast_1d(fig.subplots(len(positions), 1, sharex=True, gridspec_kw=dict(
+        left=0.1, right=0.97, bottom=0.55 / height, top=1 - 0.3 / height, hspace=0.3)))
     for ax, (x, y) in zip(axes, positions):
         for cube, label in ((ideal, "ideal"), (observed, "observed")):
             v = cube.spectral_axis

@@ -19,14 +19,14 @@ def moment0_figure(mom0_k_kms, cube, title, path):
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
     from ..fitsio import atomic_path
-    fig, ax = plt.subplots(figsize=(5.2, 4.4), dpi=110)
+    fig, ax = plt.subplots(figsize=(5.2, 4.4), dpi=110,
+                           gridspec_kw=dict(left=0.16, right=0.98, bottom=0.12, top=0.92))
     im = ax.imshow(np.asarray(mom0_k_kms), origin="lower", extent=offsets_extent(cube),
                    cmap="magma", interpolation="nearest")
     ax.set_xlabel("RA offset (arcsec)")
     ax.set_ylabel("Dec offset (arcsec)")
     ax.set_title(f"{title}: integrated intensity")
     fig.colorbar(im, ax=ax, label="∫T_B dv (K km/s)")
-    fig.tight_layout()
     with atomic_path(path) as tmp:
         fig.savefig(tmp, format="png")
     plt.close(fig)

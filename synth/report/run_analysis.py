@@ -107,8 +107,10 @@ def _save(fig, path):
 def _ideal_spectra_figure(cube, positions, title):
     """Spectra of one cube at pixel positions (the no-setup case)."""
     from matplotlib.figure import Figure
-    fig = Figure(figsize=(6.5, 2.0 * len(positions) + 0.6), layout="constrained")
-    axes = np.atleast_1d(fig.subplots(len(positions), 1, sharex=True))
+    height = 2.0 * len(positions) + 0.6
+    fig = Figure(figsize=(6.5, height))
+    axes = np.atleast_1d(fig.subplots(len(positions), 1, sharex=True, gridspec_kw=dict(
+        left=0.1, right=0.97, bottom=0.55 / height, top=1 - 0.45 / height, hspace=0.3)))
     v = cube.with_spectral_unit(u.km / u.s, velocity_convention="radio").spectral_axis.value
     for ax, (x, y) in zip(axes, positions):
         ax.step(v, cube.unmasked_data[:, y, x].value, where="mid", label="ideal (K)")
