@@ -44,7 +44,11 @@ def atomic_path(path):
         raise OutputError(f"output folder {folder} does not exist")
     if not os.access(folder, os.W_OK):
         raise OutputError(f"output folder {folder} is not writable; choose another with --out")
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=os.path.splitext(path)[1], dir=folder)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=os.path.splitext(path)[1], dir=folder)
+    except OSError as exc:
+        raise OutputError(f"cannot write in {folder}: {exc.strerror or exc}; choose a "
+                          "writable folder") from None
     os.close(fd)
     try:
         yield tmp

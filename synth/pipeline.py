@@ -70,7 +70,11 @@ def prepare_output(out_dir, overwrite):
         raise OutputError(f"cannot create {out_dir}: the folder {parent} does not exist")
     if not os.access(parent, os.W_OK):
         raise OutputError(f"cannot create {out_dir}: the folder {parent} is not writable")
-    return tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
+    try:
+        return tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
+    except OSError as exc:
+        raise OutputError(f"cannot create {out_dir}: {exc.strerror or exc} in {parent}; "
+                          "choose a writable folder with --out") from None
 
 
 def _finish_output(tmp, out_dir):

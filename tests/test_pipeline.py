@@ -172,14 +172,18 @@ def test_cli_run_writes(conf_file, tmp_path, capsys):
 
 
 def test_unwritable_output(conf_file, tmp_path):
+    """An output folder that cannot be created is a one-line OutputError, nothing written.
+    As root (who can write anywhere), a folder on the read-only sysfs stands in."""
     ro = tmp_path / "ro"
     ro.mkdir()
     os.chmod(ro, 0o500)
     try:
-        if os.access(ro, os.W_OK):
-            pytest.skip("running as a user who can write anywhere (root)")
-        with pytest.raises(OutputError, match="is not writable"):
-            synth.run_config(str(conf_file), str(ro / "out"), progress=False)
+        target = ro / "out" if not os.access(ro, os.W_OK) else "/sys/synth-test-out"
+        if str(target).startswith("/sys") and not os.path.isdir("/sys"):
+            pytest.skip("no unwritable folder available")
+        with pytest.raises(OutputError, match="not writable|cannot create"):
+            synth.run_config(str(conf_file), str(target), progress=False)
+        assert not os.path.exists(target)
     finally:
         os.chmod(ro, 0o700)
 
