@@ -163,7 +163,8 @@ def compare(a, b, *, names=("a", "b"), scale_range=None, noise=(None, None)):
         steps.append("nothing to match: same unit, beam, grid and channels")
     cubes = {n: _rebuild(d, onto, spec_cube, beam) for n, d in zip(names, (da, db))}
     rng = scale_range or default_scale_range(onto.shape[1:], pixel_scale_arcsec(onto), beam)
-    stats = {n: structure_statistics(cubes[n], scale_range=rng, noise=nz)
+    stats = {n: structure_statistics(cubes[n], scale_range=rng, noise=nz,
+                                     automatic_range=scale_range is None)
              for n, nz in zip(names, noise)}
     return Comparison(names=names, stats=stats, matched=cubes, beam=beam, steps=tuple(steps))
 

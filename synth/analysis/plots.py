@@ -100,7 +100,8 @@ def structure_figure(comparison, path=None):
         a2.stairs(st.pdf_density, st.pdf_edges,
                   label=f"{name}: σ_ln {st.lognormal_sigma:.2f}")
     lo, hi = comparison.stats[comparison.names[0]].slope_range
-    a1.axvspan(1 / hi, 1 / lo, color="0.9")
+    if np.isfinite(lo) and np.isfinite(hi):
+        a1.axvspan(1 / hi, 1 / lo, color="0.9")
     a1.set_xlabel("k (1/arcsec)")
     a1.set_ylabel("power of moment 0")
     a1.legend(fontsize=8)

@@ -85,19 +85,20 @@ def map_statistics(image):
 
 
 def default_scale_range(shape, pixscale_arcsec, beam=None):
-    """Scales for the slope fit: from max(3 pixels, 2 beam FWHM) to a third of the map."""
-    lo = 3.0 * pixscale_arcsec
-    if beam is not None:
-        lo = max(lo, 2.0 * beam.major.to_value(u.arcsec))
-    hi = min(shape) * pixscale_arcsec / 3.0
-    if hi <= lo:
-        raise InstrumentError(f"map: {shape} pixels of {pixscale_arcsec:.3g} arcsec is too small "
-                              f"for a slope fit above {lo:.3g} arcsec; use a larger map")
-    return lo, hi
+    """Scales for the slope fit: from max(3 pixels, 2 beam FWHM) to a third of the map; for a
+    map only a few beams across, from 1 beam FWHM to half the map. None when even that
+    leaves no range (the slope is then not fitted)."""
+    pix_lo = 3.0 * pixscale_arcsec
+    fwhm = beam.major.to_value(u.arcsec) if beam is not None else 0.0
+    size = min(shape) * pixscale_arcsec
+    for lo, hi in ((max(pix_lo, 2.0 * fwhm), size / 3.0), (max(pix_lo, fwhm), size / 2.0)):
+        if hi > 1.5 * lo:
+            return lo, hi
+    return None
 
 
 def structure_statistics(cube, *, scale_range=None, noise=None, mask=None, nbins=None,
-                         apodize="tukey", pdf_bins=40):
+                         apodize="tukey", pdf_bins=40, automatic_range=False):
     """Power spectrum, intensity PDF and moment-map statistics of one cube.
 
     Parameters
@@ -105,7 +106,9 @@ def structure_statistics(cube, *, scale_range=None, noise=None, mask=None, nbins
     cube : SpectralCube
         K or Jy/beam, beam optional.
     scale_range : (float, float), optional
-        Angular scales (arcsec) for the slope fit; :func:`default_scale_range` if None.
+        Angular scales (arcsec) for the slope fit; :func:`default_scale_range` if None (on a
+        map too small for any range the slope is NaN). ``automatic_range=True`` marks a given
+        range as chosen automatically (too few bins in it then gives a NaN slope, not an error).
     noise, mask
         Passed to :func:`synth.analysis.moments.moment_maps`.
     apodize : {None, "tukey"}
@@ -117,7 +120,14 @@ def structure_statistics(cube, *, scale_range=None, noise=None, mask=None, nbins
     m0 = np.nan_to_num(mom.mom0.value)
     table = power_spectrum(m0, pix, nbins=nbins, apodize=apodize)
     rng = scale_range or default_scale_range(m0.shape, pix, cube_beam(cube))
-    slope, err, _ = fit_power_slope(table, rng)
+    slope, err = np.nan, np.nan
+    if rng is not None:
+        try:
+            slope, err, _ = fit_power_slope(table, rng)
+        except InstrumentError:
+            if scale_range is not None and not automatic_range:  # the user's own range
+                raise
+    rng = rng if rng is not None else (np.nan, np.nan)
     edges, dens = intensity_pdf(m0, pdf_bins)
     mu, sig = lognormal_fit(m0)
     maps = {"mom0": mom.mom0.value, "mom1": mom.mom1.value, "mom2": mom.mom2.value}
