@@ -157,7 +157,8 @@ def write_hdf5(snapshot, path):
     :class:`~synth.snapshot.lazy.SnapshotFile`) read back exactly: datasets ``n_h2``,
     ``t_kin``, ``velocity``, ``sigma_turb`` (when per cell), ``abundance[_<species>]``, each with
     a ``units`` attribute; root attributes ``cell_size`` (cm) and ``sigma_turb`` (cm/s, when
-    scalar). Chunked by x slabs; written to a temporary name and renamed."""
+    scalar). Contiguous datasets (x slabs are contiguous runs); written to a temporary name
+    and renamed."""
     import h5py
     c = snapshot._cgs
     path = Path(path)
@@ -166,11 +167,10 @@ def write_hdf5(snapshot, path):
     try:
         with h5py.File(tmp, "w") as f:
             f.attrs["cell_size"], f.attrs["cell_size_unit"] = c["cell_size_cm"], "cm"
-            nx, ny, nz = snapshot.shape
             for name, arr, unit in (("n_h2", c["n_h2_cm3"], "cm-3"), ("t_kin", c["t_kin_k"], "K"),
                                     ("velocity", c["velocity_cms"], "cm / s")):
-                chunks = (1, ny, nz) if arr.ndim == 3 else (3, 1, ny, nz)
-                f.create_dataset(name, data=arr, chunks=chunks).attrs["units"] = unit
+                # contiguous: an x slab [x0:x1] (or [:, x0:x1]) is one (or three) runs
+                f.create_dataset(name, data=arr).attrs["units"] = unit
             if np.ndim(c["sigma_turb_cms"]) == 3:
                 f.create_dataset("sigma_turb", data=c["sigma_turb_cms"]).attrs["units"] = "cm / s"
             for species, arr in (c["abundance"] or {}).items():
