@@ -15,7 +15,7 @@ import platform
 import sys
 
 from ..fitsio import write_text
-from .run_analysis import PLAN_COLUMNS, SURVIVAL_COLUMNS, cell_text
+from .run_analysis import PLAN_COLUMNS, SURVIVAL_COLUMNS, cell_text, plan_cells
 
 __all__ = ["write_report", "report_html", "REPORT_NAME"]
 
@@ -189,13 +189,7 @@ def _planning(page, s):
              "per channel in the time shown; a combination is planned for its own array. "
              "LAS: largest recoverable scale. Methods: docs/planning.md. plan.csv and "
              "plan.txt hold the same rows.</p>")
-    body = []
-    for r in rows:
-        unit = "K" if r.get("kind") == "single dish" else "Jy/beam"
-        r = dict(r, rms=r.get(f"rms_{unit}"), target=r.get(f"target_{unit}"))
-        body.append([cell_text(r, k, f) + (f" {unit}" if k in ("rms", "target")
-                                           and r.get(k) is not None else "")
-                     for k, _, f in PLAN_COLUMNS])
+    body = plan_cells(rows)
     if body:
         page.add(_table([h for _, h, _ in PLAN_COLUMNS], body, left=2))
     for sk in an.get("plan_skipped", []):

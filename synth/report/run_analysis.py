@@ -318,9 +318,8 @@ PLAN_COLUMNS = (("tracer", "tracer", "{}"), ("setup", "setup", "{}"),
                 ("n_pointings", "pointings", "{}"), ("total_time_h", "total h", "{:.3g}"))
 
 
-def plan_text(rows):
-    """The planning rows as a plain-text table, the disclaimer under it."""
-    from ..planning import DISCLAIMER
+def plan_cells(rows):
+    """The planning rows as table cells (strings, noise and targets with their unit)."""
     cells = []
     for r in rows:
         unit = "K" if r.get("kind") == "single dish" else "Jy/beam"
@@ -328,6 +327,13 @@ def plan_text(rows):
         cells.append([cell_text(r, k, f) + (f" {unit}" if k in ("rms", "target")
                                             and r.get(k) is not None else "")
                       for k, _, f in PLAN_COLUMNS])
+    return cells
+
+
+def plan_text(rows):
+    """The planning rows as a plain-text table, the disclaimer under it."""
+    from ..planning import DISCLAIMER
+    cells = plan_cells(rows)
     head = [h for _, h, _ in PLAN_COLUMNS]
     widths = [max([len(h)] + [len(c[i]) for c in cells]) for i, h in enumerate(head)]
     fmt = "  ".join("{:<%d}" % w for w in widths)
