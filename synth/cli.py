@@ -161,23 +161,6 @@ def _cmd_zone(args):
     return 0
 
 
-def _ideal_cubes(conf):
-    """The ideal cube of every tracer of a config, made by the pipeline itself (no setups)."""
-    import copy
-    import os
-    import tempfile
-    from spectral_cube import SpectralCube
-    from .pipeline import run_config
-    bare = copy.deepcopy(conf)
-    bare["setup"] = []
-    bare["output"] = {"products": [], "figures": False}
-    with tempfile.TemporaryDirectory(prefix="synth-plan-") as tmp:
-        out = os.path.join(tmp, "run")
-        run_config(bare, out, progress=False, log=lambda *a, **k: None)
-        return {tr["name"]: SpectralCube.read(os.path.join(out, f"{tr['name']}_ideal.fits"))
-                for tr in conf["tracer"]}
-
-
 def _plan_settings(conf, args):
     import astropy.units as u
     from .report.run_analysis import analysis_settings
@@ -204,12 +187,13 @@ def _plan_settings(conf, args):
 
 def _cmd_plan(args):
     from .config import load_config
+    from .pipeline import ideal_cubes
     from .report.run_analysis import plan_config, plan_text
     conf = load_config(args.config)
     settings = _plan_settings(conf, args)
     if not conf["setup"]:
         raise SynthError(f"{args.config} has no [[setup]] tables: nothing to plan")
-    _, rows, skipped = plan_config(conf, _ideal_cubes(conf), settings)
+    _, rows, skipped = plan_config(conf, ideal_cubes(conf), settings)
     print(f"target: S/N {settings['target_snr']:g} per channel on the "
           f"{settings['percentile']:g}th percentile of the emission")
     print(plan_text(rows))

@@ -18,7 +18,8 @@ from .config import load_config, validate_config
 from .errors import ConfigError, OutputError
 from .fitsio import config_hash, write_cube, write_image, write_json
 
-__all__ = ["run_config", "build_snapshot", "tracer_line", "prepare_output", "DEMO_CONFIG"]
+__all__ = ["run_config", "synthesize_config", "ideal_cubes", "build_snapshot", "tracer_line",
+           "prepare_output", "DEMO_CONFIG"]
 
 #: The packaged demo configuration (identical to configs/demo.toml).
 DEMO_CONFIG = os.path.join(os.path.dirname(__file__), "configs", "demo.toml")
@@ -143,11 +144,16 @@ def _reader_kwargs(cloud):
     return kw
 
 
-def _run(conf, lines, chash, tmp, progress, log, execution):
-    from .transfer.synthesize import synthesize_products
-    t_start = time.perf_counter()
-    lazy = _lazy_source(conf, execution["memory"])
+def synthesize_config(conf, progress=False, memory=None, executor=None, lines=None, info=None):
+    """Yield (tracer table, Line, SynthesisResult) for every [[tracer]] of a validated config:
+    the snapshot, view, channel grid and source placement the config describes. ``info``, a
+    dict, receives the snapshot's shape and whether it is read by tiles."""
+    from .transfer.synthesize import auto_velocity_range, synthesize_products
+    lines = lines or [tracer_line(tr) for tr in conf["tracer"]]
+    lazy = _lazy_source(conf, memory)
     snap = lazy if lazy is not None else build_snapshot(conf["cloud"])
+    if info is not None:
+        info.update(shape=list(snap.shape), read_by_tiles=lazy is not None)
     sky, chan = conf["sky"], conf["channels"]
     vrange = None
     if chan["velocity_min_kms"] is not None or chan["velocity_max_kms"] is not None:
@@ -158,21 +164,16 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     view = snap if (los == "z" or lazy is not None) else snap.view(los)
     view_los = los if lazy is not None else "z"
     if vrange is None:
-        from .transfer.synthesize import auto_velocity_range
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
                                       line_of_sight=view_los).value for ln in lines]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
-    summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
-               "snapshot": {"shape": list(snap.shape), "read_by_tiles": lazy is not None},
-               "tracers": {}}
     products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
     from tqdm.auto import tqdm
     bar = tqdm(list(zip(conf["tracer"], lines)), desc="tracers", unit="tracer",
                disable=not progress)
-    ideal = {}
     for tr, line in bar:
         bar.set_postfix_str(str(line))
-        res = synthesize_products(
+        yield tr, line, synthesize_products(
             view, line, tr["abundance"], tr["excitation"],
             distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
             velocity_range=vrange, line_of_sight=view_los,
@@ -181,7 +182,22 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
             t_bg=sky["background_k"] * u.K,
             t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
             excitation_options=_lvg_options(tr), products=products, progress=progress,
-            memory=execution["memory"], executor=execution["executor"])
+            memory=memory, executor=executor)
+
+
+def ideal_cubes(config):
+    """{tracer name: ideal cube} of a config (a path or a dict); nothing is written."""
+    conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
+    return {tr["name"]: res.cube for tr, _, res in synthesize_config(conf)}
+
+
+def _run(conf, lines, chash, tmp, progress, log, execution):
+    t_start = time.perf_counter()
+    summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
+               "snapshot": {}, "tracers": {}}
+    ideal = {}
+    for tr, line, res in synthesize_config(conf, progress, execution["memory"],
+                                           execution["executor"], lines, summary["snapshot"]):
         ideal[tr["name"]] = res.cube
         summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash)
     summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log)
