@@ -23,13 +23,12 @@ HDF5 root attribute ``cell_size`` (+ ``cell_size_unit``); FITS ``CDELT1`` with a
 """
 
 import os
-import tempfile
-from pathlib import Path
 
 import numpy as np
 import astropy.units as u
 
 from ..errors import ConfigError, SnapshotError
+from ..fitsio import atomic_path
 from ._sources import open_source
 from .core import Snapshot
 
@@ -140,31 +139,20 @@ def write_npz(snapshot, path):
            "cell_size": np.float64(c["cell_size_cm"]), "cell_size_unit": "cm"}
     for species, arr in (c["abundance"] or {}).items():
         out["abundance" if species is None else f"abundance_{species}"] = arr
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            np.savez(fh, **out)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+    with atomic_path(os.fspath(path)) as tmp, open(tmp, "wb") as fh:
+        np.savez(fh, **out)
 
 
 def write_hdf5(snapshot, path):
     """Write ``snapshot`` to an HDF5 file that :func:`read_snapshot` (and
     :class:`~synth.snapshot.lazy.SnapshotFile`) read back exactly: datasets ``n_h2``,
     ``t_kin``, ``velocity``, ``sigma_turb`` (when per cell), ``abundance[_<species>]``, each with
-    a ``units`` attribute; root attributes ``cell_size`` (cm) and ``sigma_turb`` (cm/s, when
-    scalar). Contiguous datasets (x slabs are contiguous runs); written to a temporary name
-    and renamed."""
+    a ``units`` attribute, and the root attribute ``cell_size`` (cm); a scalar sigma_turb is not
+    stored (pass it to the reader). Contiguous datasets (x slabs are contiguous runs); written
+    to a temporary name and renamed."""
     import h5py
     c = snapshot._cgs
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
-    os.close(fd)
-    try:
+    with atomic_path(os.fspath(path)) as tmp:
         with h5py.File(tmp, "w") as f:
             f.attrs["cell_size"], f.attrs["cell_size_unit"] = c["cell_size_cm"], "cm"
             for name, arr, unit in (("n_h2", c["n_h2_cm3"], "cm-3"), ("t_kin", c["t_kin_k"], "K"),
@@ -177,11 +165,6 @@ def write_hdf5(snapshot, path):
                 if np.ndim(arr) == 3:
                     name = "abundance" if species is None else f"abundance_{species}"
                     f.create_dataset(name, data=arr).attrs["units"] = ""
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
 
 
 # ---- options ---------------------------------------------------------------------------------
