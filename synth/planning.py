@@ -14,6 +14,7 @@ import numpy as np
 import astropy.units as u
 
 from .errors import InstrumentError
+from .sky import C_KMS
 
 __all__ = ["Plan", "plan", "plan_rows", "plan_table", "hex_pointings", "DISCLAIMER"]
 
@@ -21,7 +22,6 @@ __all__ = ["Plan", "plan", "plan_rows", "plan_table", "hex_pointings", "DISCLAIM
 DISCLAIMER = ("Estimates only: the observatory's own official tools and policies decide a "
               "proposal (sensitivity, time, overheads and feasibility).")
 
-_C_KMS = 299792.458
 
 
 @dataclass(frozen=True, eq=False)
@@ -45,6 +45,7 @@ class Plan:
     n_pointings: int
     total_time: u.Quantity         # n_pointings x time_to_target (or None)
     notes: tuple
+    layout: object = None          # the MapLayout (pointings) observe makes, or None
 
     def as_row(self):
         """Plain values for tables, CSV and JSON."""
@@ -87,7 +88,7 @@ def _channel(channel_width, cube, freq):
     else:
         q = u.Quantity(channel_width)
         if q.unit.physical_type == "frequency":
-            dv_kms = abs(q.to_value(u.Hz)) / freq.to_value(u.Hz) * _C_KMS
+            dv_kms = abs(q.to_value(u.Hz)) / freq.to_value(u.Hz) * C_KMS
         elif q.unit.physical_type == "speed":
             dv_kms = abs(q.to_value(u.km / u.s))
         else:
@@ -96,7 +97,7 @@ def _channel(channel_width, cube, freq):
     if not dv_kms > 0:
         raise InstrumentError(f"channel_width: {channel_width!r} must be > 0")
     # radio convention, as observe converts: dnu = nu0 dv / c
-    return dv_kms * u.km / u.s, dv_kms / _C_KMS * freq.to(u.Hz)
+    return dv_kms * u.km / u.s, dv_kms / C_KMS * freq.to(u.Hz)
 
 
 def _field(field_size, cube):
@@ -111,25 +112,16 @@ def _field(field_size, cube):
 
 
 def hex_pointings(width, height, spacing):
-    """Number of pointings of a hexagonal grid with ``spacing`` that covers a rectangle.
-
-    Rows are ``spacing * sqrt(3) / 2`` apart, alternate rows shifted by half a spacing; the
-    grid is centred on the field and counts the points inside it (one at least).
-    """
+    """Number of pointings of a hexagonal grid with ``spacing`` that covers a rectangle
+    (:func:`synth.instrument.mosaic.pointing_offsets`, the grid observe uses)."""
+    from .instrument.mosaic import pointing_offsets
     w, h, s = (u.Quantity(x).to_value(u.arcsec) for x in (width, height, spacing))
-    dy = s * np.sqrt(3) / 2
-    n_rows = int(np.floor(h / 2 / dy))
-    count = 0
-    for r in range(-n_rows, n_rows + 1):
-        off = 0.5 * s if r % 2 else 0.0
-        k = np.arange(-int(w / s) - 2, int(w / s) + 3) * s + off
-        count += int(np.sum(np.abs(k) <= w / 2 + 1e-9))
-    return max(count, 1)
+    return int(pointing_offsets(w, h, s, "hexagonal").shape[0])
 
 
 def _target(cube, beam, kind, freq, percentile, floor, dv_kms):
     """The chosen percentile of the beam-convolved emission (K or Jy/beam)."""
-    from .analysis.matching import (beam_kernel, channel_velocities_ms, convolve_gaussian,
+    from .analysis.matching import (kernel_between, channel_velocities_ms, convolve_gaussian,
                                     cube_beam, cube_values, jy_per_beam_per_k,
                                     pixel_scale_arcsec, x_sign)
     if cube.unit.physical_type != "temperature":
@@ -140,7 +132,7 @@ def _target(cube, beam, kind, freq, percentile, floor, dv_kms):
         from .instrument.spectral import resample_spectral   # the channels observe makes
         cube = resample_spectral(cube, dv_kms * u.km / u.s)
     data, _ = cube_values(cube, "cube")
-    kernel = beam_kernel(cube_beam(cube), beam)
+    kernel = kernel_between(cube_beam(cube), beam)
     if kernel is not None:
         data = convolve_gaussian(data, pixel_scale_arcsec(cube), kernel, x_sign(cube))
     emitting = data[data >= floor * data.max()]
@@ -162,7 +154,8 @@ def _check_numbers(target_snr, percentile, floor):
 def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channel_width=None,
          integration_time=None, field_size=None, declination=None,
          hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s, emission_floor=0.01,
-         n_pol=2):
+         n_pol=2, map_center=None, pointing_pattern="hexagonal", pointing_spacing=None,
+         guard_band=None, max_pointings=None, primary_beam=True):
     """Planning estimate for observing one line with one setup.
 
     Parameters
@@ -181,9 +174,13 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     integration_time : Quantity, optional
         Time for which the noise per channel is reported.
     field_size : Quantity (one or two angles), optional
-        Field to cover; default the cube's extent.
+        Area to map (``map_size`` of observe); default the cube's extent.
     declination, hour_angles, sample_interval
         Interferometer track (declination default: the cube's CRVAL2).
+    map_center, pointing_pattern, pointing_spacing, guard_band, max_pointings, primary_beam
+        As for :func:`synth.observe`: the pointings counted are the pointings (or dish map
+        positions) that ``observe`` makes with the same options
+        (:func:`synth.instrument.mosaic.map_layout`).
 
     Returns
     -------
@@ -198,26 +195,34 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     freq, label = _frequency(line, cube)
     dv, dnu = _channel(channel_width, cube, freq)
     kind = _kind(setup)
+    mkw = dict(map_size=field_size, map_center=map_center, pointing_pattern=pointing_pattern,
+               pointing_spacing=pointing_spacing, guard_band=guard_band)
+    if max_pointings is not None:
+        mkw["max_pointings"] = max_pointings
     if kind == "single dish":
-        beam, lrs, rms_of, time_of, spacing = _dish_model(setup, freq)
+        beam, lrs, rms_of, time_of = _dish_model(setup, freq)
+        layout = _layout(setup, cube, freq, mkw, None)
     else:
         dec = _declination(declination, cube)
-        beam, lrs, rms_of, time_of, spacing = _array_model(setup, freq, dec, hour_angles,
-                                                           sample_interval, n_pol)
+        beam, lrs, rms_of, time_of = _array_model(setup, freq, dec, hour_angles,
+                                                  sample_interval, n_pol)
+        layout = _layout(setup, cube, freq, mkw, dict(hour_angles=hour_angles,
+                                                      sample_interval=sample_interval,
+                                                      primary_beam=primary_beam),
+                         dec.to_value(u.rad))
     rms = None if integration_time is None else rms_of(dnu, integration_time)
     target = None if cube is None else _target(cube, beam, kind, freq, percentile,
                                                emission_floor, dv.to_value(u.km / u.s))
     t_need = None if target is None else time_of(dnu, target / target_snr).to(u.s)
-    field = _field(field_size, cube)
-    n_point = 1 if field is None else hex_pointings(field[0], field[1], spacing)
-    notes = [DISCLAIMER, f"pointing spacing {spacing.to_value(u.arcsec):.3g} arcsec "
-             f"({'Nyquist map positions' if kind == 'single dish' else 'hexagonal mosaic'})"]
+    n_point = 1 if layout is None else layout.n_pointings
+    notes = [DISCLAIMER] + ([layout.describe()] if layout is not None else [])
     return Plan(setup=getattr(setup, "name", None) or kind, line=label, kind=kind,
                 frequency=freq, resolution=beam, largest_scale=lrs, channel_width=dv,
                 channel_width_hz=dnu, integration_time=integration_time, rms=rms,
                 target_snr=float(target_snr), percentile=float(percentile),
                 target_brightness=target, time_to_target=t_need, n_pointings=n_point,
-                total_time=None if t_need is None else n_point * t_need, notes=tuple(notes))
+                total_time=None if t_need is None else n_point * t_need, notes=tuple(notes),
+                layout=layout)
 
 
 def _kind(setup):
@@ -236,15 +241,9 @@ def _dish_model(dish, freq):
     if dish.tsys is None:
         raise InstrumentError("setup tsys: the dish has no tsys; give SingleDish(tsys=...)")
     beam = dish.beam_at(freq)
-    lam_arcsec = (freq.to(u.m, equivalencies=u.spectral()) /
-                  (dish.diameter if dish.diameter is not None else np.inf * u.m)
-                  ).decompose().value * 206264.80624709636
-    spacing = (0.5 * lam_arcsec if dish.diameter is not None
-               else 0.5 * beam.major.to_value(u.arcsec)) * u.arcsec
     return (beam, np.nan * u.arcsec,
             lambda dnu, t: radiometer_rms(dish.tsys, dish.efficiency, dnu, t),
-            lambda dnu, rms: time_for_rms(dish.tsys, dish.efficiency, dnu, rms),
-            spacing)
+            lambda dnu, rms: time_for_rms(dish.tsys, dish.efficiency, dnu, rms))
 
 
 def _array_model(arr, freq, dec, hour_angles, sample_interval, n_pol):
@@ -253,14 +252,25 @@ def _array_model(arr, freq, dec, hour_angles, sample_interval, n_pol):
     from .instrument.visibilities import interferometer_rms, interferometer_time
     beam = synthesized_beam_estimate(arr, freq, dec, hour_angles, sample_interval)
     lrs = largest_recoverable_scale(arr, freq, dec, hour_angles, sample_interval)
-    d_m = float(np.max(arr.diameters_m))
-    lam_m = freq.to_value(u.m, equivalencies=u.spectral())
-    spacing = lam_m / (np.sqrt(3.0) * d_m) * 206264.80624709636 * u.arcsec
     return (beam, lrs.to(u.arcsec),
             lambda dnu, t: interferometer_rms(arr, dnu, t, n_pol).value * u.Jy / u.beam,
             lambda dnu, rms: interferometer_time(arr, dnu, rms.to_value(u.Jy / u.beam) * u.Jy,
-                                                 n_pol),
-            spacing)
+                                                 n_pol))
+
+
+def _layout(setup, cube, freq, mkw, array_opts, dec_rad=None):
+    """The MapLayout observe would make (None without a cube or a field size)."""
+    from .instrument.mapping import array_layout, dish_layout, map_options
+    field = _field(mkw.pop("map_size"), None)
+    if cube is None and field is None:
+        return None
+    size = None if field is None else tuple(float(f.to_value(u.arcsec)) for f in field)
+    mopts = map_options(map_size=None if size is None else size * u.arcsec, **mkw)
+    nu = freq.to_value(u.Hz)
+    if array_opts is None:
+        return dish_layout(cube, setup, mopts, nu, model_size=size)
+    return array_layout(cube, [setup], array_opts, mopts, dec_rad, np.array([nu]),
+                        model_size=size)[0]
 
 
 def _declination(declination, cube):

@@ -5,7 +5,7 @@ import pytest
 import astropy.units as u
 
 from synth.instrument.clean import hogbom
-from synth.instrument.imaging import beam_kernel, fit_restoring_beam, restore
+from synth.instrument.imaging import fit_restoring_beam, restore, restoring_kernel
 from synth.instrument.interferometer import Interferometer, observe_interferometric
 from synth.instrument.uv import uv_tracks
 from synth.instrument.visibilities import ImageGeometry, grid_dirty, predict
@@ -72,5 +72,5 @@ def test_restore_gives_beam_peak_and_area():
     assert img[64, 64] == pytest.approx(1.0, rel=1e-12)
     area_pix = beam.sr.to_value(u.sr) / pix**2
     assert img.sum() / area_pix == pytest.approx(1.0, rel=1e-4)
-    fit = fit_restoring_beam(beam_kernel(beam, -pix, pix, shape=(129, 129)), -pix, pix)
+    fit = fit_restoring_beam(restoring_kernel(beam, -pix, pix, shape=(129, 129)), -pix, pix)
     assert fit.major.to_value(u.arcsec) == pytest.approx(1.0, rel=1e-6)

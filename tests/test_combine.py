@@ -9,7 +9,7 @@ from spectral_cube import SpectralCube
 
 from synth.errors import InstrumentError
 from synth.instrument.combine import feather_plane, split_instruments
-from synth.instrument.imaging import beam_kernel
+from synth.instrument.imaging import restoring_kernel
 from synth.instrument.interferometer import Interferometer, observe_interferometric
 
 from test_imaging import gaussian_sky, make_cube
@@ -20,19 +20,22 @@ SD_BEAM = Beam(major=8 * u.arcsec, minor=8 * u.arcsec, pa=0 * u.deg)
 
 def _sd_cube(sky):
     """Single-dish cube in Jy/beam: the Jy/pixel sky convolved with the peak-1 beam."""
-    k = beam_kernel(SD_BEAM, -np.deg2rad(PIX / 3600), np.deg2rad(PIX / 3600))
+    k = restoring_kernel(SD_BEAM, -np.deg2rad(PIX / 3600), np.deg2rad(PIX / 3600))
     data = np.array([fftconvolve(p, k, mode="same") for p in sky])
     cube = make_cube(data, pix_arcsec=PIX, unit=u.Jy / u.beam)
     return cube.with_beam(SD_BEAM, raise_error_jybm=False)
 
 
 def test_feather_of_perfect_images_returns_the_sky():
-    """F_SD = B F_sky and F_int = F_sky give F = F_sky exactly (Stanimirović et al. 1999)."""
+    """F_SD = B F_sky and F_int = F_sky give F = F_sky exactly (Stanimirović et al. 1999);
+    B the Gaussian transform pair (Bracewell 2000), checked here against scipy's Gaussian
+    filter with the beam's sigma in pixels."""
+    from scipy.ndimage import gaussian_filter
     sky = gaussian_sky(128, 12.0)[0] + gaussian_sky(128, 2.0)[0]
-    dx, dy = -np.deg2rad(PIX / 3600), np.deg2rad(PIX / 3600)
-    from synth.instrument.combine import beam_transform
-    sd = np.fft.ifft2(np.fft.fft2(sky) * beam_transform(SD_BEAM, sky.shape, dx, dy)).real
-    np.testing.assert_allclose(feather_plane(sky, sd, SD_BEAM, dx, dy), sky, atol=1e-12)
+    sigma_pix = 8.0 / PIX / np.sqrt(8 * np.log(2))
+    sd = gaussian_filter(sky, sigma_pix, mode="wrap")
+    np.testing.assert_allclose(feather_plane(sky, sd, SD_BEAM, PIX), sky,
+                               atol=1e-5 * sky.max())
 
 
 def test_feathered_total_flux_equals_single_dish():
@@ -63,8 +66,9 @@ def test_feather_with_single_dish_instance():
     dish = SingleDish(diameter=50 * u.m, efficiency=0.7, tsys=100 * u.K)
     cube_k = make_cube(sky * 1e3, pix_arcsec=PIX, unit=u.K)
     feathered = observe_interferometric(cube_k, [Interferometer("compact-16"), dish], noise=False,
-                                        primary_beam=False, sample_interval=900 * u.s)
-    sd = observe(cube_k, dish, noise=False)
+                                        primary_beam=False, sample_interval=900 * u.s,
+                                        pixel=PIX * u.arcsec)
+    sd = observe(cube_k, dish, noise=False, guard_band=0 * u.arcsec)
     omega_pix = np.deg2rad(PIX / 3600) ** 2
     sd_jy = sd.to(u.Jy / u.beam) if sd.unit.is_equivalent(u.K) else sd
     f_sd = sd_jy.unmasked_data[:].value.sum(axis=(1, 2)) * omega_pix / sd.beam.sr.value

@@ -11,7 +11,7 @@ from synth.instrument.primary_beam import pair_beam
 
 from test_imaging import gaussian_sky, make_cube
 
-KW = dict(sample_interval=600 * u.s)
+KW = dict(sample_interval=600 * u.s, pointing_pattern="single")   # one pointing (no mosaic)
 
 
 def _point_cube(y=32, x=32, nch=2):

@@ -1,8 +1,6 @@
 """Single-dish beam, K <-> Jy/beam, and the observe entry point."""
 
 import pickle
-import sys
-import types
 
 import numpy as np
 import pytest
@@ -210,7 +208,8 @@ def test_observe_records_and_units():
     """observe returns the beam, the cards of our own naming, K or Jy/beam, either axis."""
     dish = SingleDish(diameter=30 * u.m, efficiency=0.7, tsys=120 * u.K, name="thirty")
     cube = line_cube()
-    obs = observe(cube, dish, channel_width=0.5 * KMS, integration_time=2 * u.hr, seed=1)
+    obs = observe(cube, dish, channel_width=0.5 * KMS, integration_time=2 * u.hr, seed=1,
+                  guard_band=0 * u.arcsec)
     assert obs.unit == u.K and obs.shape == (20, 48, 48)
     assert obs.beam.major.to_value(u.arcsec) == pytest.approx(
         (1.13 * const.c / (NU0_HZ * u.Hz) / (30 * u.m)).decompose().value * 206264.806, rel=1e-6)
@@ -218,10 +217,11 @@ def test_observe_records_and_units():
     assert header["INSTRUME"] == "thirty" and int(header["NSEED"]) == 1
     assert float(header["CHANWID"]) == pytest.approx(0.5) and "BMAJ" in header
     assert obs.meta["NOISERMS"] == pytest.approx(0.0046077, rel=1e-4)  # radiometer, see noise
-    jy = observe(cube, dish, noise=False, unit="Jy/beam", spectral_axis="frequency")
+    jy = observe(cube, dish, noise=False, unit="Jy/beam", spectral_axis="frequency",
+                 guard_band=0 * u.arcsec)
     assert jy.unit == u.Jy / u.beam and jy.spectral_axis.unit == u.GHz
     assert jy.meta["NSEED"] == -1 and jy.meta["NOISERMS"] == 0.0
-    k = observe(cube, dish, noise=False)
+    k = observe(cube, dish, noise=False, guard_band=0 * u.arcsec)
     np.testing.assert_allclose(to_unit(jy, "K").unmasked_data[:].value,
                                k.unmasked_data[:].value[::-1][::-1], rtol=1e-9, atol=1e-12)
 
@@ -241,27 +241,6 @@ def test_observe_accepts_a_jy_per_beam_cube_and_does_not_mutate_input():
     np.testing.assert_array_equal(jy_cube.unmasked_data[:].value, data_before)
 
 
-def test_observe_dispatches_to_the_interferometric_path(monkeypatch):
-    """Anything named Interferometer (or a list) goes to observe_interferometric after the
-    spectral step, with the documented keywords."""
-    calls = {}
-
-    def fake(cube, instrument, *, integration_time, noise, seed, **kwargs):
-        calls.update(shape=cube.shape, instrument=instrument, noise=noise, seed=seed, **kwargs)
-        return cube
-
-    module = types.ModuleType("synth.instrument.interferometer")
-    module.observe_interferometric = fake
-    monkeypatch.setitem(sys.modules, "synth.instrument.interferometer", module)
-    Interferometer = type("Interferometer", (), {})
-    array = Interferometer()
-    observe(line_cube(), array, channel_width=1 * KMS, noise=False, seed=4, weighting="robust")
-    assert calls["shape"] == (10, 48, 48) and calls["instrument"] is array
-    assert calls["seed"] == 4 and calls["weighting"] == "robust" and calls["noise"] is False
-    observe(line_cube(), [array, SingleDish(diameter=12 * u.m)], rms=1 * u.mJy / u.beam)
-    assert calls["rms"] == 1 * u.mJy / u.beam
-
-
 @pytest.mark.parametrize("kwargs, match", [
     ({"instrument": "dish"}, "not an instrument"),
     ({"spectral_axis": "wavelength"}, "spectral_axis"),
@@ -272,6 +251,11 @@ def test_observe_dispatches_to_the_interferometric_path(monkeypatch):
     ({"rms": -0.1 * u.K}, "rms"),
     ({"foo": 1}, "unknown option"),
     ({}, "needs rms"),
+    ({"map_size": 5 * u.arcsec, "noise": False}, r"map size: 5 arcsec is smaller than one beam"),
+    ({"guard_band": -3 * u.arcsec, "noise": False}, "guard band"),
+    ({"pointing_spacing": 60 * u.arcsec, "noise": False}, "larger than the beam"),
+    ({"beyond_box": "mirror", "noise": False}, "beyond_box"),
+    ({"map_center": 3 * u.arcsec, "noise": False}, "map_center"),
 ])
 def test_bad_observe_options(kwargs, match):
     kwargs = {"instrument": SingleDish(diameter=30 * u.m), **kwargs}

@@ -23,7 +23,8 @@ from astropy.table import Table
 
 from .._optional import require
 from ..errors import InstrumentError
-from .matching import (beam_kernel, beam_text, channel_frequencies_hz, channel_velocities_ms,
+from ..sky import C_M_S
+from .matching import (kernel_between, beam_text, channel_frequencies_hz, channel_velocities_ms,
                        channel_width_ms, convolve_gaussian, cube_beam, cube_from_array,
                        cube_values, jy_per_beam_per_k, pixel_scale_arcsec, resample_channels,
                        x_sign)
@@ -77,7 +78,7 @@ def _kelvin(cube, name):
 
 
 def _smooth(data, cube, target, name, steps):
-    kernel = beam_kernel(cube_beam(cube), target) if target is not None else None
+    kernel = kernel_between(cube_beam(cube), target) if target is not None else None
     if kernel is None:
         return data
     steps.append(f"convolved {name} from {beam_text(cube_beam(cube))} to {beam_text(target)}")
@@ -189,4 +190,4 @@ def _rest_hz(cube):
     if rest > 0:
         return rest
     v0 = channel_velocities_ms(cube)[0]
-    return channel_frequencies_hz(cube)[0] / (1.0 - v0 / 299792458.0)
+    return channel_frequencies_hz(cube)[0] / (1.0 - v0 / C_M_S)

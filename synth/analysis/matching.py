@@ -7,13 +7,14 @@ Inside, cubes are plain float arrays ordered (v, y, x); the unit lives in the va
 
 import numpy as np
 import astropy.units as u
-from astropy.wcs.utils import proj_plane_pixel_scales
 
 from ..errors import InstrumentError
+from ..sky import (channel_frequencies_hz, channel_velocities_ms, gaussian_transfer,
+                   jy_per_beam_per_k, pixel_scale_arcsec)
 
 __all__ = ["cube_beam", "pixel_scale_arcsec", "channel_velocities_ms", "channel_frequencies_hz",
            "channel_width_ms", "cube_values", "unit_kind", "jy_per_beam_per_k",
-           "gaussian_transfer", "convolve_gaussian", "beam_kernel", "resample_channels",
+           "gaussian_transfer", "convolve_gaussian", "kernel_between", "resample_channels",
            "UNIT_KINDS", "cube_from_array", "x_sign", "beam_text"]
 
 #: the surface-brightness units the analysis understands
@@ -28,13 +29,6 @@ def cube_beam(cube):
     return beam
 
 
-def pixel_scale_arcsec(cube):
-    """Pixel size in arcsec; pixels must be square to 1e-6 (relative)."""
-    dx, dy = proj_plane_pixel_scales(cube.wcs.celestial) * 3600.0
-    if abs(dx - dy) > 1e-6 * dy:
-        raise InstrumentError(f"cube pixels: {dx:.6g} x {dy:.6g} arcsec are not square; "
-                              "regrid onto square pixels first")
-    return float(dy)
 
 
 def x_sign(cube):
@@ -43,29 +37,8 @@ def x_sign(cube):
     return 1.0 if pc[0, 0] > 0 else -1.0
 
 
-def channel_velocities_ms(cube):
-    """Radio-convention velocity of each channel in m/s."""
-    spec = cube.spectral_axis
-    if spec.unit.physical_type == "speed":
-        return spec.to_value(u.m / u.s)
-    rest = cube.wcs.wcs.restfrq * u.Hz
-    if not rest.value > 0:
-        raise InstrumentError("cube spectral axis: frequency axis without RESTFRQ; "
-                              "set the rest frequency to convert to velocity")
-    return spec.to_value(u.m / u.s, equivalencies=u.doppler_radio(rest))
 
 
-def channel_frequencies_hz(cube):
-    """Sky frequency of each channel in Hz (radio convention, from RESTFRQ)."""
-    spec = cube.spectral_axis
-    if spec.unit.physical_type == "frequency":
-        return spec.to_value(u.Hz)
-    rest_hz = cube.wcs.wcs.restfrq
-    if not rest_hz > 0:
-        raise InstrumentError("cube spectral axis: velocity axis without RESTFRQ; "
-                              "set the rest frequency (e.g. cube.wcs.wcs.restfrq)")
-    v_ms = spec.to_value(u.m / u.s)
-    return rest_hz * (1.0 - v_ms / 299792458.0)
 
 
 def channel_width_ms(cube):
@@ -96,36 +69,8 @@ def cube_values(cube, name="cube"):
     return data, kind
 
 
-def jy_per_beam_per_k(nu_hz, beam):
-    """Jy/beam per K of Rayleigh-Jeans brightness temperature for each frequency.
-
-    S = 2 k nu^2 Omega T / c^2 (Wilson, Rohlfs & Hüttemeister 2013, eq. 8.19, through
-    :func:`astropy.units.brightness_temperature`), with the Gaussian beam solid angle
-    Omega = pi theta_maj theta_min / (4 ln 2).
-    """
-    nu = np.atleast_1d(np.asarray(nu_hz, dtype=np.float64)) * u.Hz
-    eq = u.brightness_temperature(nu, beam_area=beam.sr)
-    return (1.0 * u.K).to_value(u.Jy, equivalencies=eq)
 
 
-def gaussian_transfer(shape, pixscale_arcsec, beam, sign=-1.0):
-    """Fourier transform (peak 1) of a Gaussian beam sampled on an FFT grid of ``shape``.
-
-    For a Gaussian with covariance Sigma the transform is exp(-2 pi^2 k^T Sigma k)
-    (Bracewell 2000, The Fourier Transform and its Applications, ch. 6). The major axis lies
-    at position angle PA east of north; north is +y and east is ``sign`` * x.
-    """
-    ny, nx = shape
-    ky = np.fft.fftfreq(ny, d=pixscale_arcsec)[:, None]
-    kx = np.fft.fftfreq(nx, d=pixscale_arcsec)[None, :]
-    fwhm_to_sigma = 1.0 / np.sqrt(8.0 * np.log(2.0))
-    s_maj = beam.major.to_value(u.arcsec) * fwhm_to_sigma
-    s_min = beam.minor.to_value(u.arcsec) * fwhm_to_sigma
-    pa = beam.pa.to_value(u.rad)
-    dx, dy = sign * np.sin(pa), np.cos(pa)       # unit vector along the major axis
-    k_maj = kx * dx + ky * dy
-    k_min = -kx * dy + ky * dx
-    return np.exp(-2.0 * np.pi**2 * (s_maj**2 * k_maj**2 + s_min**2 * k_min**2))
 
 
 def convolve_gaussian(data, pixscale_arcsec, beam, sign=-1.0):
@@ -143,7 +88,7 @@ def convolve_gaussian(data, pixscale_arcsec, beam, sign=-1.0):
     return np.fft.irfft2(spec, s=shape)[..., :ny, :nx]
 
 
-def beam_kernel(beam_from, beam_to):
+def kernel_between(beam_from, beam_to):
     """The beam that takes ``beam_from`` to ``beam_to`` (None when they are equal).
 
     Uses radio-beam's ``Beam.deconvolve``; a ``beam_from`` of None means the data are at

@@ -15,7 +15,8 @@ import astropy.units as u
 from astropy.table import Table
 
 from ..errors import InstrumentError
-from .matching import (beam_kernel, beam_text, channel_frequencies_hz, channel_velocities_ms,
+from ..sky import ARCSEC_PER_RAD
+from .matching import (kernel_between, beam_text, channel_frequencies_hz, channel_velocities_ms,
                        channel_width_ms, convolve_gaussian, cube_beam, cube_values,
                        jy_per_beam_per_k, pixel_scale_arcsec, resample_channels, x_sign)
 from .moments import Moments, _noise_value, moments_from_arrays, noise_rms, signal_mask
@@ -109,7 +110,7 @@ def reference_cube(ideal, observed):
     data_k = _match_channels(ideal, observed, data_k, notes)
     ref_k = data_k
     if beam_o is not None:
-        kernel = beam_kernel(beam_i, beam_o)
+        kernel = kernel_between(beam_i, beam_o)
         if kernel is not None:
             ref_k = convolve_gaussian(data_k, pixel_scale_arcsec(observed), kernel,
                                       x_sign(observed))
@@ -229,8 +230,8 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
     nu_hz = channel_frequencies_hz(observed)
     emitting = ref >= emission_floor * ref.max()
     obs_mask = signal_mask(obs, sigma, floor=emission_floor)
-    flux_o = _flux_jy(obs, kind, beam, nu_hz, (pix / 206264.80624709636) ** 2)
-    flux_i = _flux_jy(ideal_k, "K", None, nu_hz, (pix / 206264.80624709636) ** 2)
+    flux_o = _flux_jy(obs, kind, beam, nu_hz, (pix / ARCSEC_PER_RAD) ** 2)
+    flux_i = _flux_jy(ideal_k, "K", None, nu_hz, (pix / ARCSEC_PER_RAD) ** 2)
     pbm = _pb_mask(obs.shape[1:], pix, primary_beam)
     table = recovery_table(obs, ref, pix, nbins)
     half, bounded = half_recovery_scale(table)

@@ -23,10 +23,11 @@ from radio_beam.utils import BeamError
 from scipy.signal import fftconvolve
 
 from ..errors import BeamUndersampledWarning, InstrumentError
+from ..sky import channel_frequencies_hz
 from .cube_utils import (BRIGHTNESS_UNITS, brightness_kind, check_cube, cube_values,
-                         new_cube, pixel_scale, reference_frequency)
+                         new_cube, pixel_scale)
 
-__all__ = ["TAPER_RANGE", "dish_beam", "beam_kernel", "convolve_beam", "sky_frequencies",
+__all__ = ["TAPER_RANGE", "dish_beam", "pixel_kernel", "convolve_beam", "sky_frequencies",
            "k_to_jy_per_beam", "jy_per_beam_to_k", "to_unit", "unit_name", "jy_per_k"]
 
 #: allowed FWHM / (lambda / D): uniform illumination (1.02) to very strong taper
@@ -54,7 +55,7 @@ def dish_beam(diameter, frequency, taper=1.13):
     return Beam((fwhm_rad * u.rad).to(u.arcsec))
 
 
-def beam_kernel(beam, pixscale):
+def pixel_kernel(beam, pixscale):
     """The beam as a 2-D convolution kernel on pixels of size ``pixscale``, summing to 1.
 
     Built by ``Beam.as_kernel`` (astropy ``EllipticalGaussian2DKernel``; PA counted from north
@@ -116,7 +117,7 @@ def convolve_beam(cube, beam):
     kernel_beam = _kernel_beam(cube, beam)
     data = cube_values(kcube)
     if kernel_beam is not None:
-        kernel = beam_kernel(kernel_beam, pixscale)[None]
+        kernel = pixel_kernel(kernel_beam, pixscale)[None]
         for start in range(0, data.shape[0], _CHANNEL_BLOCK):
             block = slice(start, start + _CHANNEL_BLOCK)
             data[block] = fftconvolve(data[block], kernel, mode="same", axes=(1, 2))
@@ -126,8 +127,7 @@ def convolve_beam(cube, beam):
 
 def sky_frequencies(cube):
     """Sky frequency of every channel (Quantity, Hz), radio convention about RESTFRQ."""
-    return cube.with_spectral_unit(u.Hz, velocity_convention="radio",
-                                   rest_value=reference_frequency(cube)).spectral_axis
+    return channel_frequencies_hz(cube) * u.Hz
 
 
 def jy_per_k(beam, freq):

@@ -1,7 +1,7 @@
 """Combination: joint imaging of several arrays and feathering with a single dish.
 
 Joint imaging concatenates the arrays' visibilities (each with its own uv tracks, noise and
-primary beam) before weighting and gridding; see
+primary beam) before weighting and gridding, pointing by pointing; see
 :func:`synth.instrument.interferometer.assemble_tracks`.
 
 Feathering (Stanimirović et al. 1999, MNRAS 302, 417; Cotton 2017, PASP 129, 094501) merges
@@ -10,19 +10,23 @@ the single-dish and interferometric images in the Fourier plane, both as surface
 
     F(k) = alpha F_SD(k) + [1 - B_SD(k)] F_int(k),
 
-B_SD the single-dish beam's transform normalised to 1 at k = 0 (for a Gaussian of FWHM
-theta, exp(-pi^2 theta^2 k^2 / (4 ln 2))), alpha = ``sd_scale`` (1 for calibrated data). The
-single-dish image is first multiplied by the interferometer's primary beam, so both images
-see the same sky; primary-beam correction, if asked, comes after. The result is in Jy per
-interferometer restoring beam; its total flux is the single-dish total flux (F(0) = F_SD(0)).
+B_SD the single-dish beam's transform normalised to 1 at k = 0, alpha = ``sd_scale`` (1 for
+calibrated data). The interferometric image is the **primary-beam-corrected** mosaic (one
+pointing or many), set to zero where its response is below the cutoff, so both images see
+the same, unattenuated sky; the flat-noise product is the feathered image times the mosaic's
+response. The total flux of the feathered image is alpha times the single-dish total
+(F(0) = alpha F_SD(0)) over the map: the Fourier product is taken on the map itself
+(circular), so the high-pass filtered interferometric image adds no net flux to the map
+(zero-padding would move part of its negative bowl off the map and add flux).
 """
 
 import astropy.units as u
 import numpy as np
 
 from ..errors import InstrumentError
+from ..sky import gaussian_transfer
 
-__all__ = ["split_instruments", "feather_plane", "feather_cube", "beam_transform"]
+__all__ = ["split_instruments", "feather_plane", "feather_corrected", "dish_on_grid"]
 
 
 def _is_dish(item):
@@ -45,73 +49,76 @@ def split_instruments(instrument):
     if len(dishes) > 1:
         raise InstrumentError(f"instrument: at most one single dish (or single-dish cube) can be "
                               f"feathered, got {len(dishes)}")
+    if len({id(a) for a in arrays}) != len(arrays):
+        raise InstrumentError("instrument: the same Interferometer is listed twice; its "
+                              "visibilities would be counted twice")
     return arrays, (dishes[0] if dishes else None)
 
 
-def beam_transform(beam, shape, dx_rad, dy_rad):
-    """Fourier transform of a Gaussian beam (peak-normalised image) on the FFT grid of an
-    image ``shape`` (ny, nx), normalised to 1 at k = 0 (Bracewell 2000, Gaussian pair)."""
-    ky = np.sign(dy_rad) * np.fft.fftfreq(shape[0], abs(dy_rad))
-    kx = np.sign(dx_rad) * np.fft.fftfreq(shape[1], abs(dx_rad))
-    km, kl = np.meshgrid(ky, kx, indexing="ij")
-    pa = beam.pa.to_value(u.rad)
-    ka = kl * np.sin(pa) + km * np.cos(pa)
-    kb = kl * np.cos(pa) - km * np.sin(pa)
-    maj, mnr = beam.major.to_value(u.rad), beam.minor.to_value(u.rad)
-    return np.exp(-np.pi**2 * (maj**2 * ka**2 + mnr**2 * kb**2) / (4 * np.log(2)))
-
-
-def feather_plane(int_jysr, sd_jysr, sd_beam, dx_rad, dy_rad, sd_scale=1.0):
-    """Feathered plane (Jy/sr) of one channel; see the module docstring."""
-    b = beam_transform(sd_beam, int_jysr.shape, dx_rad, dy_rad)
+def feather_plane(int_jysr, sd_jysr, sd_beam, pixel_arcsec, sd_scale=1.0):
+    """Feathered plane (Jy/sr) of one channel; see the module docstring. Images are (y, x)
+    with RA decreasing with x (CDELT1 < 0)."""
+    b = gaussian_transfer(int_jysr.shape, pixel_arcsec, sd_beam, sign=-1.0)
     f = sd_scale * np.fft.fft2(sd_jysr) + (1.0 - b) * np.fft.fft2(int_jysr)
     return np.fft.ifft2(f).real
 
 
-def _single_dish_cube(dish, sky_cube, noise, seed):
+def _k_to_jysr(nu_hz):
+    return (1 * u.K).to_value(u.Jy / u.sr, u.brightness_temperature(nu_hz * u.Hz))
+
+
+def feather_corrected(corrected_jyb, valid, sd_k, sd_beam, int_beam, freqs_hz, pixel_arcsec,
+                      sd_scale=1.0):
+    """Feather a primary-beam-corrected interferometric cube (Jy/beam of ``int_beam``; zero
+    where ``valid`` is False) with a single-dish cube in K on the same grid. Returns Jy per
+    interferometric beam, channel by channel."""
+    omega_int = int_beam.sr.to_value(u.sr)
+    out = np.empty_like(corrected_jyb)
+    for c, nu in enumerate(freqs_hz):
+        int_plane = np.where(valid[c], corrected_jyb[c], 0.0) / omega_int
+        sd_plane = sd_k[c] * _k_to_jysr(nu)
+        out[c] = feather_plane(int_plane, sd_plane, sd_beam, pixel_arcsec, sd_scale) * omega_int
+    return out
+
+
+def _reprojected(sd, target, name):
+    """A single-dish cube on the target cube's celestial grid (reproject, bilinear), in K."""
+    from reproject import reproject_interp
+    from .beam import to_unit
+    if sd.shape[0] != target.shape[0]:
+        raise InstrumentError(f"{name}: {sd.shape[0]} channels, the interferometric cube has "
+                              f"{target.shape[0]}; observe the same sky cube with both")
+    if getattr(sd, "_beam", None) is None:
+        raise InstrumentError(f"{name}: the single-dish cube has no beam; attach one with "
+                              "with_beam")
+    sd_k = to_unit(sd, "K") if not sd.unit.is_equivalent(u.K) else sd
+    data = np.asarray(sd_k.filled_data[:].to_value(u.K), dtype=np.float64)
+    out = np.empty(target.shape)
+    for c in range(target.shape[0]):
+        out[c], _ = reproject_interp((data[c], sd_k.wcs.celestial), target.wcs.celestial,
+                                     shape_out=target.shape[1:])
+    return np.nan_to_num(out), sd.beam
+
+
+def dish_on_grid(dish, canvas_sky, out_sl, out_sky, dish_opts, noise, seed, hanning=False):
+    """The single dish's image in K on the output grid, its beam and its name.
+
+    A SingleDish is observed on the whole canvas (so flux spilled by its beam near the map
+    edge is kept) with ``dish_opts`` (integration_time, rms, noise, seed; default noiseless);
+    a single-dish SpectralCube is resampled onto the grid (reproject, bilinear).
+    """
     from spectral_cube import SpectralCube
     if isinstance(dish, SpectralCube):
-        return dish
-    from .observe import observe
-    return observe(sky_cube, dish, noise=noise, seed=seed)
-
-
-def _sd_jysr(sd, c, nu_hz):
-    """One single-dish channel as Jy/sr (K via Rayleigh-Jeans, Jy/beam via the beam area)."""
-    plane = np.nan_to_num(np.asarray(sd.filled_data[c].value)) * sd.unit
-    if sd.unit.is_equivalent(u.K):
-        return plane.to_value(u.Jy / u.sr, u.brightness_temperature(nu_hz * u.Hz))
-    if sd.unit.is_equivalent(u.Jy / u.beam):
-        return (plane.to(u.Jy / u.beam) / sd.beam.sr).to_value(u.Jy / (u.beam * u.sr))
-    raise InstrumentError(f"single-dish cube unit {sd.unit} must be K or Jy/beam")
-
-
-def feather_cube(obs, dish, sky_cube, pb_at, *, noise=True, seed=None, pb_correct=False,
-                 pb_limit=0.2, sd_scale=1.0):
-    """Feather the interferometric cube ``obs`` (Jy/beam) with a single dish, channel by
-    channel. ``pb_at(c)`` gives the effective primary beam of channel c."""
-    from .interferometer import new_observed_cube
-    from .visibilities import cube_frequencies_hz, cube_geometry
-    sd = _single_dish_cube(dish, sky_cube, noise, seed)
-    if sd.shape != obs.shape:
-        raise InstrumentError(f"single-dish cube shape {sd.shape} differs from the "
-                              f"interferometric cube {obs.shape}; observe the same sky cube")
-    if getattr(sd, "_beam", None) is None:
-        raise InstrumentError("single-dish cube has no beam; attach one with with_beam")
-    geom, _, _ = cube_geometry(obs)
-    freqs = cube_frequencies_hz(obs)
-    omega_int = obs.beam.sr.to_value(u.sr)
-    out = np.empty(obs.shape)
-    for c, nu in enumerate(freqs):
-        pb = pb_at(c)
-        sd_plane = _sd_jysr(sd, c, nu) * pb
-        int_plane = np.asarray(obs.filled_data[c].value) / omega_int
-        img = feather_plane(int_plane, sd_plane, sd.beam, geom.dx_rad, geom.dy_rad,
-                            sd_scale) * omega_int
-        if pb_correct:
-            img = np.where(pb >= pb_limit, img / np.maximum(pb, 1e-30), np.nan)
-        out[c] = img
-    meta = dict(obs.meta)
-    meta.update(INSTRUME=f"{obs.meta.get('INSTRUME', '')}+{sd.meta.get('INSTRUME', 'dish')}",
-                FEATHER=True, SDSCALE=float(sd_scale), PBCORR=bool(pb_correct))
-    return new_observed_cube(obs, out, meta, obs.beam)
+        data, beam = _reprojected(dish, out_sky, "single-dish cube")
+        return data, beam, str(dish.meta.get("INSTRUME", "dish"))
+    from .single_dish import observe_single_dish
+    opts = {"noise": False, "seed": seed}
+    opts.update(dish_opts)
+    opts["noise"] = bool(opts["noise"]) and noise
+    unknown = set(opts) - {"noise", "seed", "integration_time", "rms"}
+    if unknown:
+        raise InstrumentError(f"dish_options: unknown {sorted(unknown)}; valid: "
+                              "integration_time, rms, noise, seed")
+    sd = observe_single_dish(canvas_sky, dish, unit="K", hanning=hanning, **opts)
+    data = np.asarray(sd.filled_data[:].to_value(u.K))[:, out_sl[0], out_sl[1]]
+    return data, sd.beam, dish.name

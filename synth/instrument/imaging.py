@@ -1,21 +1,12 @@
-"""Imaging helpers: restoring-beam fit, Gaussian restoring kernel, and the fast approximate path.
-
-The fast path ("sampling-grid" path) skips visibility prediction: it multiplies the discrete
-Fourier transform of the (primary-beam weighted) sky, on a grid padded to twice the image, by
-the gridded sampling function W(u, v) = sum of imaging weights per uv cell, adds noise drawn
-per occupied cell with variance sum_k w_k^2 sigma_k^2, and transforms back (the convolution
-theorem; Thompson, Moran & Swenson 2017, 3rd ed., sec. 5.2 and ch. 10). It differs from the
-full path because each visibility is moved to the centre of its cell (nearest-cell gridding:
-the PSF is exact only near the phase centre; sidelobes far from it, at distances approaching
-the padded field, are wrong), and because one effective primary beam is used for all baselines.
+"""Imaging helpers: restoring-beam fit, Gaussian restoring kernel, uv-coverage figure.
 """
 
 import numpy as np
 from scipy.signal import fftconvolve
 
-from .primary_beam import C_M_S
+from ..sky import ARCSEC_PER_RAD, C_M_S
 
-__all__ = ["fit_restoring_beam", "beam_kernel", "restore", "fast_dirty", "fast_psf", "plot_uv_and_beam",
+__all__ = ["fit_restoring_beam", "restoring_kernel", "restore", "plot_uv_and_beam",
            "MAIN_LOBE_LEVEL"]
 
 #: The PSF main lobe is the connected region around the peak above this level.
@@ -63,7 +54,7 @@ def fit_restoring_beam(psf, dx_rad, dy_rad):
     return Beam(major=fwhm[0] * u.rad, minor=fwhm[1] * u.rad, pa=pa * u.deg)
 
 
-def beam_kernel(beam, dx_rad, dy_rad, shape=None):
+def restoring_kernel(beam, dx_rad, dy_rad, shape=None):
     """Peak-1 Gaussian of ``beam`` on the pixel grid, odd-sized and centred (+-4 FWHM)."""
     import astropy.units as u
     maj = beam.major.to_value(u.rad)
@@ -81,45 +72,7 @@ def beam_kernel(beam, dx_rad, dy_rad, shape=None):
 def restore(model, residual, beam, dx_rad, dy_rad):
     """Restored image: CLEAN components convolved with the restoring beam + residuals
     (Högbom 1974, A&AS 15, 417)."""
-    return fftconvolve(model, beam_kernel(beam, dx_rad, dy_rad), mode="same") + residual
-
-
-def _cells(uvw_m, nu_hz, geom, px, py):
-    du = 1.0 / (px * abs(geom.dx_rad))
-    dv = 1.0 / (py * abs(geom.dy_rad))
-    iu = np.rint(np.sign(geom.dx_rad) * uvw_m[:, 0] * nu_hz / C_M_S / du).astype(np.int64) % px
-    iv = np.rint(np.sign(geom.dy_rad) * uvw_m[:, 1] * nu_hz / C_M_S / dv).astype(np.int64) % py
-    return iv * px + iu
-
-
-def fast_dirty(image_jy_pix, uvw_m, nu_hz, weights, geom, sigma_jy=None, rng=None):
-    """Dirty image (Jy/beam) by the fast path (module docstring); noise if ``rng`` is given.
-
-    D = Re[IFFT(W * FFT(sky) + N)] P / sum w, on a grid of P = 2 N_y x 2 N_x cells.
-    """
-    ny, nx = image_jy_pix.shape
-    py, px = 2 * geom.npy, 2 * geom.npx
-    cell = _cells(uvw_m, nu_hz, geom, px, py)
-    wgrid = np.bincount(cell, weights=weights, minlength=px * py).reshape(py, px)
-    sky = np.zeros((py, px))
-    sky[:ny, :nx] = image_jy_pix
-    spec = wgrid * np.fft.fft2(sky)
-    if rng is not None:
-        var = np.bincount(cell, weights=weights**2 * sigma_jy**2 * np.ones_like(weights),
-                          minlength=px * py).reshape(py, px)
-        spec = spec + np.sqrt(var) * (rng.standard_normal(var.shape)
-                                      + 1j * rng.standard_normal(var.shape))
-    img = np.fft.ifft2(spec).real * (px * py) / np.sum(weights)
-    return img[:ny, :nx]
-
-
-def fast_psf(uvw_m, nu_hz, weights, geom):
-    """PSF of the fast path on a (2 N_y, 2 N_x) grid, peak 1 at (N_y, N_x)."""
-    py, px = 2 * geom.npy, 2 * geom.npx
-    cell = _cells(uvw_m, nu_hz, geom, px, py)
-    wgrid = np.bincount(cell, weights=weights, minlength=px * py).reshape(py, px)
-    psf = np.fft.ifft2(wgrid).real * (px * py) / np.sum(weights)
-    return np.fft.fftshift(psf)
+    return fftconvolve(model, restoring_kernel(beam, dx_rad, dy_rad), mode="same") + residual
 
 
 def plot_uv_and_beam(arr, declination, hour_angles, sample_interval, path, freq, npix=128):
@@ -150,7 +103,7 @@ def plot_uv_and_beam(arr, declination, hour_angles, sample_interval, path, freq,
     ax1.set(xlabel="u [kλ]", ylabel="v [kλ]", aspect="equal",
             title=f"{arr.name}: uv coverage at {nu_hz / 1e9:.2f} GHz")
     ax1.invert_xaxis()
-    half = npix / 2 * pix * 206264.806
+    half = npix / 2 * pix * ARCSEC_PER_RAD
     im = ax2.imshow(psf, origin="lower", extent=[half, -half, -half, half], cmap="viridis")
     ax2.add_patch(Ellipse((0, 0), beam.minor.to_value(u.arcsec), beam.major.to_value(u.arcsec),
                           angle=-beam.pa.to_value(u.deg), fill=False, color="w"))

@@ -11,28 +11,24 @@ in afterwards (see :mod:`synth.instrument.combine`).
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import warnings
-
 import astropy.units as u
 import numpy as np
 
-from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
+from ..errors import InstrumentError
+from ..sky import C_M_S
 from .arrays import BUILTIN_LAYOUTS, builtin_layout, read_layout_csv
-from .clean import hogbom
-from .imaging import fast_dirty, fast_psf, fit_restoring_beam, restore
 from .primary_beam import PB_SHAPES, pair_beam
 from .uv import uv_tracks
-from .visibilities import (add_thermal_noise, check_sampling, cube_frequencies_hz, cube_geometry,
-                           grid_dirty, jy_per_pixel_factor, predict, visibility_sigma_jy)
-from .weighting import WEIGHTINGS, image_noise_jy, imaging_weights
+from .visibilities import (add_thermal_noise, cube_frequencies_hz, grid_dirty, predict, visibility_sigma_jy)
+from .weighting import WEIGHTINGS, image_noise_jy
 
 __all__ = ["Interferometer", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
-           "run_observation", "new_observed_cube", "Tracks"]
+           "new_observed_cube", "Tracks"]
 
 #: keyword options of observe_interferometric and their defaults
 OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s,
                        weighting="natural", robust=0.5, deconvolve=False, threshold=3.0,
-                       niter=5000, gain=0.1, fast=False, pb_correct=False, pb_limit=0.2,
+                       niter=5000, gain=0.1, pb_correct=False, pb_limit=0.2,
                        primary_beam=True, bandwidth=None,
                        sd_scale=1.0, rms=None, unit="Jy/beam")
 
@@ -145,10 +141,6 @@ class Interferometer:
         return self.quantization_efficiency * self.correlator_efficiency * self.efficiency
 
 
-#: warn when more than this fraction of the sky flux lies outside the primary-beam half power
-OUTSIDE_PB_WARN_FRACTION = 0.05
-
-
 @dataclass(frozen=True, eq=False)
 class Tracks:
     """All arrays' visibility rows: uvw (m), noise per row (Jy) and primary-beam groups.
@@ -163,8 +155,13 @@ class Tracks:
     names: tuple
 
 
-def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None):
-    """uv tracks of every array toward ``dec_rad`` with the radiometer noise of each row."""
+def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_share=1):
+    """uv tracks of every array toward ``dec_rad`` with the radiometer noise of each row.
+
+    ``n_share``: the number of pointings that share the track in turn; each row then
+    integrates 1/n_share of its sample interval (noise x sqrt(n_share)). An
+    ``integration_time`` (on-source time of this pointing) overrides it.
+    """
     uvw, sig, gid, table = [], [], [], {}
     for arr in arrays:
         t = uv_tracks(arr, dec_rad * u.rad, opts["hour_angles"], opts["sample_interval"])
@@ -175,6 +172,8 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None):
         if integration_time is not None:
             t_tot = np.unique(t.hour_angle_rad).size * t.sample_time_s
             s = s * np.sqrt(t_tot / _quantity("integration_time", integration_time, u.s).value)
+        else:
+            s = s * np.sqrt(n_share)
         uvw.append(t.uvw_m)
         sig.append(s)
         pairs = np.column_stack([np.minimum(d[t.ant1], d[t.ant2]), np.maximum(d[t.ant1], d[t.ant2])])
@@ -199,16 +198,12 @@ def _pb_images(tracks, geom, nu_hz, weights, use_pb):
     return pbs, sum(w * p for w, p in zip(wg, pbs)) / wg.sum()
 
 
-def _psf(tracks, nu_hz, weights, geom, fast):
-    if fast:
-        return fast_psf(tracks.uvw_m, nu_hz, weights, geom)
+def _psf(tracks, nu_hz, weights, geom):
     ones = np.ones(tracks.uvw_m.shape[0], dtype=np.complex128)
     return grid_dirty(ones, tracks.uvw_m, nu_hz, weights, geom, shape=(2 * geom.npy, 2 * geom.npx))
 
 
-def _dirty(sky, tracks, nu_hz, weights, geom, pbs, pb_eff, opts, rng):
-    if opts["fast"]:
-        return fast_dirty(sky * pb_eff, tracks.uvw_m, nu_hz, weights, geom, tracks.sigma_jy, rng)
+def _dirty(sky, tracks, nu_hz, weights, geom, pbs, rng):
     if len(pbs) == 1:
         vis = predict(sky * pbs[0], tracks.uvw_m, nu_hz, geom)
     else:
@@ -244,60 +239,7 @@ def _channel_width_hz(cube, freqs, opts):
     if unit.is_equivalent(u.Hz):
         return float(abs(np.diff(step)[0]) * unit.to(u.Hz))
     # radio velocity: nu = nu0 (1 - v / c)
-    return float(abs(np.diff(step)[0]) * unit.to(u.m / u.s) / 299792458.0 * cube.wcs.wcs.restfrq)
-
-
-def run_observation(cube, arrays, opts, *, noise=True, seed=None, integration_time=None):
-    """The channel loop of observe_interferometric; returns (SpectralCube, pb function)."""
-    _check_options(opts)
-    geom, _, dec_rad = cube_geometry(cube)
-    if opts.get("declination") is not None:
-        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
-    freqs = cube_frequencies_hz(cube)
-    tracks = assemble_tracks(arrays, dec_rad, opts, _channel_width_hz(cube, freqs, opts),
-                             integration_time)
-    check_sampling(geom, tracks.uvw_m, freqs.max())
-    rng = np.random.default_rng(seed) if noise else None
-    ref = freqs.size // 2
-    w_ref = imaging_weights(tracks.uvw_m, freqs[ref], tracks.sigma_jy, geom, opts["weighting"],
-                            opts["robust"])
-    if opts["rms"] is not None:
-        tracks = _scaled_to_rms(tracks, opts["rms"], w_ref)
-    beam = fit_restoring_beam(_psf(tracks, freqs[ref], w_ref, geom, opts["fast"]),
-                              geom.dx_rad, geom.dy_rad)
-    out = np.empty(cube.shape)
-    rms, iters, outside, total = [], [], 0.0, 0.0
-    for c, nu in enumerate(freqs):
-        w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
-                            opts["robust"])
-        pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
-        sky = np.nan_to_num(np.asarray(cube.filled_data[c].value)) * jy_per_pixel_factor(cube, nu, geom)
-        outside += np.abs(sky[pb_eff < 0.5]).sum()
-        total += np.abs(sky).sum()
-        img = _dirty(sky, tracks, nu, w, geom, pbs, pb_eff, opts, rng)
-        rms.append(image_noise_jy(w, tracks.sigma_jy))
-        if opts["deconvolve"]:
-            model, res, n = hogbom(img, _psf(tracks, nu, w, geom, opts["fast"]),
-                                   opts["threshold"] * rms[-1], opts["gain"], opts["niter"])
-            img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
-            iters.append(n)
-        if opts["pb_correct"]:
-            img = np.where(pb_eff >= opts["pb_limit"], img / np.maximum(pb_eff, 1e-30), np.nan)
-        out[c] = img
-    _warn_outside(outside, total)
-    meta = dict(INSTRUME="+".join(tracks.names), NOISERMS=float(np.median(rms)) if noise else 0.0,
-                NOISEUNI="Jy/beam", NSEED=seed if noise else -1, WEIGHTNG=opts["weighting"],
-                ROBUST=float(opts["robust"]), DECONV=bool(opts["deconvolve"]),
-                FASTPATH=bool(opts["fast"]), PBCORR=bool(opts["pb_correct"]),
-                NVIS=int(tracks.uvw_m.shape[0]), CLEANIT=int(np.sum(iters)),
-                THEORMS=float(np.median(rms)))
-    obs = new_observed_cube(cube, out, meta, beam)
-
-    def pb_at(c):
-        w = imaging_weights(tracks.uvw_m, freqs[c], tracks.sigma_jy, geom, opts["weighting"],
-                            opts["robust"])
-        return _pb_images(tracks, geom, freqs[c], w, opts["primary_beam"])[1]
-    return obs, pb_at
+    return float(abs(np.diff(step)[0]) * unit.to(u.m / u.s) / C_M_S * cube.wcs.wcs.restfrq)
 
 
 def _scaled_to_rms(tracks, rms, weights):
@@ -332,55 +274,8 @@ def _seed(seed, noise):
     return int(seed)
 
 
-def _warn_outside(outside, total):
-    frac = outside / total if total > 0 else 0.0
-    if frac > OUTSIDE_PB_WARN_FRACTION:
-        warnings.warn(f"{100 * frac:.1f}% of the sky cube's flux lies outside the primary-beam "
-                      "half-power radius; this model has no mosaicking, so that emission is "
-                      "attenuated or lost", FieldLargerThanPrimaryBeamWarning, stacklevel=4)
-
-
-def observe_interferometric(cube, instrument, *, noise=True, seed=None, integration_time=None,
-                            **kwargs):
-    """Observe ``cube`` with an Interferometer, or jointly with several (a list/tuple), and
-    feather with a SingleDish or single-dish cube if one is in the list.
-
-    Options (defaults in ``OBSERVE_OPTIONS``): ``hour_angles`` (start, stop) Quantity;
-    ``sample_interval`` time per sample; ``weighting`` natural / uniform / robust with
-    ``robust`` (Briggs R); ``deconvolve`` (Högbom CLEAN) with ``threshold`` (in units of the
-    image noise), ``niter``, ``gain``; ``fast`` the fast sampling-grid path; ``pb_correct``
-    (divide by the primary beam where it is >= ``pb_limit``, NaN outside); ``primary_beam``
-    (False ignores the primary beam: an idealisation for tests); ``bandwidth`` channel width
-    for single-channel cubes; ``declination`` overrides the WCS phase centre's;
-    ``integration_time`` rescales the noise to that total on-source time; ``sd_scale``
-    multiplies the single-dish image when feathering.
-    ``rms`` (Jy/beam) scales the noise to that image rms; ``unit`` "Jy/beam" or "K".
-    ``seed=None`` draws a seed and records it (NSEED).
-    Returns a SpectralCube in Jy/beam (or K) with the restoring beam; meta / header cards
-    INSTRUME, NOISERMS, NOISEUNI, NSEED, WEIGHTNG, ROBUST, DECONV, FASTPATH, PBCORR, NVIS,
-    CLEANIT, THEORMS.
-    """
-    from .combine import feather_cube, split_instruments
-    arrays, dish = split_instruments(instrument)
-    opts = dict(OBSERVE_OPTIONS)
-    unknown = set(kwargs) - set(opts) - {"declination"}
-    if unknown:
-        raise InstrumentError(f"unknown interferometer option(s) {sorted(unknown)}; valid: "
-                              f"{sorted(set(opts) | {'declination'})}")
-    opts.update(kwargs)
-    if opts["unit"] not in ("Jy/beam", "K"):
-        raise InstrumentError(f"unit={opts['unit']!r} must be 'Jy/beam' or 'K'")
-    seed = _seed(seed, noise)
-    pb_correct = opts["pb_correct"]
-    if dish is not None:
-        opts["pb_correct"] = False           # feather first, then correct
-    obs, pb_at = run_observation(cube, arrays, opts, noise=noise, seed=seed,
-                                 integration_time=integration_time)
-    if dish is not None:
-        obs = feather_cube(obs, dish, cube, pb_at, noise=noise, seed=seed,
-                           pb_correct=pb_correct, pb_limit=opts["pb_limit"],
-                           sd_scale=opts["sd_scale"])
-    if opts["unit"] == "K":
-        obs = new_observed_cube(obs, np.asarray(obs.unmasked_data[:].value), obs.meta, obs.beam,
-                                unit="K")
-    return obs
+def observe_interferometric(cube, instrument, **kwargs):
+    """Observe ``cube`` with an Interferometer, several (joint imaging) and a dish (feathered):
+    see :func:`synth.instrument.array_observe.observe_interferometric`."""
+    from .array_observe import observe_interferometric as _observe
+    return _observe(cube, instrument, **kwargs)

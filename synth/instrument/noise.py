@@ -20,7 +20,7 @@ import numpy as np
 import astropy.units as u
 
 from ..errors import InstrumentError
-from .beam import beam_kernel
+from .beam import pixel_kernel
 from .spectral import HANNING_VARIANCE_FACTOR, HANNING_WEIGHTS
 
 __all__ = ["radiometer_rms", "time_for_rms", "correlated_noise", "hanning_noise_factor"]
@@ -137,7 +137,7 @@ def correlated_noise(shape, beam, pixscale, rms, rng, hanning=False):
     if not (np.isfinite(rms_value) and rms_value >= 0):
         raise InstrumentError(f"rms: must be >= 0, got {rms!r}")
     n_chan, ny, nx = shape
-    kernel = _periodic_kernel(beam_kernel(beam, pixscale), ny, nx)
+    kernel = _periodic_kernel(pixel_kernel(beam, pixscale), ny, nx)
     gain = np.fft.rfft2(kernel) / np.sqrt(np.sum(kernel**2))
     white = rng.standard_normal((n_chan, ny, nx))
     field = np.fft.irfft2(np.fft.rfft2(white, axes=(1, 2)) * gain, s=(ny, nx), axes=(1, 2))

@@ -8,8 +8,14 @@ instruments to combine) to ``synth.instrument.interferometer.observe_interferome
 Finally the spectral axis is given as radio velocity (km/s) or frequency (GHz).
 """
 
+import numpy as np
+import astropy.units as u
+
 from ..errors import InstrumentError
-from .cube_utils import check_cube, new_cube, cube_values
+from .cube_utils import check_cube, new_cube, cube_values, reference_frequency
+from .grid import model_grid, sky_on_grid
+from .mapping import ObservedMap, dish_layout, map_options
+from .mosaic import MAX_POINTINGS
 from .single_dish import SingleDish, observe_single_dish
 from .spectral import SPECTRAL_AXES, resample_spectral, to_spectral_axis
 
@@ -24,7 +30,9 @@ def _is_interferometric(instrument):
 
 def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning=False,
             spectral_axis="velocity", integration_time=None, rms=None, noise=True,
-            seed=None, unit=None, **kwargs):
+            seed=None, unit=None, map_size=None, map_center=None, pixel=None,
+            beyond_box="empty", pointing_pattern="hexagonal", pointing_spacing=None,
+            guard_band=None, max_pointings=MAX_POINTINGS, with_maps=False, **kwargs):
     """Observe a sky cube with a single dish, an interferometer or a combination.
 
     Parameters
@@ -50,6 +58,31 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
         Seed of the noise; ``None`` draws one and records it (NSEED).
     unit : {"K", "Jy/beam"}, optional
         Output unit; default K for a single dish.
+    map_size : Quantity (one or two angles), optional
+        Width and height of the area to map; default the whole cube. An array maps an area
+        larger than its primary beam as a mosaic; a dish maps it on the fly.
+    map_center : Quantity (two angles), optional
+        Centre of the area as (east, north) offsets from the cube's reference point.
+    pixel : Quantity (angle), optional
+        Output pixel; default the cube's own when it samples the beam with >= 4 pixels per
+        FWHM, else FWHM / 4 (the model is resampled, conserving flux:
+        :mod:`synth.instrument.grid`).
+    beyond_box : {"empty", "repeat"}
+        The sky outside the cube: blank (an isolated cloud) or the cube repeated (a periodic
+        simulation box).
+    pointing_pattern : {"hexagonal", "rectangular"}
+        Array mosaic pattern; the default spacing samples the primary beam
+        (:mod:`synth.instrument.mosaic`).
+    pointing_spacing : Quantity (angle), optional
+        Mosaic pointing spacing (array) or map position spacing (dish).
+    guard_band : Quantity (angle), optional
+        Dish: extra width scanned around the area (default 1.5 beam FWHM).
+    max_pointings : int
+        Refuse maps that need more pointings (or dish positions).
+    with_maps : bool
+        Return a :class:`~synth.instrument.mapping.ObservedMap` (the corrected and
+        uncorrected products, sensitivity and response maps, the model on the output grid,
+        the layout) instead of the cube.
     **kwargs
         Passed on to the interferometric path (a single dish takes none).
 
@@ -72,27 +105,65 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
                               f"{', '.join(SPECTRAL_AXES)}")
     if not isinstance(noise, bool):
         raise InstrumentError(f"noise: must be True or False, got {noise!r}")
-    spectral = resample_spectral(cube, channel_width, channel_start, hanning=hanning)
+    mkw = dict(map_size=map_size, map_center=map_center, pixel=pixel, beyond_box=beyond_box,
+               pointing_pattern=pointing_pattern, pointing_spacing=pointing_spacing,
+               guard_band=guard_band, max_pointings=max_pointings)
+    mopts = map_options(**mkw)
     if isinstance(instrument, SingleDish):
         if kwargs:
             raise InstrumentError(f"observe: unknown option(s) for a single dish: "
                                   f"{', '.join(sorted(kwargs))}")
-        result = observe_single_dish(spectral, instrument, integration_time=integration_time,
-                                     rms=rms, noise=noise, seed=seed, unit=unit,
-                                     hanning=hanning)
+        layout = dish_layout(cube, instrument, mopts, reference_frequency(cube).to_value(u.Hz))
+        spectral = resample_spectral(cube, channel_width, channel_start, hanning=hanning)
+        result = _observe_dish_map(spectral, instrument, layout, mopts, integration_time, rms,
+                                   noise, seed, unit, hanning)
     elif _is_interferometric(instrument):
+        spectral = resample_spectral(cube, channel_width, channel_start, hanning=hanning)
         result = _observe_interferometric(spectral, instrument, integration_time, rms, noise,
-                                          seed, unit, kwargs)
+                                          seed, unit, dict(kwargs, **mkw, hanning=hanning,
+                                                           with_maps=True))
     else:
         raise InstrumentError(f"instrument: {type(instrument).__name__} is not an "
                               "instrument; use SingleDish(...), Interferometer(...) or a list "
                               "of them")
-    return _final_axis(result, spectral_axis, spectral.meta)
+    final = _final_map(result, spectral_axis, spectral.meta)
+    return final if with_maps else final.cube
+
+
+def _observe_dish_map(spectral, dish, layout, mopts, integration_time, rms, noise, seed, unit,
+                      hanning):
+    """An on-the-fly dish map: the model on the map's grid (area + guard band), then the
+    beam, noise and unit of :func:`observe_single_dish`."""
+    model_pix = model_grid(spectral).pixel_arcsec
+    pix = mopts.pixel if mopts.pixel is not None else min(model_pix, layout.pixel)
+    sky, _ = sky_on_grid(spectral, pix, layout.grid_center, layout.grid_size, mopts.beyond_box)
+    obs = observe_single_dish(sky, dish, integration_time=integration_time, rms=rms,
+                              noise=noise, seed=seed, unit=unit, hanning=hanning)
+    obs = new_cube(obs, cube_values(obs), obs.unit,
+                   meta_update={"NPOINT": layout.n_pointings, "MOSAIC": "on-the-fly",
+                                "GUARD": float(layout.guard), "PBCORR": False})
+    sens = np.full(obs.shape[1:], float(obs.meta["NOISERMS"])) * obs.unit
+    return ObservedMap(cube=obs, corrected=obs, uncorrected=obs, sensitivity=sens,
+                       response=np.ones(obs.shape[1:]), sky=sky, layout=layout)
+
+
+def _final_map(result, spectral_axis, spectral_meta):
+    """The ObservedMap with every cube on the requested spectral axis."""
+    cubes = {}
+    for key in ("cube", "corrected", "uncorrected", "sky"):
+        cube = getattr(result, key)
+        cubes[key] = cubes.get(id(cube)) or (
+            _final_axis(cube, spectral_axis, spectral_meta) if key != "sky"
+            else to_spectral_axis(cube, spectral_axis))
+        cubes[id(cube)] = cubes[key]
+    return ObservedMap(cube=cubes["cube"], corrected=cubes["corrected"],
+                       uncorrected=cubes["uncorrected"], sensitivity=result.sensitivity,
+                       response=result.response, sky=cubes["sky"], layout=result.layout)
 
 
 def _observe_interferometric(spectral, instrument, integration_time, rms, noise, seed, unit,
                              kwargs):
-    from .interferometer import observe_interferometric
+    from .array_observe import observe_interferometric
     extra = dict(kwargs)
     if rms is not None:
         extra["rms"] = rms
@@ -107,5 +178,6 @@ def _final_axis(result, spectral_axis, spectral_meta):
     records = {k: spectral_meta[k] for k in ("CHANWID", "HANNING") if k in spectral_meta}
     missing = {k: v for k, v in records.items() if k not in result.meta}
     if missing:
-        result = new_cube(result, cube_values(result), result.unit, meta_update=missing)
+        data = np.array(result.unmasked_data[:].value, dtype=np.float64)   # NaN = no data
+        result = new_cube(result, data, result.unit, meta_update=missing)
     return to_spectral_axis(result, spectral_axis)

@@ -10,13 +10,12 @@ import numpy as np
 from scipy.special import j1
 
 from ..errors import InstrumentError
+from ..sky import C_M_S
 
 __all__ = ["PB_SHAPES", "C_M_S", "gaussian_fwhm_rad", "voltage_pattern", "pair_beam",
            "half_power_radius_rad"]
 
 PB_SHAPES = ("gaussian", "airy")
-#: Speed of light in m/s (exact, SI 2019).
-C_M_S = 299792458.0
 
 
 def gaussian_fwhm_rad(nu_hz, diameter_m, taper=1.13):

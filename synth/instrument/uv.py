@@ -24,6 +24,7 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import InstrumentError
+from ..sky import C_M_S
 
 __all__ = ["UVTracks", "SIDEREAL_RATE_RAD_S", "sample_hour_angles", "enu_to_xyz", "xyz_to_uvw",
            "elevation", "uv_tracks", "uv_coverage", "largest_recoverable_scale",
@@ -176,7 +177,7 @@ def synthesized_beam_estimate(arr, freq, declination, hour_angles, sample_interv
     """
     from radio_beam import Beam
     t = uv_tracks(arr, declination, hour_angles, sample_interval)
-    uv_wl = t.uvw_m[:, :2] * u.Quantity(freq).to_value(u.Hz) / 299792458.0
+    uv_wl = t.uvw_m[:, :2] * u.Quantity(freq).to_value(u.Hz) / C_M_S
     evals, evecs = np.linalg.eigh(uv_wl.T @ uv_wl / uv_wl.shape[0])
     fwhm = 2 * np.sqrt(2 * np.log(2)) / (2 * np.pi * np.sqrt(evals))   # rad; [major, minor]
     # major axis of the beam lies along the eigenvector of the smallest uv spread

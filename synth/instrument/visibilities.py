@@ -19,7 +19,7 @@ import numpy as np
 from astropy.constants import k_B
 
 from ..errors import InstrumentError
-from .primary_beam import C_M_S
+from ..sky import C_M_S, channel_frequencies_hz as cube_frequencies_hz
 
 __all__ = ["ImageGeometry", "EPSILON", "NTHREADS", "predict", "grid_dirty", "visibility_sigma_jy",
            "add_thermal_noise", "interferometer_rms", "interferometer_time", "check_sampling",
@@ -218,16 +218,6 @@ def cube_geometry(cube):
     return geom, np.deg2rad(w.wcs.crval[0]), np.deg2rad(w.wcs.crval[1])
 
 
-def cube_frequencies_hz(cube):
-    """Channel frequencies (Hz) of a cube with a frequency or (radio) velocity axis."""
-    spec = cube.spectral_axis
-    if spec.unit.is_equivalent(u.Hz):
-        return spec.to_value(u.Hz)
-    restfrq = cube.wcs.wcs.restfrq
-    if not restfrq > 0:
-        raise InstrumentError("cube spectral axis is a velocity but the WCS has no RESTFRQ")
-    return cube.with_spectral_unit(u.Hz, velocity_convention="radio",
-                                   rest_value=restfrq * u.Hz).spectral_axis.to_value(u.Hz)
 
 
 def jy_per_pixel_factor(cube, nu_hz, geom):

@@ -1,0 +1,240 @@
+"""The interferometric observation of a sky cube: one pointing or a mosaic, joint arrays,
+feathering with a single dish.
+
+``observe_interferometric`` lays out the map (:mod:`synth.instrument.mosaic`), puts the
+model on the output grid (:mod:`synth.instrument.grid`), then streams over channels: for each
+channel and pointing it multiplies the sky (Jy/pixel) by the primary beam of each dish pair,
+predicts visibilities with ducc0's gridder, adds radiometer noise, weights, grids the dirty
+image and, if asked, deconvolves with Högbom CLEAN and restores with a Gaussian fitted to the
+PSF main lobe. The pointings are combined as a linear mosaic (:mod:`synth.instrument.mapping`).
+Several arrays are imaged jointly (their visibilities concatenated per pointing); a single
+dish in the list is feathered in afterwards (:mod:`synth.instrument.combine`).
+"""
+
+import warnings
+
+import astropy.units as u
+import numpy as np
+
+from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
+from ..sky import ARCSEC_PER_RAD
+from .clean import hogbom
+from .combine import dish_on_grid, feather_corrected, split_instruments
+from .grid import place_model
+from .imaging import fit_restoring_beam, restore
+from .interferometer import (OBSERVE_OPTIONS, Tracks, _channel_width_hz, _check_options,
+                             _dirty, _pb_images, _psf, _quantity, _seed, assemble_tracks,
+                             new_observed_cube)
+from .mapping import (MapOptions, ObservedMap, array_canvas, array_layout, map_options,
+                      pointing_hour_angles, primary_beam_fwhm_arcsec, sub_boxes)
+from .visibilities import (ImageGeometry, check_sampling, cube_frequencies_hz, cube_geometry,
+                           jy_per_pixel_factor)
+from .weighting import image_noise_jy, imaging_weights
+
+__all__ = ["observe_interferometric", "MAP_KEYS", "OUTSIDE_PB_WARN_FRACTION"]
+
+#: keyword options that describe the mapped area (see synth.instrument.mapping.map_options)
+MAP_KEYS = ("map_size", "map_center", "pixel", "beyond_box", "pointing_pattern",
+            "pointing_spacing", "guard_band", "max_pointings")
+#: warn when more than this fraction of the sky flux lies where the map's response is < 1/2
+OUTSIDE_PB_WARN_FRACTION = 0.05
+
+
+def _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs, integration_time):
+    """Per pointing: (Tracks, ImageGeometry of its sub-image, (slice y, slice x))."""
+    geom0, _, _ = cube_geometry(cube)
+    dx = -canvas.pixel_arcsec / ARCSEC_PER_RAD
+    dy = canvas.pixel_arcsec / ARCSEC_PER_RAD
+    dnu = _channel_width_hz(cube, freqs, opts)
+    n = layout.n_pointings
+    out = []
+    for p, (sy, sx, x0, y0) in enumerate(sub_boxes(canvas, layout, half)):
+        east, north = layout.pointings[p]
+        dec_p = dec_rad + north / ARCSEC_PER_RAD
+        o = dict(opts, hour_angles=pointing_hour_angles(opts, p, n, east, dec_rad))
+        tracks = assemble_tracks(arrays, dec_p, o, dnu, integration_time, n_share=n)
+        geom = ImageGeometry(sx.stop - sx.start, sy.stop - sy.start, dx, dy, x0, y0)
+        out.append((tracks, geom, (sy, sx)))
+    check_sampling(out[0][1], np.concatenate([t.uvw_m for t, _, _ in out]), freqs.max())
+    return out
+
+
+def _scale_to_rms(pointings, rms, nu, opts):
+    """Tracks scaled so that each pointing's image noise is ``rms`` (Jy/beam)."""
+    target = _quantity("rms", rms, u.Jy / u.beam).value
+    out = []
+    for tracks, geom, box in pointings:
+        w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                            opts["robust"])
+        scale = target / image_noise_jy(w, tracks.sigma_jy)
+        out.append((Tracks(tracks.uvw_m, tracks.sigma_jy * scale, tracks.groups, tracks.names),
+                    geom, box))
+    return out
+
+
+def _image_channel(plane, pointings, nu, opts, beam, rng, shape):
+    """One channel: every pointing imaged and combined. Returns (corrected, response^2-sum
+    den, median pointing noise, CLEAN iterations)."""
+    num, den = np.zeros(shape), np.zeros(shape)
+    noise, iters = [], 0
+    for tracks, geom, (sy, sx) in pointings:
+        w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                            opts["robust"])
+        pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
+        img = _dirty(plane[sy, sx], tracks, nu, w, geom, pbs, rng)
+        s_p = image_noise_jy(w, tracks.sigma_jy)
+        if opts["deconvolve"]:
+            model, res, k = hogbom(img, _psf(tracks, nu, w, geom), opts["threshold"] * s_p,
+                                   opts["gain"], opts["niter"])
+            img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
+            iters += k
+        num[sy, sx] += pb_eff * img / s_p**2
+        den[sy, sx] += pb_eff**2 / s_p**2
+        noise.append(s_p)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        corrected = np.where(den > 0, num / den, 0.0)
+    return corrected, den, float(np.median(noise)), iters
+
+
+def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
+    """The channel loop: corrected and flat-noise mosaics, response and noise per channel,
+    restoring beam, CLEAN iterations, the sky fraction where the response is < 1/2."""
+    rng = np.random.default_rng(seed) if noise else None
+    ref = freqs.size // 2
+    t0, g0, _ = pointings[0]
+    w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
+    beam = fit_restoring_beam(_psf(t0, freqs[ref], w0, g0), g0.dx_rad, g0.dy_rad)
+    canvas_geom = ImageGeometry(sky.shape[2], sky.shape[1], g0.dx_rad, g0.dy_rad, 0.0, 0.0)
+    ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
+    corrected = np.empty((freqs.size, ny, nx))
+    response = np.empty((freqs.size, ny, nx))
+    rms, iters, outside, total = [], 0, 0.0, 0.0
+    for c, nu in enumerate(freqs):
+        plane = np.nan_to_num(np.asarray(sky.filled_data[c].value)) \
+            * jy_per_pixel_factor(sky, nu, canvas_geom)
+        img, den, s_ref, k = _image_channel(plane, pointings, nu, opts, beam, rng, plane.shape)
+        resp = s_ref * np.sqrt(den)
+        outside += np.abs(plane[resp < 0.5]).sum()
+        total += np.abs(plane).sum()
+        corrected[c], response[c] = img[out_sl], resp[out_sl]
+        rms.append(s_ref)
+        iters += k
+    frac = outside / total if total > 0 else 0.0
+    return corrected, response, np.asarray(rms), beam, iters, frac
+
+
+def _warn_outside(frac, layout):
+    if frac > OUTSIDE_PB_WARN_FRACTION:
+        hint = ("map a larger area (map_size) to mosaic it" if layout.n_pointings == 1
+                else "map a larger area (map_size)")
+        warnings.warn(f"{100 * frac:.1f}% of the sky cube's flux lies where the map's response "
+                      f"is below one half ({layout.n_pointings} pointing(s)); that emission is "
+                      f"attenuated or lost: {hint}", FieldLargerThanPrimaryBeamWarning,
+                      stacklevel=5)
+
+
+def _split_options(kwargs):
+    opts = dict(OBSERVE_OPTIONS)
+    mkw = {k: kwargs.pop(k) for k in MAP_KEYS if k in kwargs}
+    dish_opts = kwargs.pop("dish_options", None) or {}
+    unknown = set(kwargs) - set(opts) - {"declination"}
+    if unknown:
+        raise InstrumentError(f"unknown interferometer option(s) {sorted(unknown)}; valid: "
+                              f"{sorted(set(opts) | {'declination', 'dish_options'} | set(MAP_KEYS))}")
+    opts.update(kwargs)
+    if opts["unit"] not in ("Jy/beam", "K"):
+        raise InstrumentError(f"unit={opts['unit']!r} must be 'Jy/beam' or 'K'")
+    _check_options(opts)
+    return opts, map_options(**mkw), dish_opts
+
+
+def observe_interferometric(cube, instrument, *, noise=True, seed=None, integration_time=None,
+                            with_maps=False, hanning=False, **kwargs):
+    """Observe ``cube`` with an Interferometer, or jointly with several (a list/tuple), and
+    feather with a SingleDish or single-dish cube if one is in the list.
+
+    Imaging options (defaults in ``OBSERVE_OPTIONS``): ``hour_angles`` (start, stop)
+    Quantity; ``sample_interval`` time per sample; ``weighting`` natural / uniform / robust
+    with ``robust`` (Briggs R); ``deconvolve`` (Högbom CLEAN) with ``threshold`` (in units of
+    the image noise), ``niter``, ``gain``; ``pb_correct`` returns the primary-beam-corrected
+    product (NaN where the response is < ``pb_limit``) instead of the flat-noise one;
+    ``primary_beam`` (False ignores it: an idealisation for tests); ``bandwidth`` channel
+    width for single-channel cubes; ``declination`` overrides the WCS phase centre's;
+    ``integration_time`` the on-source time of each pointing (default: the track, shared in
+    turn by the pointings); ``sd_scale`` multiplies the single-dish image when feathering;
+    ``dish_options`` (integration_time, rms, noise, seed) for a SingleDish instrument in the
+    list. ``rms`` (Jy/beam) scales each pointing's noise to that image rms; ``unit``
+    "Jy/beam" or "K". ``seed=None`` draws a seed and records it (NSEED).
+
+    Map options (see :func:`synth.instrument.mapping.map_options`): ``map_size``,
+    ``map_center``, ``pixel``, ``beyond_box``, ``pointing_pattern``, ``pointing_spacing``,
+    ``max_pointings``.
+
+    Returns a SpectralCube in Jy/beam (or K) with the restoring beam, or with ``with_maps``
+    an :class:`~synth.instrument.mapping.ObservedMap`. Header cards INSTRUME, NOISERMS,
+    NOISEUNI, NSEED, WEIGHTNG, ROBUST, DECONV, PBCORR, PBLIMIT, NPOINT, MOSAIC, NVIS,
+    CLEANIT, THEORMS.
+    """
+    arrays, dish = split_instruments(instrument)
+    opts, mopts, dish_opts = _split_options(dict(kwargs))
+    seed = _seed(seed, noise)
+    _, _, dec_rad = cube_geometry(cube)
+    if opts.get("declination") is not None:
+        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
+    freqs = cube_frequencies_hz(cube)
+    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs)
+    pb_max, _ = primary_beam_fwhm_arcsec(arrays, float(freqs.min()))
+    if not opts["primary_beam"]:
+        pb_max = np.inf          # no primary beam: every pointing images the whole map
+    canvas, grid, zshape, offset, out_sl, half = array_canvas(cube, layout, pixel, pb_max,
+                                                              mopts.beyond_box)
+    sky = place_model(cube, canvas, zshape, offset, mopts.beyond_box)
+    pointings = _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs,
+                           integration_time)
+    if opts["rms"] is not None:
+        pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
+    corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
+                                                          seed, out_sl)
+    _warn_outside(frac, layout)
+    out_sky = sky[:, out_sl[0], out_sl[1]]
+    meta = dict(INSTRUME="+".join(pointings[0][0].names),
+                NOISERMS=float(np.median(rms)) if noise else 0.0,
+                NOISEUNI="Jy/beam", NSEED=seed if noise else -1, WEIGHTNG=opts["weighting"],
+                ROBUST=float(opts["robust"]), DECONV=bool(opts["deconvolve"]),
+                NPOINT=layout.n_pointings,
+                MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
+                PBLIMIT=float(opts["pb_limit"]),
+                NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
+                CLEANIT=int(iters), THEORMS=float(np.median(rms)))
+    if dish is not None:
+        sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
+                                              seed, hanning)
+        corrected = feather_corrected(corrected, response >= opts["pb_limit"], sd_k, sd_beam,
+                                      beam, freqs, canvas.pixel_arcsec, opts["sd_scale"])
+        meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
+                    SDSCALE=float(opts["sd_scale"]))
+    return _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps)
+
+
+def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps):
+    valid = response >= opts["pb_limit"]
+    flat = corrected * response
+    corr = np.where(valid, corrected, np.nan)
+    unit = opts["unit"]
+    c_cube = new_observed_cube(out_sky, corr, dict(meta, PBCORR=True), beam, unit=unit)
+    f_cube = new_observed_cube(out_sky, flat, dict(meta, PBCORR=False), beam, unit=unit)
+    chosen = c_cube if opts["pb_correct"] else f_cube
+    if not with_maps:
+        return chosen
+    mid = corrected.shape[0] // 2
+    with np.errstate(divide="ignore"):
+        sens = np.where(response[mid] > 0, rms[mid] / response[mid], np.inf)
+    if unit == "K":
+        nu = cube_frequencies_hz(out_sky)[mid]
+        sens = sens * float(beam.jtok(nu * u.Hz).value)
+    return ObservedMap(cube=chosen, corrected=c_cube, uncorrected=f_cube,
+                       sensitivity=sens * u.Unit(unit), response=response[mid], sky=out_sky,
+                       layout=layout)
+
+
+__all__ += ["MapOptions"]
