@@ -69,15 +69,21 @@ def _provenance(header, conf_hash, extra):
     for key in _NUMERIC_CARDS:  # spectral-cube keeps meta as strings: restore the numbers
         if key in header and isinstance(header[key], str):
             try:
-                header[key] = float(header[key])
+                number = float(header[key])
+                header[key] = int(number) if key in _INTEGER_CARDS else number
             except ValueError:
                 pass
+    for key in _LOGICAL_CARDS:   # ... and the FITS logicals
+        if key in header and isinstance(header[key], str) and header[key] in ("True", "False"):
+            header[key] = header[key] == "True"
     return header
 
 
-#: Header cards written by the instrument stages that hold numbers.
+#: Header cards written by the instrument stages that hold numbers, integers, logicals.
 _NUMERIC_CARDS = ("NOISERMS", "CHANWID", "NSEED", "ROBUST", "NVIS", "CLEANIT", "THEORMS",
-                  "SDSCALE", "ABUND", "DISTPC", "TBG")
+                  "SDSCALE", "ABUND", "DISTPC", "TBG", "NPOINT", "PBLIMIT", "GUARD")
+_INTEGER_CARDS = ("NSEED", "NVIS", "CLEANIT", "NPOINT")
+_LOGICAL_CARDS = ("PBCORR", "DECONV", "FEATHER", "HANNING")
 
 
 def write_cube(cube, path, conf_hash=None, extra=None):

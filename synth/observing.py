@@ -15,7 +15,8 @@ import astropy.units as u
 from .errors import ConfigError
 from .fitsio import write_cube
 
-__all__ = ["make_instrument", "observe_setups", "observe_options"]
+__all__ = ["make_instrument", "observe_setups", "observe_options", "map_keywords",
+           "check_setups"]
 
 
 def make_instrument(st):
@@ -46,9 +47,27 @@ def make_instrument(st):
     return Interferometer(**kw)
 
 
-def observe_options(st):
+def map_keywords(st, beyond_box="empty"):
+    """The map keyword arguments of synth.observe for a [[setup]] table."""
+    size = st["map_size_arcsec"]
+    kw = {"beyond_box": beyond_box, "max_pointings": st["max_pointings"]}
+    if size is not None:
+        kw["map_size"] = (size if isinstance(size, list) else [size]) * u.arcsec
+    if st["map_offset_arcsec"] is not None:
+        kw["map_center"] = st["map_offset_arcsec"] * u.arcsec
+    for key, name in (("pixel_arcsec", "pixel"), ("pointing_spacing_arcsec", "pointing_spacing"),
+                      ("guard_band_arcsec", "guard_band")):
+        if st[key] is not None:
+            kw[name] = st[key] * u.arcsec
+    if st["kind"] == "array":
+        kw["pointing_pattern"] = st["pointing_pattern"]
+    return kw
+
+
+def observe_options(st, beyond_box="empty"):
     """Keyword arguments of synth.observe for a [[setup]] table."""
-    kw = {"noise": st["noise"], "seed": st["seed"], "hanning": st["hanning"]}
+    kw = {"noise": st["noise"], "seed": st["seed"], "hanning": st["hanning"],
+          **map_keywords(st, beyond_box)}
     if st["channel_width_kms"] is not None:
         kw["channel_width"] = st["channel_width_kms"] * u.km / u.s
     if st["integration_time_h"] is not None:
@@ -62,8 +81,54 @@ def observe_options(st):
         return kw
     kw.update(hour_angles=(st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
               sample_interval=st["sample_interval_s"] * u.s, weighting=st["weighting"],
-              robust=st["robust"], deconvolve=st["deconvolve"], fast=st["fast"])
+              robust=st["robust"], deconvolve=st["deconvolve"],
+              pb_limit=st["primary_beam_cutoff"], pb_correct=True)
     return kw
+
+
+def _dish_options(st):
+    """dish_options of a dish setup feathered into an array setup (its own time and seed)."""
+    kw = {"noise": st["noise"], "seed": st["seed"]}
+    if st["rms_k"] is not None:
+        kw["rms"] = st["rms_k"] * u.K
+    if st["integration_time_h"] is not None:
+        kw["integration_time"] = st["integration_time_h"] * u.hr
+    return kw
+
+
+def check_setups(conf, lines, sky_size_arcsec):
+    """Every setup's instrument and map layout for every tracer line, before any synthesis:
+    a bad setup (missing key, map smaller than a beam, spacing wider than the primary beam,
+    too many pointings, pixel too coarse) is refused here in one line naming the setup.
+    ``sky_size_arcsec`` is the (width, height) of the ideal cubes. Returns the layouts
+    ``{(tracer, setup): MapLayout}``."""
+    from .errors import InstrumentError
+    from .instrument.mapping import array_layout, dish_layout, map_options
+    layouts = {}
+    setups = {st["name"]: st for st in conf["setup"]}
+    for st in conf["setup"]:
+        inst = make_instrument(st)
+        mkw = map_keywords(st, conf["sky"]["beyond_box"])
+        where = f"setup '{st['name']}': "
+        try:
+            mopts = map_options(**mkw)
+            for tr, line in zip(conf["tracer"], lines):
+                nu = line.frequency.to_value(u.Hz)
+                if st["kind"] == "dish":
+                    lay = dish_layout(None, inst, mopts, nu, where, model_size=sky_size_arcsec)
+                else:
+                    arrays = [inst] + [make_instrument(setups[o]) for o in st["combine_with"] or []
+                                       if setups[o]["kind"] == "array"]
+                    opts = {"hour_angles": (st["hour_angle_start_h"], st["hour_angle_stop_h"])
+                            * u.hourangle, "sample_interval": st["sample_interval_s"] * u.s}
+                    dec = np.deg2rad(conf["sky"]["dec_deg"])
+                    lay, _ = array_layout(None, arrays, opts, mopts, dec, np.array([nu]), where,
+                                          model_size=sky_size_arcsec)
+                layouts[(tr["name"], st["name"])] = lay
+        except InstrumentError as exc:
+            msg = str(exc)
+            raise ConfigError(msg if msg.startswith("setup") else where + msg) from None
+    return layouts
 
 
 def observe_setups(conf, ideal, tmp, chash, progress, log):
@@ -72,7 +137,6 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
     Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
     """
     from .instrument.observe import observe
-    from .instrument.beam import to_unit
     setups = {st["name"]: st for st in conf["setup"]}
     instruments = {name: make_instrument(st) for name, st in setups.items()}
     figures = conf["output"]["figures"]
@@ -82,25 +146,49 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
     order = sorted(setups, key=lambda n: (setups[n]["kind"] != "dish",
                                           bool(setups[n]["combine_with"])))
     jobs = [(t, s) for t in ideal for s in order]
+    beyond = conf["sky"]["beyond_box"]
     for tname, sname in tqdm(jobs, desc="observations", unit="obs", disable=not progress):
         st, cube = setups[sname], ideal[tname]
-        inst = instruments[sname]
+        inst, kw = instruments[sname], observe_options(st, beyond)
         if st["combine_with"]:
-            inst = [inst] + [observed[(tname, o)] if setups[o]["kind"] == "dish"
-                             else instruments[o] for o in st["combine_with"]]
-        obs = observe(cube, inst, **observe_options(st))
-        base = os.path.join(tmp, f"{tname}_{sname}")
-        extra = {"SETUP": sname, "TRACER": tname}
-        unit = obs.unit.to_string()
-        write_cube(obs, f"{base}_{'jyb' if 'Jy' in unit else 'k'}.fits", chash, extra)
-        other = to_unit(obs, "K" if "Jy" in unit else "Jy/beam")
-        write_cube(other, f"{base}_{'k' if 'Jy' in unit else 'jyb'}.fits", chash, extra)
-        entry = _obs_summary(obs)
+            inst = [inst] + [instruments[o] for o in st["combine_with"]]
+            dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
+            if dish:
+                kw["dish_options"] = _dish_options(setups[dish[0]])
+        omap = observe(cube, inst, with_maps=True, **kw)
+        _write_observation(omap, os.path.join(tmp, f"{tname}_{sname}"), chash,
+                           {"SETUP": sname, "TRACER": tname})
+        entry = _obs_summary(omap.cube)
+        entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
+                     pixel_arcsec=float(abs(omap.cube.wcs.wcs.cdelt[0]) * 3600),
+                     map_shape=list(omap.cube.shape[1:]))
         summary.setdefault(sname, {})[tname] = entry
-        observed[(tname, sname)] = obs
+        observed[(tname, sname)] = omap
     if figures:
         _uv_figures(setups, instruments, ideal, tmp)
+        _layout_figures(setups, observed, tmp)
     return summary, observed
+
+
+def _write_observation(omap, base, chash, extra):
+    """The observed cube in Jy/beam and K; for an array also the uncorrected (flat-noise)
+    cube and the sensitivity map."""
+    from .fitsio import write_image
+    from .instrument.beam import to_unit
+    obs = omap.cube
+    unit = obs.unit.to_string()
+    write_cube(obs, f"{base}_{'jyb' if 'Jy' in unit else 'k'}.fits", chash, extra)
+    other = to_unit(obs, "K" if "Jy" in unit else "Jy/beam")
+    write_cube(other, f"{base}_{'k' if 'Jy' in unit else 'jyb'}.fits", chash, extra)
+    if omap.uncorrected is not omap.cube:
+        flat = to_unit(omap.uncorrected, "Jy/beam")
+        write_cube(flat, f"{base}_flat_jyb.fits", chash, extra)
+        hdr = obs.wcs.celestial.to_header()
+        hdr["BUNIT"] = omap.sensitivity.unit.to_string()
+        hdr["BTYPE"] = "noise"
+        hdr["COMMENT"] = "theoretical noise per channel of the corrected map (middle channel)"
+        write_image(np.where(np.isfinite(omap.sensitivity.value), omap.sensitivity.value,
+                             np.nan), hdr, f"{base}_sensitivity.fits", chash, extra)
 
 
 def _obs_summary(obs):
@@ -120,6 +208,19 @@ def _num(v):
         return float(v)
     except (TypeError, ValueError):
         return None
+
+
+def _layout_figures(setups, observed, tmp):
+    """One figure per setup: its pointings (or dish map positions) over the first tracer's
+    moment-0 map."""
+    from .report.figures import layout_figure
+    done = set()
+    for (tname, sname), omap in observed.items():
+        if sname in done:
+            continue
+        done.add(sname)
+        layout_figure(omap, f"{sname}: {omap.layout.describe()}",
+                      os.path.join(tmp, f"layout_{sname}.png"))
 
 
 def _uv_figures(setups, instruments, ideal, tmp):

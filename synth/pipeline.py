@@ -17,6 +17,7 @@ from . import __version__
 from .config import load_config, validate_config
 from .errors import ConfigError, OutputError
 from .fitsio import config_hash, write_cube, write_image, write_json
+from .sky import ARCSEC_PER_RAD
 
 __all__ = ["run_config", "synthesize_config", "ideal_cubes", "build_snapshot", "tracer_line",
            "prepare_output", "DEMO_CONFIG"]
@@ -144,10 +145,13 @@ def _reader_kwargs(cloud):
     return kw
 
 
-def synthesize_config(conf, progress=False, memory=None, executor=None, lines=None, info=None):
+def synthesize_config(conf, progress=False, memory=None, executor=None, lines=None, info=None,
+                      preflight=None):
     """Yield (tracer table, Line, SynthesisResult) for every [[tracer]] of a validated config:
     the snapshot, view, channel grid and source placement the config describes. ``info``, a
-    dict, receives the snapshot's shape and whether it is read by tiles."""
+    dict, receives the snapshot's shape and whether it is read by tiles. ``preflight``, if
+    given, is called with the ideal cubes' sky size (width, height) in arcsec before any
+    synthesis."""
     from .transfer.synthesize import auto_velocity_range, synthesize_products
     lines = lines or [tracer_line(tr) for tr in conf["tracer"]]
     lazy = _lazy_source(conf, memory)
@@ -168,6 +172,8 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
                                       line_of_sight=view_los).value for ln in lines]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
     products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
+    if preflight is not None:
+        preflight(_sky_size_arcsec(snap, lazy, los, sky["distance_pc"]))
     from tqdm.auto import tqdm
     bar = tqdm(list(zip(conf["tracer"], lines)), desc="tracers", unit="tracer",
                disable=not progress)
@@ -185,6 +191,17 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             memory=memory, executor=executor)
 
 
+def _sky_size_arcsec(snap, lazy, los, distance_pc):
+    """(width, height) in arcsec of the ideal cubes a view makes (before synthesis)."""
+    cell_cm = (snap.block(0, 1, "z").cell_size_cm if lazy is not None else snap.cell_size_cm)
+    nx, ny, nz = snap.shape
+    axes = {"z": (nx, ny), "-z": (nx, ny), "x": (ny, nz), "-x": (ny, nz), "y": (nx, nz),
+            "-y": (nx, nz)}
+    n = axes.get(los, (max(nx, ny, nz),) * 2) if isinstance(los, str) else (max(nx, ny, nz),) * 2
+    pix = float((cell_cm * u.cm / (distance_pc * u.pc)).decompose()) * ARCSEC_PER_RAD
+    return n[0] * pix, n[1] * pix
+
+
 def ideal_cubes(config):
     """{tracer name: ideal cube} of a config (a path or a dict); nothing is written."""
     conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
@@ -196,8 +213,10 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
                "snapshot": {}, "tracers": {}}
     ideal = {}
+    from .observing import check_setups
     for tr, line, res in synthesize_config(conf, progress, execution["memory"],
-                                           execution["executor"], lines, summary["snapshot"]):
+                                           execution["executor"], lines, summary["snapshot"],
+                                           lambda size: check_setups(conf, lines, size)):
         ideal[tr["name"]] = res.cube
         summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash)
     summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log)

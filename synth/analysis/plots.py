@@ -45,7 +45,8 @@ def moment_figure(survival, path=None, title=""):
 
 
 def recovery_figure(survivals, path=None, title="Recovered fraction of power per scale"):
-    """Recovered fraction against angular scale for several {label: Survival}."""
+    """Recovered power (the noise-unbiased cross-power estimate) against angular scale for
+    several {label: Survival}."""
     fig = Figure(figsize=(6.5, 4.5))
     ax = fig.subplots(gridspec_kw=dict(left=0.12, right=0.97, bottom=0.12, top=0.92))
     for label, m in survivals.items():
@@ -54,7 +55,7 @@ def recovery_figure(survivals, path=None, title="Recovered fraction of power per
             t = t[np.asarray(t["scale_arcsec"]) >= m.beam.major.to_value("arcsec")]
         order = np.argsort(t["scale_arcsec"])
         line, = ax.plot(np.asarray(t["scale_arcsec"])[order],
-                        np.asarray(t["recovered_fraction"])[order], marker="o", ms=3,
+                        np.asarray(t["recovered_power"])[order], marker="o", ms=3,
                         label=str(label))
         half = m.half_recovery_scale.value
         if np.isfinite(half):
@@ -65,7 +66,8 @@ def recovery_figure(survivals, path=None, title="Recovered fraction of power per
     ax.xaxis.set_major_formatter(ScalarFormatter())
     ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("angular scale 1/k (arcsec; scales >= each restoring beam)")
-    ax.set_ylabel("observed / ideal power")
+    ax.axhline(1.0, color="0.7", lw=0.8, ls="--")
+    ax.set_ylabel("recovered power (cross-power, noise-unbiased)")
     ax.set_title(title, fontsize=10)
     ax.legend(fontsize=8)
     return _finish(fig, path)

@@ -10,7 +10,10 @@ from astropy.table import Table
 from .power import binned_ratio, radial_bins
 
 __all__ = ["recovery_table", "half_recovery_scale", "fidelity_map", "fidelity_summary",
-           "RELIABLE_POWER"]
+           "RELIABLE_POWER", "excess_note", "EXCESS_LEVEL"]
+
+#: recovered power above this (at scales >= the beam) gets an explanation in the notes
+EXCESS_LEVEL = 1.1
 
 #: bins whose reference power is below this fraction of the largest bin are not "reliable"
 RELIABLE_POWER = 1e-4
@@ -36,10 +39,16 @@ def recovery_table(obs, ref, pixscale_arcsec, nbins=None):
     obs, ref : ndarray (v, y, x)
         Observed cube and reference, same unit, grid and channels.
 
+    The headline per-scale recovery is ``recovered_power`` = sign(T) T^2: the power ratio
+    estimated from the cross-power, which noise does not bias (for a filter W real and
+    constant over the annulus it equals W^2 = R); R itself is biased upward by the noise
+    power at small scales and is kept for reference.
+
     Returns
     -------
     astropy.table.Table
-        k (1/arcsec), scale_arcsec (1/k), recovered_fraction (moment 0), amplitude_transfer,
+        k (1/arcsec), scale_arcsec (1/k), recovered_power (noise-unbiased),
+        recovered_fraction (moment 0, noise-biased power ratio), amplitude_transfer,
         reference_power (moment 0, normalised to its largest bin), n_modes, reliable, and
         channel_fraction with shape (n_bins, n_channels) (NaN where the channel's reference
         is empty).
@@ -59,15 +68,18 @@ def recovery_table(obs, ref, pixscale_arcsec, nbins=None):
     k_mean = np.bincount(index[index >= 0], weights=kk[index >= 0], minlength=nb)[keep]
     k_mean = k_mean / count[keep]
     ref_norm = den[keep] / den[keep].max() if den[keep].max() > 0 else den[keep]
+    t = cross[keep]
     return Table({"k": k_mean, "scale_arcsec": 1.0 / k_mean,
-                  "recovered_fraction": ratio[keep], "amplitude_transfer": cross[keep],
+                  "recovered_power": np.sign(t) * t**2,
+                  "recovered_fraction": ratio[keep], "amplitude_transfer": t,
                   "reference_power": ref_norm, "n_modes": count[keep],
                   "reliable": ref_norm >= RELIABLE_POWER,
                   "channel_fraction": chan[keep]})
 
 
-def half_recovery_scale(table, level=0.5):
-    """The largest scale up to which the recovered fraction stays at or above ``level``.
+def half_recovery_scale(table, level=0.5, column="recovered_power"):
+    """The largest scale up to which the recovered power (noise-unbiased) stays at or above
+    ``level``.
 
     Walking from the smallest reliable scale toward larger ones, the first bin below
     ``level`` ends the run; the crossing is interpolated linearly in ln(scale) between it and
@@ -78,7 +90,7 @@ def half_recovery_scale(table, level=0.5):
     t = table[table["reliable"]]
     order = np.argsort(t["scale_arcsec"])
     s = np.asarray(t["scale_arcsec"])[order]
-    r = np.asarray(t["recovered_fraction"])[order]
+    r = np.asarray(t[column])[order]
     if s.size == 0 or not r[0] >= level:
         return float("nan"), True
     below = np.nonzero(~(r >= level))[0]
@@ -114,3 +126,24 @@ def fidelity_summary(obs, ref, mask):
     counts, _ = np.histogram(np.clip(finite, edges[0], edges[-1]), bins=edges)
     median = float(np.percentile(f, 50, method="nearest"))     # nearest rank: inf-safe
     return median, dict(zip(FIDELITY_PERCENTILES, map(float, pct))), (edges, counts)
+
+
+def excess_note(table, beam_arcsec=None, level=EXCESS_LEVEL):
+    """A note explaining recovered power above ``level`` (or None): at which scales, how
+    much, and what makes an observed map hold more power correlated with the model than the
+    model itself."""
+    t = table[table["reliable"]]
+    if beam_arcsec is not None:
+        t = t[np.asarray(t["scale_arcsec"]) >= beam_arcsec]
+    p = np.asarray(t["recovered_power"])
+    hot = p > level
+    if not hot.any():
+        return None
+    s = np.asarray(t["scale_arcsec"])[hot]
+    return (f"recovered power above 1 (up to {p[hot].max():.2f}) at {s.min():.3g}-{s.max():.3g} "
+            "arcsec: the observed map holds more power correlated with the model than the "
+            "model itself at these scales. Usual causes: CLEAN residuals restored at the clean "
+            "beam's flux scale (the dirty beam's area differs), a scale measured by both the "
+            "dish and the array when feathering (the dish's beam transform does not fall "
+            "fast enough), or primary-beam correction amplifying emission at a map edge. The "
+            "noise does not cause it: this estimate uses the cross-power.")

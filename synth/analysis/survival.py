@@ -20,7 +20,7 @@ from .matching import (kernel_between, beam_text, channel_frequencies_hz, channe
                        channel_width_ms, convolve_gaussian, cube_beam, cube_values,
                        jy_per_beam_per_k, pixel_scale_arcsec, resample_channels, x_sign)
 from .moments import Moments, _noise_value, moments_from_arrays, noise_rms, signal_mask
-from .recovery import fidelity_summary, half_recovery_scale, recovery_table
+from .recovery import excess_note, fidelity_summary, half_recovery_scale, recovery_table
 
 __all__ = ["Survival", "assess", "reference_cube", "survival_matrix", "matrix_csv",
            "matrix_json_rows"]
@@ -101,8 +101,16 @@ def reference_cube(ideal, observed):
 
     Returns (reference, ideal_k_on_observed_channels, notes).
     """
-    _check_sky_grid(ideal, observed)
     notes = []
+    try:
+        _check_sky_grid(ideal, observed)
+    except InstrumentError:
+        from ..instrument.grid import onto_grid
+        ideal = onto_grid(ideal, observed)
+        _check_sky_grid(ideal, observed)
+        notes.append(f"put the ideal cube on the observed grid ({observed.shape[2]} x "
+                     f"{observed.shape[1]} pixels of {pixel_scale_arcsec(observed):.4g} arcsec; "
+                     "Fourier zoom, blank sky beyond the model)")
     data_i, kind_i = cube_values(ideal, "ideal cube")
     _, kind_o = cube_values(observed, "observed cube")
     beam_i, beam_o = cube_beam(ideal), cube_beam(observed)
@@ -186,7 +194,7 @@ def _moments(data, mask, v_kms, dv_kms, unit, sigma):
 
 
 def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.01,
-           nbins=None, attenuate=False):
+           nbins=None, attenuate=False, response=None):
     """Measure what of the ideal cube survives in the observed cube.
 
     Parameters
@@ -205,6 +213,12 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
     attenuate : bool
         Multiply the reference by a Gaussian primary-beam response of FWHM ``primary_beam``
         centred on the map, to compare with an image that is not primary-beam corrected.
+    response : ndarray (y, x), optional
+        The relative response of a (mosaic) map; ``flux_fraction_pb`` is then the flux where
+        it is >= 1/2.
+
+    Blank (NaN) voxels of the observed cube, e.g. where a primary-beam-corrected map is cut,
+    are left out of every metric, from both cubes: the comparison covers the mapped area only.
 
     Returns
     -------
@@ -223,6 +237,11 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
         notes.append(f"attenuated the reference by a Gaussian primary beam of FWHM "
                      f"{_fwhm_arcsec(primary_beam):.3g} arcsec")
     obs, kind = cube_values(observed, "observed cube")
+    blank = ~np.isfinite(np.asarray(observed.unmasked_data[:].value))
+    if blank.any():
+        ref, ideal_k = np.where(blank, 0.0, ref), np.where(blank, 0.0, ideal_k)
+        notes.append(f"compared inside the mapped area only: {100 * blank.mean():.1f}% of the "
+                     "voxels are blank in the observed map (below the primary-beam cutoff)")
     unit = u.K if kind == "K" else u.Jy / u.beam
     beam = cube_beam(observed)
     sigma = noise_rms(obs) if noise is None else _noise_value(noise, unit)
@@ -232,9 +251,13 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
     obs_mask = signal_mask(obs, sigma, floor=emission_floor)
     flux_o = _flux_jy(obs, kind, beam, nu_hz, (pix / ARCSEC_PER_RAD) ** 2)
     flux_i = _flux_jy(ideal_k, "K", None, nu_hz, (pix / ARCSEC_PER_RAD) ** 2)
-    pbm = _pb_mask(obs.shape[1:], pix, primary_beam)
+    pbm = (_pb_mask(obs.shape[1:], pix, primary_beam) if response is None
+           else np.asarray(response) >= 0.5)
     table = recovery_table(obs, ref, pix, nbins)
     half, bounded = half_recovery_scale(table)
+    note = excess_note(table, None if beam is None else beam.major.to_value(u.arcsec))
+    if note:
+        notes.append(note)
     fid, pct, hist = fidelity_summary(obs, ref, emitting)
     fid0, _, _ = fidelity_summary(obs.sum(0), ref.sum(0), emitting.any(axis=0))
     v_kms, dv_kms = channel_velocities_ms(observed) / 1e3, channel_width_ms(observed) / 1e3

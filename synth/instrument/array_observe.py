@@ -19,7 +19,8 @@ import numpy as np
 from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
 from ..sky import ARCSEC_PER_RAD
 from .clean import hogbom
-from .combine import dish_on_grid, feather_corrected, split_instruments
+from .cube_utils import reference_frequency
+from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
 from .imaging import fit_restoring_beam, restore
 from .interferometer import (OBSERVE_OPTIONS, Tracks, _channel_width_hz, _check_options,
@@ -72,25 +73,48 @@ def _scale_to_rms(pointings, rms, nu, opts):
     return out
 
 
+#: threads that CLEAN the pointings of one channel side by side (the Högbom kernel releases
+#: the GIL; every pointing is cleaned independently, so the result does not depend on it)
+CLEAN_THREADS = 2
+
+
+def _clean_all(jobs, opts):
+    """Högbom CLEAN of [(dirty, psf, threshold)], on CLEAN_THREADS threads."""
+    def one(job):
+        return hogbom(job[0], job[1], job[2], opts["gain"], opts["niter"])
+    if len(jobs) == 1 or CLEAN_THREADS == 1:
+        return [one(j) for j in jobs]
+    from concurrent.futures import ThreadPoolExecutor
+    with ThreadPoolExecutor(CLEAN_THREADS) as pool:
+        return list(pool.map(one, jobs))
+
+
 def _image_channel(plane, pointings, nu, opts, beam, rng, shape):
     """One channel: every pointing imaged and combined. Returns (corrected, response^2-sum
     den, median pointing noise, CLEAN iterations)."""
     num, den = np.zeros(shape), np.zeros(shape)
     noise, iters = [], 0
-    for tracks, geom, (sy, sx) in pointings:
-        w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
-                            opts["robust"])
-        pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
-        img = _dirty(plane[sy, sx], tracks, nu, w, geom, pbs, rng)
-        s_p = image_noise_jy(w, tracks.sigma_jy)
+    batch = max(1, CLEAN_THREADS)
+    for start in range(0, len(pointings), batch):
+        done = []
+        for tracks, geom, box in pointings[start:start + batch]:
+            w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                                opts["robust"])
+            pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
+            img = _dirty(plane[box], tracks, nu, w, geom, pbs, rng)
+            s_p = image_noise_jy(w, tracks.sigma_jy)
+            psf = _psf(tracks, nu, w, geom) if opts["deconvolve"] else None
+            done.append((img, psf, s_p, pb_eff, geom, box))
         if opts["deconvolve"]:
-            model, res, k = hogbom(img, _psf(tracks, nu, w, geom), opts["threshold"] * s_p,
-                                   opts["gain"], opts["niter"])
-            img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
-            iters += k
-        num[sy, sx] += pb_eff * img / s_p**2
-        den[sy, sx] += pb_eff**2 / s_p**2
-        noise.append(s_p)
+            cleaned = _clean_all([(d[0], d[1], opts["threshold"] * d[2]) for d in done], opts)
+        for k, (img, _, s_p, pb_eff, geom, (sy, sx)) in enumerate(done):
+            if opts["deconvolve"]:
+                model, res, n_it = cleaned[k]
+                img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
+                iters += n_it
+            num[sy, sx] += pb_eff * img / s_p**2
+            den[sy, sx] += pb_eff**2 / s_p**2
+            noise.append(s_p)
     with np.errstate(divide="ignore", invalid="ignore"):
         corrected = np.where(den > 0, num / den, 0.0)
     return corrected, den, float(np.median(noise)), iters
@@ -182,7 +206,8 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     if opts.get("declination") is not None:
         dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
     freqs = cube_frequencies_hz(cube)
-    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs)
+    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs,
+                                 nu_layout=reference_frequency(cube).to_value(u.Hz))
     pb_max, _ = primary_beam_fwhm_arcsec(arrays, float(freqs.min()))
     if not opts["primary_beam"]:
         pb_max = np.inf          # no primary beam: every pointing images the whole map
@@ -209,8 +234,8 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     if dish is not None:
         sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
                                               seed, hanning)
-        corrected = feather_corrected(corrected, response >= opts["pb_limit"], sd_k, sd_beam,
-                                      beam, freqs, canvas.pixel_arcsec, opts["sd_scale"])
+        corrected = feather_mosaic(corrected, response, sd_k, sd_beam, beam, freqs,
+                                   canvas.pixel_arcsec, opts["sd_scale"])
         meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
                     SDSCALE=float(opts["sd_scale"]))
     return _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps)

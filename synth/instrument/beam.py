@@ -151,7 +151,7 @@ def k_to_jy_per_beam(cube, beam=None):
     if brightness_kind(cube) == "Jy/beam":
         return cube
     factor = jy_per_k(beam, sky_frequencies(cube))[:, None, None]
-    data = cube_values(cube) * cube.unit.to(u.K) * factor
+    data = cube_values(cube, allow_blank=True) * cube.unit.to(u.K) * factor
     return new_cube(cube, data, u.Jy / u.beam, beam=beam)
 
 
@@ -161,7 +161,7 @@ def jy_per_beam_to_k(cube, beam=None):
     if brightness_kind(cube) == "K":
         return cube
     factor = jy_per_k(beam, sky_frequencies(cube))[:, None, None]
-    data = cube_values(cube) * cube.unit.to(u.Jy / u.beam) / factor
+    data = cube_values(cube, allow_blank=True) * cube.unit.to(u.Jy / u.beam) / factor
     return new_cube(cube, data, u.K, beam=beam)
 
 

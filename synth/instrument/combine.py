@@ -11,13 +11,15 @@ the single-dish and interferometric images in the Fourier plane, both as surface
     F(k) = alpha F_SD(k) + [1 - B_SD(k)] F_int(k),
 
 B_SD the single-dish beam's transform normalised to 1 at k = 0, alpha = ``sd_scale`` (1 for
-calibrated data). The interferometric image is the **primary-beam-corrected** mosaic (one
-pointing or many), set to zero where its response is below the cutoff, so both images see
-the same, unattenuated sky; the flat-noise product is the feathered image times the mosaic's
-response. The total flux of the feathered image is alpha times the single-dish total
-(F(0) = alpha F_SD(0)) over the map: the Fourier product is taken on the map itself
-(circular), so the high-pass filtered interferometric image adds no net flux to the map
-(zero-padding would move part of its negative bowl off the map and add flux).
+calibrated data). Both images are taken as the array sees the sky: the uncorrected
+(flat-noise) map, and the single-dish image multiplied by the map's relative response R (the
+primary beam for one pointing, sqrt(sum_p A_p^2) normalised for a mosaic). The
+primary-beam-corrected product is the feathered image divided by R. (Feathering the corrected
+map instead would amplify the residual sidelobes at the map edge by 1/R and spill them into
+the map.) The total flux of the feathered uncorrected image is alpha times that of the
+R-weighted dish image (F(0) = alpha F_SD(0)) over the map: the Fourier product is taken on
+the map itself (circular), so the high-pass filtered interferometric image adds no net flux
+(zero-padding would move part of its negative bowl off the map).
 """
 
 import astropy.units as u
@@ -26,7 +28,7 @@ import numpy as np
 from ..errors import InstrumentError
 from ..sky import gaussian_transfer
 
-__all__ = ["split_instruments", "feather_plane", "feather_corrected", "dish_on_grid"]
+__all__ = ["split_instruments", "feather_plane", "feather_mosaic", "dish_on_grid"]
 
 
 def _is_dish(item):
@@ -67,17 +69,23 @@ def _k_to_jysr(nu_hz):
     return (1 * u.K).to_value(u.Jy / u.sr, u.brightness_temperature(nu_hz * u.Hz))
 
 
-def feather_corrected(corrected_jyb, valid, sd_k, sd_beam, int_beam, freqs_hz, pixel_arcsec,
-                      sd_scale=1.0):
-    """Feather a primary-beam-corrected interferometric cube (Jy/beam of ``int_beam``; zero
-    where ``valid`` is False) with a single-dish cube in K on the same grid. Returns Jy per
-    interferometric beam, channel by channel."""
+def feather_mosaic(corrected_jyb, response, sd_k, sd_beam, int_beam, freqs_hz, pixel_arcsec,
+                   sd_scale=1.0):
+    """Feather an interferometric map with a single-dish cube in K on the same grid, in the
+    uncorrected (flat-noise) domain: the dish image is multiplied by the map's relative
+    response R (the primary beam for one pointing), feathered with the uncorrected map
+    I_corrected R, and the result divided by R again. Returns the corrected map in Jy per
+    interferometric beam (0 where R = 0); its uncorrected version (times R) holds the total
+    flux of the dish image times R."""
     omega_int = int_beam.sr.to_value(u.sr)
-    out = np.empty_like(corrected_jyb)
+    out = np.zeros_like(corrected_jyb)
     for c, nu in enumerate(freqs_hz):
-        int_plane = np.where(valid[c], corrected_jyb[c], 0.0) / omega_int
-        sd_plane = sd_k[c] * _k_to_jysr(nu)
-        out[c] = feather_plane(int_plane, sd_plane, sd_beam, pixel_arcsec, sd_scale) * omega_int
+        r = response[c]
+        int_plane = corrected_jyb[c] * r / omega_int
+        sd_plane = sd_k[c] * _k_to_jysr(nu) * r
+        flat = feather_plane(int_plane, sd_plane, sd_beam, pixel_arcsec, sd_scale) * omega_int
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out[c] = np.where(r > 0, flat / r, 0.0)
     return out
 
 

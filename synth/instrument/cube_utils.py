@@ -80,11 +80,12 @@ def reference_frequency(cube):
                           "frequency (RESTFRQ); set cube.wcs.wcs.restfrq or use a frequency axis")
 
 
-def cube_values(cube):
-    """The cube's data as a new float64 array (masked voxels take the cube's fill value)."""
+def cube_values(cube, allow_blank=False):
+    """The cube's data as a new float64 array (masked voxels take the cube's fill value).
+    NaN or infinite voxels are refused unless ``allow_blank`` (blank = outside a map)."""
     data = np.array(cube.filled_data[:].value, dtype=np.float64)
     bad = ~np.isfinite(data)
-    if bad.any():
+    if bad.any() and not allow_blank:
         raise InstrumentError(f"cube: {int(bad.sum())} voxels are NaN or infinite (masked "
                               "voxels with a NaN fill value count); use cube.with_fill_value(0)")
     return data

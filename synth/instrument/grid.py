@@ -31,7 +31,8 @@ from ..errors import InstrumentError
 from .cube_utils import cube_values, new_cube, pixel_scale
 
 __all__ = ["BEYOND_BOX", "PIXELS_PER_BEAM", "SkyGrid", "model_grid", "observation_grid",
-           "fourier_zoom", "place_model", "sky_on_grid", "zoom_size", "zoom_shift"]
+           "fourier_zoom", "place_model", "sky_on_grid", "onto_grid", "zoom_size",
+           "zoom_shift"]
 
 #: what lies outside the model box: blank sky, or the box repeated (periodic simulations)
 BEYOND_BOX = ("empty", "repeat")
@@ -262,3 +263,39 @@ def sky_on_grid(cube, pixel_arcsec, center_arcsec, size_arcsec, beyond_box="empt
     model = model_grid(cube)
     grid, zoom, offset = observation_grid(model, pixel_arcsec, center_arcsec, size_arcsec)
     return place_model(cube, grid, zoom, offset, beyond_box), grid
+
+
+def onto_grid(cube, target, beyond_box=None):
+    """The model ``cube`` on the celestial grid of ``target`` (another cube), as observe puts
+    it there: a Fourier zoom and whole-pixel placement when the grids share the reference
+    point and the target's pixel divides the model's extent into a whole number of pixels
+    (every grid observe makes); otherwise bilinear interpolation (reproject), which keeps the
+    flux only approximately. ``beyond_box`` defaults to the target's SKYEDGE card."""
+    model, out = model_grid(cube), model_grid(target)
+    edge = beyond_box or str(target.meta.get("SKYEDGE", "empty")).strip().lower()
+    edge = edge if edge in BEYOND_BOX else "empty"
+    same_ref = np.allclose(cube.wcs.celestial.wcs.crval, target.wcs.celestial.wcs.crval,
+                           rtol=0, atol=1e-10)
+    mx = int(round(model.nx * model.pixel_arcsec / out.pixel_arcsec))
+    my = int(round(model.ny * model.pixel_arcsec / out.pixel_arcsec))
+    exact = (same_ref and mx > 0 and my > 0
+             and abs(model.nx * model.pixel_arcsec / mx - out.pixel_arcsec) < 1e-6 * out.pixel_arcsec
+             and abs(model.ny * model.pixel_arcsec / my - out.pixel_arcsec) < 1e-6 * out.pixel_arcsec)
+    if exact:
+        if (mx, my) == (model.nx, model.ny):
+            sx, sy, xr, yr = 0.0, 0.0, model.x_ref, model.y_ref
+        else:
+            sx, xr = zoom_shift(model.nx, mx, model.x_ref)
+            sy, yr = zoom_shift(model.ny, my, model.y_ref)
+        ox, oy = out.x_ref - xr, out.y_ref - yr
+        if abs(ox - round(ox)) < 1e-6 and abs(oy - round(oy)) < 1e-6:
+            return place_model(cube, out, (my, mx, sy, sx), (int(round(ox)), int(round(oy))),
+                               edge)
+    from reproject import reproject_interp
+    data = cube_values(cube)
+    planes = np.empty((data.shape[0],) + target.shape[1:])
+    for c in range(data.shape[0]):
+        planes[c], _ = reproject_interp((data[c], cube.wcs.celestial), target.wcs.celestial,
+                                        shape_out=target.shape[1:])
+    wcs = out.wcs_like(cube)
+    return new_cube(cube, np.nan_to_num(planes), cube.unit, wcs=wcs)

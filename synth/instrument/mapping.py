@@ -151,15 +151,18 @@ def longest_baseline_m(arrays, dec_rad, opts):
                for a in arrays)
 
 
-def array_layout(cube, arrays, opts, mopts, dec_rad, freqs_hz, where="", model_size=None):
+def array_layout(cube, arrays, opts, mopts, dec_rad, freqs_hz, where="", model_size=None,
+                 nu_layout=None):
     """(MapLayout, pixel in arcsec) of an array observation of ``cube`` (or of an area
     ``model_size`` (width, height) in arcsec when no cube is given; the pixel is then None).
 
     The default pixel samples the synthesized beam with >= 4 pixels per FWHM (estimated as
     lambda / B_max at the highest frequency) and keeps the model's pixel when it is finer.
+    The primary beam and the pointing spacing are taken at ``nu_layout`` (the line's rest
+    frequency; default the median channel), as the planner does.
     """
     freqs_hz = np.atleast_1d(freqs_hz)
-    nu_ref = float(np.median(freqs_hz))
+    nu_ref = float(nu_layout) if nu_layout is not None else float(np.median(freqs_hz))
     pb_fwhm, d_m = primary_beam_fwhm_arcsec(arrays, nu_ref)
     b_max = longest_baseline_m(arrays, dec_rad, opts)
     beam_fwhm = C_M_S / float(np.max(freqs_hz)) / b_max * ARCSEC_PER_RAD

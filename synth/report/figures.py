@@ -2,7 +2,7 @@
 
 import numpy as np
 
-__all__ = ["moment0_figure", "offsets_extent"]
+__all__ = ["moment0_figure", "offsets_extent", "reference_extent", "layout_figure"]
 
 
 def offsets_extent(cube):
@@ -32,3 +32,60 @@ def moment0_figure(mom0_k_kms, cube, title, path):
     plt.close(fig)
     return path
 
+
+
+def reference_extent(cube):
+    """imshow extent (arcsec east / north of the WCS reference point, the [sky] position)."""
+    ny, nx = cube.shape[1:]
+    pix = abs(cube.wcs.wcs.cdelt[0]) * 3600
+    x0, y0 = cube.wcs.wcs.crpix[0] - 1.0, cube.wcs.wcs.crpix[1] - 1.0
+    return [-(-0.5 - x0) * pix, -(nx - 0.5 - x0) * pix, (-0.5 - y0) * pix, (ny - 0.5 - y0) * pix]
+
+
+def layout_figure(omap, title, path):
+    """Write a PNG of a setup's map layout over the model's moment-0 map on the output grid:
+    the mapped area (dashed), an array's pointings with their primary-beam half-power circles
+    and the contour where the mosaic's response is 1/2, or a dish's Nyquist positions and
+    guard band."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    from matplotlib.patches import Circle, Rectangle
+    from ..fitsio import atomic_path
+    lay = omap.layout
+    sky = omap.sky
+    dv = abs(float(np.diff(sky.spectral_axis.value[:2])[0])) if sky.shape[0] > 1 else 1.0
+    mom0 = np.nansum(np.asarray(sky.unmasked_data[:].value), axis=0) * dv
+    ext = reference_extent(sky)
+    fig, ax = plt.subplots(figsize=(5.6, 4.8), dpi=100,
+                           gridspec_kw=dict(left=0.15, right=0.97, bottom=0.11, top=0.9))
+    im = ax.imshow(mom0, origin="lower", extent=ext, cmap="Greys", interpolation="nearest")
+    fig.colorbar(im, ax=ax, label="model ∫T_B dv (K km/s)")
+    (cx, cy), (w, h) = lay.center, lay.size
+    ax.add_patch(Rectangle((cx - w / 2, cy - h / 2), w, h, fill=False, ls="--", color="C0",
+                           label="mapped area"))
+    p = lay.pointings
+    if lay.kind == "dish":
+        g = lay.guard
+        ax.add_patch(Rectangle((cx - w / 2 - g, cy - h / 2 - g), w + 2 * g, h + 2 * g,
+                               fill=False, ls=":", color="C1", label="guard band"))
+        ax.plot(p[:, 0], p[:, 1], ".", ms=2, color="C1", label=f"{len(p)} map positions")
+    else:
+        for e, n in p:
+            ax.add_patch(Circle((e, n), lay.field_fwhm / 2, fill=False, color="C3", lw=0.8))
+        ax.plot(p[:, 0], p[:, 1], "+", color="C3",
+                label=f"{len(p)} pointing(s), half-power circles")
+        if np.nanmax(omap.response) > 0.5:
+            ax.contour(omap.response, levels=[0.5], extent=ext, origin="lower",
+                       colors="C2", linewidths=0.8)
+    ax.set_xlim(ext[0], ext[1])
+    ax.set_ylim(ext[2], ext[3])
+    ax.set_aspect("equal")
+    ax.set_xlabel("RA offset (arcsec, east to the left)")
+    ax.set_ylabel("Dec offset (arcsec)")
+    ax.set_title(title, fontsize=8)
+    ax.legend(fontsize=7, loc="upper right")
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, format="png")
+    plt.close(fig)
+    return path

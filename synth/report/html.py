@@ -145,12 +145,26 @@ def _tracers(page, s):
 
 def _instruments(page, s):
     uv = (s.get("analysis") or {}).get("uv", {})
-    if not uv:
+    setups = s.get("setups") or {}
+    layouts = [(n, f"layout_{n}.png") for n in setups
+               if os.path.exists(os.path.join(page.run_dir, f"layout_{n}.png"))]
+    if not uv and not layouts:
         return
-    page.add('<h2 id="instruments">uv coverage and synthesized beams</h2><div class="row">')
-    for sname, name in uv.items():
-        page.add(page.img(name, f"{sname}: uv coverage and synthesized beam"))
-    page.add("</div>")
+    page.add('<h2 id="instruments">Maps, pointings and uv coverage</h2>')
+    if layouts:
+        page.add("<p>What each setup maps: an array's pointings (their primary-beam half-power "
+                 "circles; green: where the mosaic's response is 1/2) or a dish's on-the-fly "
+                 "map positions and guard band, over the model's integrated intensity. The "
+                 "planning table counts these pointings.</p><div class=\"row\">")
+        for sname, name in layouts:
+            first = next(iter(setups[sname].values()), {})
+            page.add(page.img(name, f"{sname}: {first.get('layout', '')}"))
+        page.add("</div>")
+    if uv:
+        page.add('<div class="row">')
+        for sname, name in uv.items():
+            page.add(page.img(name, f"{sname}: uv coverage and synthesized beam"))
+        page.add("</div>")
 
 
 def _survival(page, s):
@@ -238,7 +252,7 @@ def report_html(run_dir, summary):
     page.add(f"<h1>{_e(title)}</h1><p>"
              + " · ".join(f'<a href="#{a}">{b}</a>' for a, b in (
                  ("job", "job"), ("config", "configuration"), ("tracers", "tracers"),
-                 ("instruments", "uv coverage"), ("survival", "survival matrix"),
+                 ("instruments", "maps and uv coverage"), ("survival", "survival matrix"),
                  ("planning", "planning"), ("provenance", "provenance"))) + "</p>")
     for section in (_job, _config, _tracers, _instruments, _survival, _planning, _provenance):
         section(page, summary)

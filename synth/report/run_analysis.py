@@ -45,27 +45,22 @@ def _noise_of(cube):
     return rms * u.Unit(str(meta.get("NOISEUNI") or cube.unit.to_string()))
 
 
-def _primary_beam(setup_conf, cube):
-    """Gaussian primary-beam FWHM of an array setup, taper x lambda / D (common practice)."""
-    if setup_conf is None or setup_conf["kind"] != "array":
-        return None
-    from ..instrument.primary_beam import gaussian_fwhm_rad
-    d_m = setup_conf["diameter_m"] or 12.0
-    return gaussian_fwhm_rad(cube.wcs.wcs.restfrq, d_m) * u.rad
-
-
 def assess_observation(ideal, observed, setup_conf=None, emission_floor=0.01):
     """``assess`` of one observation as a run does it.
 
-    The noise is the observed cube's recorded NOISERMS (estimated if absent or zero); for an
-    array setup the reference is attenuated by the Gaussian primary beam (the images are not
-    primary-beam corrected) and the flux inside its half-power circle is measured too.
+    ``observed`` is an :class:`~synth.instrument.mapping.ObservedMap` (or a plain observed
+    cube on the ideal cube's grid). The observed product is compared with the model on the
+    same grid: the primary-beam-corrected map of an array (blank where its response is below
+    the cutoff) against the unattenuated sky there, a dish map against the sky on the map
+    including its guard band. The noise is the recorded NOISERMS (estimated if absent or zero);
+    the flux inside the map's half-power response is measured too.
     """
     from ..analysis.survival import assess
-    pb = _primary_beam(setup_conf, ideal)
-    pbcorr = bool({str(k).upper(): v for k, v in observed.meta.items()}.get("PBCORR", False))
-    return assess(ideal, observed, noise=_noise_of(observed), primary_beam=pb,
-                  emission_floor=emission_floor, attenuate=pb is not None and not pbcorr)
+    if hasattr(observed, "layout"):
+        response = observed.response if observed.layout.kind == "array" else None
+        return assess(observed.sky, observed.corrected, noise=_noise_of(observed.corrected),
+                      response=response, emission_floor=emission_floor)
+    return assess(ideal, observed, noise=_noise_of(observed), emission_floor=emission_floor)
 
 
 def spectra_positions(cube, given=None):
@@ -121,6 +116,18 @@ def _ideal_spectra_figure(cube, positions, title):
     return fig
 
 
+def _positions_on(cube, target, positions):
+    """Pixel positions of the ideal cube on another cube's grid (through the sky), kept
+    inside it."""
+    ny, nx = target.shape[1:]
+    out = []
+    for x, y in positions:
+        world = cube.wcs.celestial.pixel_to_world(x, y)
+        tx, ty = target.wcs.celestial.world_to_pixel(world)
+        out.append((int(np.clip(np.round(tx), 0, nx - 1)), int(np.clip(np.round(ty), 0, ny - 1))))
+    return out
+
+
 def _reference_as_cube(ideal, observed):
     """The ideal cube as the observation should see it, on the observed grid (a cube)."""
     from spectral_cube import SpectralCube
@@ -174,6 +181,7 @@ def plan_config(conf, ideal, settings=None):
         kw = {} if st["kind"] == "dish" else {
             "hour_angles": (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
             "sample_interval": st["sample_interval_s"] * u.s}
+        kw.update(_plan_map_keywords(st))
         for tname, cube in ideal.items():
             tr = tracers[tname]
             line = Line(tr["species"], tr["transition"], datafile=tr["datafile"])
@@ -190,6 +198,18 @@ def plan_config(conf, ideal, settings=None):
             plans.append(p)
             rows.append({"tracer": tname, **p.as_row(), "time_h": hours})
     return plans, rows, skipped
+
+
+def _plan_map_keywords(st):
+    """The map options of a [[setup]] as plan() takes them (the same layout observe makes)."""
+    from ..observing import map_keywords
+    mk = map_keywords(st)
+    kw = {"field_size": mk.get("map_size"), "map_center": mk.get("map_center"),
+          "pointing_spacing": mk.get("pointing_spacing"), "guard_band": mk.get("guard_band"),
+          "max_pointings": mk.get("max_pointings")}
+    if st["kind"] == "array":
+        kw["pointing_pattern"] = mk["pointing_pattern"]
+    return kw
 
 
 def _clean(v):
@@ -249,9 +269,11 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
                 continue
             m = assess_observation(cube, obs, setups.get(sname), settings["emission_floor"])
             results[(tname, sname)] = m
+            sky, image = (obs.sky, obs.corrected) if hasattr(obs, "layout") else (cube, obs)
             entry["setups"][sname] = {
                 "notes": list(m.notes), "noise": float(m.noise.value), "unit": m.unit,
-                "figures": (_observation_figures(tname, sname, cube, obs, m, positions, tmp)
+                "figures": (_observation_figures(tname, sname, sky, image, m,
+                                                 _positions_on(cube, image, positions), tmp)
                             if figures else {})}
         if figures and entry["setups"]:
             from ..analysis.plots import recovery_figure
