@@ -126,9 +126,26 @@ def check_setups(conf, lines, sky_size_arcsec):
                                           model_size=sky_size_arcsec)
                 layouts[(tr["name"], st["name"])] = lay
         except InstrumentError as exc:
-            msg = str(exc)
-            raise ConfigError(msg if msg.startswith("setup") else where + msg) from None
+            raise ConfigError(_config_message(str(exc), where)) from None
     return layouts
+
+
+#: what a layout error names, and the [[setup]] key that sets it
+_LAYOUT_KEYS = (("map size", "map_size_arcsec"), ("map centre offset", "map_offset_arcsec"),
+                ("pointing spacing", "pointing_spacing_arcsec"), ("pixel size", "pixel_arcsec"),
+                ("guard band", "guard_band_arcsec"), ("pointing pattern", "pointing_pattern"),
+                ("the mosaic needs", "max_pointings"))
+
+
+def _config_message(msg, where):
+    """A layout error in config terms: "setup 'name': <config key>: ..."."""
+    body = msg[len(where):] if msg.startswith(where) else msg
+    for label, key in _LAYOUT_KEYS:
+        if body.startswith(label):
+            body = f"{key}: {body}" if label == "the mosaic needs" else \
+                f"{key}:{body[len(label) + 1:]}"
+            break
+    return where + body
 
 
 def observe_setups(conf, ideal, tmp, chash, progress, log):

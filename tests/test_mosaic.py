@@ -293,3 +293,54 @@ def test_bad_map_options(kw, match):
 def test_pb_fwhm_constant_is_the_code_s():
     """The tests' 25.3" primary beam is the code's Gaussian FWHM (1.13 lambda / D)."""
     assert gaussian_fwhm_rad(NU, 12.0) * ARCSEC == pytest.approx(PB_ARCSEC, rel=1e-12)
+
+
+# --- the same checks from a config, before any synthesis -------------------------------------
+
+def _config(**setup):
+    base = {"name": "wide", "kind": "array", "antennas": "compact-10", "diameter_m": 12,
+            "latitude_deg": -30, "tsys_k": 90, "integration_time_h": 1.0}
+    return {"cloud": {"source": "demo", "size": 16, "box_pc": 1.0},
+            "sky": {"distance_pc": 1000.0, "dec_deg": -20.0},
+            "channels": {"width_kms": 0.5},
+            "tracer": [{"species": "CO", "transition": "1-0", "abundance": 1e-4}],
+            "setup": [{**base, **setup}]}
+
+
+@pytest.mark.parametrize("setup, match", [
+    (dict(map_size_arcsec=1.0),
+     r"^setup 'wide': map_size_arcsec: 1 arcsec is smaller than one beam \(\d+\.?\d* arcsec\)"),
+    (dict(pointing_spacing_arcsec=90.0),
+     r"^setup 'wide': pointing_spacing_arcsec: 90 arcsec is larger than the primary beam"),
+    (dict(map_size_arcsec=[2000.0, 2000.0], max_pointings=40),
+     r"^setup 'wide': max_pointings: the mosaic needs \d+ pointings, more than the limit of 40"),
+    (dict(pixel_arcsec=30.0), r"^setup 'wide': pixel_arcsec: 30 arcsec is too coarse"),
+    (dict(kind="dish", map_size_arcsec=3.0),
+     r"^setup 'wide': map_size_arcsec: 3 arcsec is smaller than one beam"),
+])
+def test_config_layout_errors_come_before_any_synthesis(setup, match, tmp_path, monkeypatch):
+    """Each bad map is refused in one line naming the setup and its key, before a single
+    tracer is synthesised (the synthesis entry point is replaced by one that fails)."""
+    import synth.transfer.synthesize as synthesize
+    from synth.errors import ConfigError
+    from synth.pipeline import run_config
+
+    def never(*args, **kwargs):
+        raise AssertionError("synthesis started before the setups were checked")
+    monkeypatch.setattr(synthesize, "synthesize_products", never)
+    conf = _config(**setup)
+    if setup.get("kind") == "dish":
+        conf["setup"][0].update(diameter_m=45)
+    with pytest.raises(ConfigError, match=match) as err:
+        run_config(conf, tmp_path / "out", progress=False, log=None)
+    assert "\n" not in str(err.value)
+    assert not (tmp_path / "out").exists() and list(tmp_path.iterdir()) == []
+
+
+def test_removed_fast_key_is_refused_with_the_reason():
+    """The dropped approximate path's config key is refused in one line that says why."""
+    from synth.config import validate_config
+    from synth.errors import ConfigError
+    conf = _config(fast=True)
+    with pytest.raises(ConfigError, match=r"\[\[setup\]\] #1\.fast: removed: .*24-28 % peak"):
+        validate_config(conf)

@@ -35,6 +35,14 @@ OTHERS = {
     "observe": ("bench_observe.py", [], ["16"], [
         ("observe / bare gridder calls", rf"\) {_NUM} s; ratio {_NUM} \(target (<=|>=) {_NUM}\)"),
     ]),
+    "mosaic": ("bench_mosaic.py", [], ["--quick"], [
+        ("time per pointing, 7 pointings / 1",
+         rf"7-pointing mosaic / one pointing .*: {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("time per pointing, 19 pointings / 1",
+         rf"19-pointing mosaic / one pointing .*: {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("256^3 run with a 19-pointing mosaic: wall time (s)", rf"wall time {_NUM} s"),
+        ("256^3 run with a 19-pointing mosaic: peak RSS (MB)", rf"peak RSS {_NUM} MB"),
+    ]),
 }
 SCALE_PARTS = ("scaling", "memory", "dask")
 
