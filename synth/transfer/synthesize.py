@@ -27,6 +27,9 @@ from .tiles import plan_tiles
 __all__ = ["synthesize", "synthesize_products", "SynthesisResult", "excite_snapshot",
            "LINES_OF_SIGHT", "auto_velocity_range"]
 
+#: What the tau cube holds (its TAUKIND header card): tau averaged over each channel.
+TAU_KIND = "channel mean"
+
 #: Axis views a tracer can be seen along (rotations are given as a dict, see views).
 LINES_OF_SIGHT = ("z", "-z", "x", "-x", "y", "-y")
 
@@ -125,7 +128,9 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
     Returns
     -------
     SpectralCube
-        Brightness temperature above the background (K), axes (v, y, x).
+        Brightness temperature above the background (K), axes (v, y, x); each channel is the
+        emergent intensity averaged over the channel (as a spectrometer channel reports it),
+        computed on sub-channels where the line is thick and narrower than the channel.
 
     Notes
     -----
@@ -187,7 +192,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
             "ABUND": float(abundance), "DISTPC": dist_cm / u.pc.to(u.cm),
             "LOS": str(line_of_sight), "TBG": t_bg_k}
     cube = _cube(data, wcs, meta, "K")
-    tau_cube = _cube(tau, wcs, dict(meta, BUNIT=""), "") if tau is not None else None
+    tau_cube = (_cube(tau, wcs, dict(meta, BUNIT="", TAUKIND=TAU_KIND), "")
+                if tau is not None else None)
     column = col.T * u.cm**-2 if col is not None else None
     stats = {"peak_k": float(np.nanmax(data)), "n_channels": grid.n,
              "integrated_k_kms": float(data.sum(dtype=np.float64) * grid.width_kms)}
