@@ -9,6 +9,7 @@ reference (docs/config.md mirrors it; a test keeps them in step).
 """
 
 import difflib
+import math
 import os
 import tomllib
 
@@ -40,7 +41,7 @@ SKY = {
     "dec_deg": (_NUM, -5.0, "declination of the map centre, deg"),
     "systemic_velocity_kms": (_NUM, 0.0, "added to the model's line-of-sight velocities, km/s"),
     "line_of_sight": ((str, dict), "z", '"z", "-z", "x", "-x", "y", "-y" or {euler_deg = [a, b, c]}'),
-    "background_k": (_NUM, 2.725, "background temperature, K (the CMB)"),
+    "background_k": (_NUM, 2.725, "background temperature, K (the CMB); also the field LVG populations see"),
 }
 CHANNELS = {
     "width_kms": (_NUM, REQUIRED, "channel width of the ideal cube, km/s"),
@@ -166,6 +167,9 @@ def _check_values(conf):
         raise ConfigError("the config needs at least one [[tracer]] (species, transition, abundance)")
     if conf["sky"]["distance_pc"] <= 0:
         raise ConfigError(f"[sky].distance_pc must be > 0, got {conf['sky']['distance_pc']}")
+    bg = conf["sky"]["background_k"]
+    if not (math.isfinite(bg) and bg > 0):
+        raise ConfigError(f"[sky].background_k must be a finite temperature > 0 K, got {bg}")
     if conf["channels"]["width_kms"] <= 0:
         raise ConfigError(f"[channels].width_kms must be > 0, got {conf['channels']['width_kms']}")
     from .excitation.product import EXCITATION_METHODS

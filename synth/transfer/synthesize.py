@@ -117,7 +117,9 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
     position : (Quantity, Quantity), optional
         (RA, Dec) of the map centre.
     t_bg : Quantity ``[temperature]``, optional
-        Background temperature (default 2.725 K, the CMB).
+        Background blackbody temperature (default 2.725 K, the CMB), > 0. It is the radiation
+        behind the cloud in the transfer and, for LVG, the external field the level
+        populations are solved against (escape-probability J = (1 - beta) S + beta J(T_bg)).
     t_ex : Quantity, optional
         A fixed LTE excitation temperature instead of T_kin.
     excitation_options : dict, optional
@@ -173,7 +175,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
         if on_disk:
             raise ConfigError("LVG excitation needs the snapshot in memory (velocity gradients "
                               "across tiles); load it with SnapshotFile.load() first")
-        exc = excite_snapshot(snap, line, abundance, excitation, t_ex, excitation_options)
+        exc = excite_snapshot(snap, line, abundance, excitation, t_ex,
+                              _with_background(excitation, excitation_options, t_bg_k))
     n_cubes = 1 + ("tau" in products)
     plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
                       in_flight=getattr(executor or SerialExecutor(), "in_flight", 1),
@@ -202,6 +205,20 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     info = exc.info if exc is not None else {"t_ex": "t_kin" if t_ex is None else "fixed"}
     stats["tiles"] = len(plan.tiles)
     return SynthesisResult(cube, tau_cube, column, info, stats)
+
+
+def _with_background(excitation, options, t_bg_k):
+    """LVG options with the populations solved against the same background as the transfer."""
+    options = dict(options or {})
+    if excitation != "lvg":
+        return options
+    given = options.get("t_bg_k")
+    if given is not None and not np.isclose(float(given), t_bg_k, rtol=1e-9, atol=0.0):
+        raise ConfigError(f"excitation_options t_bg_k={given!r} differs from t_bg={t_bg_k} K; "
+                          "give the background once, as t_bg (it sets both the LVG populations "
+                          "and the transfer)")
+    options["t_bg_k"] = t_bg_k
+    return options
 
 
 def _cube(data, wcs, meta, unit):
