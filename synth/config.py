@@ -34,6 +34,7 @@ CLOUD = {
     "mach": (_NUM, 10.0, "demo cloud: 3-D turbulent Mach number"),
     "solenoidal_fraction": (_NUM, 0.7, "demo cloud: solenoidal share of the turbulent power"),
     "level": (int, 0, "yt: refinement level of the covering grid"),
+    "edges": (str, "nearest", 'rotated views: "nearest" (edge cells continue to the box faces) or "periodic" (periodic box)'),
 }
 SKY = {
     "distance_pc": (_NUM, REQUIRED, "distance to the cloud in pc"),
@@ -167,6 +168,9 @@ def _check_values(conf):
         raise ConfigError("the config needs at least one [[tracer]] (species, transition, abundance)")
     if conf["sky"]["distance_pc"] <= 0:
         raise ConfigError(f"[sky].distance_pc must be > 0, got {conf['sky']['distance_pc']}")
+    from .snapshot.views import EDGE_MODES
+    if conf["cloud"]["edges"] not in EDGE_MODES:
+        raise ConfigError(f"[cloud].edges is '{conf['cloud']['edges']}'; valid: {', '.join(EDGE_MODES)}")
     bg = conf["sky"]["background_k"]
     if not (math.isfinite(bg) and bg > 0):
         raise ConfigError(f"[sky].background_k must be a finite temperature > 0 K, got {bg}")

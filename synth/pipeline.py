@@ -161,7 +161,7 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
         vrange = (chan["velocity_min_kms"], chan["velocity_max_kms"]) * u.km / u.s
     los = sky["line_of_sight"]
-    view = snap if (los == "z" or lazy is not None) else snap.view(los)
+    view = snap if (los == "z" or lazy is not None) else snap.view(los, conf["cloud"]["edges"])
     view_los = los if lazy is not None else "z"
     if vrange is None:
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
