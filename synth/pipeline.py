@@ -236,7 +236,10 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
             abs(cube.wcs.wcs.cdelt[1]) * 3600),
         "excitation_info": {k: v for k, v in res.excitation_info.items()
                             if isinstance(v, (int, float, str, bool))},
+        "velocity_resolution": res.stats["velocity_resolution"],
     }
+    from .transfer.synthesize import warn_if_underresolved
+    warn_if_underresolved(name, entry["velocity_resolution"])
     if conf["output"]["figures"]:
         from .report.figures import moment0_figure
         moment0_figure(mom0, cube, str(line), os.path.join(tmp, f"{name}_mom0.png"))
