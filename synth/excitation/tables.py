@@ -17,22 +17,28 @@ nodes (logarithmic over the decades e spans, e ~ n at low density), f with v_0 =
 largest |f| (f changes sign in weak inversions, where a logarithm would interpolate badly).
 
 Error control: a random sample of cells (``numpy.random.default_rng(seed)``) is solved
-directly. Three errors are measured between interpolation and direct solve, each the largest
-relative difference against max(|ref|, 1e-3 max|ref| of the sample) so that nearly empty
-cells do not dominate: in the line's radiation temperature T_R = [J(T_ex) - J(T_bg)]
-(1 - e^{-tau}) (tau the cell's Sobolev optical depth); in tau itself, relative to
-max(|tau|, SOURCE_CHECK_TAU = 0.1) (the opacity the transfer uses: T_R alone cannot see opacity
-errors in thick cells, where 1 - e^{-tau} ~ 1, but the attenuation of what lies behind can; the
-Sobolev tau is the depth a photon sees over the velocity-coherence length, so below 0.1 an
-absolute error of 0.1 x accuracy is all the attenuation can feel); and in the source function above the background, J(T_ex) - J(T_bg)
-= e/f, which is how T_ex enters the transfer (T_ex itself diverges as f -> 0, so its relative
-error is no useful bound), over the sample cells with |tau| >= SOURCE_CHECK_TAU: in
-thinner cells the transfer needs only the product (J(T_ex) - J(T_bg)) tau = e tau_c K, which
-the T_R error already bounds, and e/f there is as uncertain as f is small. The table's error is
-the largest of the three. While it exceeds the requested accuracy the node spacing is halved
-along the axis whose coarsening (dropping every other node) raises the currently largest of
-the three errors most; new nodes start from the geometric mean of their neighbours'
-populations. If the next halving would pass ``max_nodes`` a :class:`~synth.errors.TableAccuracyWarning` gives
+directly and three errors are measured between interpolation and direct solve:
+
+- in the line's radiation temperature T_R = [J(T_ex) - J(T_bg)](1 - e^{-tau}) (tau the cell's
+  Sobolev optical depth), relative to max(|T_R|, 1e-3 max|T_R| of the sample) so that nearly
+  empty cells do not dominate;
+- in tau itself, relative to max(|tau|, THICK_TAU = 1). T_R alone cannot see opacity errors
+  in thick cells, where 1 - e^{-tau} ~ 1, but the attenuation of what lies behind can; in a
+  thin cell the emission (J(T_ex) - J(T_bg)) tau = e tau_c K does not depend on f (T_ex and
+  tau come from the same interpolated e and f) and an error in f only changes the
+  attenuation, by |delta tau| (the Sobolev tau is the depth a photon sees over the
+  velocity-coherence length);
+- in the source function above the background, J(T_ex) - J(T_bg) = e/f, which is how T_ex
+  enters the transfer (T_ex itself diverges as f -> 0, so its relative error is no useful
+  bound), relative, over the sample cells with |tau| >= THICK_TAU, where it sets the
+  brightness.
+
+The table's error is the largest of the three. While it exceeds the requested accuracy the
+node spacing is halved along one axis: for the quantity with the largest error, the axis whose
+coarsening (dropping every other node) changes the interpolated values most at the failing
+sample cells (the difference between the coarse and the fine interpolant estimates the fine
+one's error). New nodes start from the geometric mean of their neighbours' populations. If
+the next halving would pass ``max_nodes`` a :class:`~synth.errors.TableAccuracyWarning` gives
 the accuracy reached.
 """
 
@@ -47,14 +53,14 @@ from ..errors import TableAccuracyWarning
 from ..radiation import H_CGS, K_CGS, radiation_temperature
 from .statistical_equilibrium import solve_levels
 
-__all__ = ["PopulationTable", "build_table", "apply_table", "INITIAL_STEP_DEX", "SOURCE_CHECK_TAU"]
+__all__ = ["PopulationTable", "build_table", "apply_table", "INITIAL_STEP_DEX", "THICK_TAU"]
 
 #: Initial node spacing (dex) along log n(H2), log T_kin, log K.
 INITIAL_STEP_DEX = (0.5, 0.1, 0.5)
 _REL_FLOOR = 1e-3
-#: Optical depth below which a cell counts as thin for the tau and source-function errors
-#: (module docstring).
-SOURCE_CHECK_TAU = 0.1
+#: Sobolev optical depth below which a cell counts as thin for the tau and source-function
+#: errors (module docstring).
+THICK_TAU = 1.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -143,16 +149,6 @@ def _node_values(pops, up, lo, line, scales=None):
     return np.stack([np.arcsinh(e / scales[0]), np.arcsinh(f / scales[1])], axis=-1), scales
 
 
-def _rel(got, ref, where=None):
-    """Largest |got - ref| / max(|ref|, _REL_FLOOR max|ref|) over ``where`` (module docstring)."""
-    if where is not None:
-        if not np.any(where):
-            return 0.0
-        got, ref = got[where], ref[where]
-    scale = np.maximum(np.abs(ref), _REL_FLOOR * np.abs(ref).max() + 1e-300)
-    return float(np.max(np.abs(got - ref) / scale))
-
-
 def _checked(e, f, kcol, line):
     """(T_R, tau, J(T_ex) - J(T_bg)) of the line from e, f and the cells' K."""
     tau = line[2] * kcol * f
@@ -161,24 +157,39 @@ def _checked(e, f, kcol, line):
     return _t_r(e, f, line[2] * kcol), tau, src
 
 
+def _predict(axes, vals, pts, kcol, line, scales):
+    v = _interp(axes, vals, pts)
+    return _checked(scales[0] * np.sinh(v[:, 0]), scales[1] * np.sinh(v[:, 1]), kcol, line)
+
+
+def _cell_errors(got, ref):
+    """Per-cell errors (T_R, tau, source function) with their scales (module docstring);
+    the source-function error is 0 in thin cells."""
+    thick = np.abs(ref[1]) >= THICK_TAU
+    scales = (np.maximum(np.abs(ref[0]), _REL_FLOOR * np.abs(ref[0]).max() + 1e-300),
+              np.maximum(np.abs(ref[1]), THICK_TAU),
+              np.where(thick, np.abs(ref[2]) + 1e-300, np.inf))
+    return [np.abs(g - r) / sc for g, r, sc in zip(got, ref, scales)], scales
+
+
 def _errors(axes, vals, pts, ref, kcol, line, scales):
     """Sample errors (T_R, tau, source function) of the interpolated table."""
-    v = _interp(axes, vals, pts)
-    got = _checked(scales[0] * np.sinh(v[:, 0]), scales[1] * np.sinh(v[:, 1]), kcol, line)
-    not_thin = np.abs(ref[1]) >= SOURCE_CHECK_TAU
-    err_tau = float(np.max(np.abs(got[1] - ref[1]) / np.maximum(np.abs(ref[1]), SOURCE_CHECK_TAU)))
-    return (_rel(got[0], ref[0]), err_tau, _rel(got[2], ref[2], not_thin))
+    errs, _ = _cell_errors(_predict(axes, vals, pts, kcol, line, scales), ref)
+    return tuple(float(np.max(e)) for e in errs)
 
 
-def _error(axes, vals, pts, ref, kcol, line, scales, which=None):
-    errs = _errors(axes, vals, pts, ref, kcol, line, scales)
-    return max(errs) if which is None else errs[which]
-
-
-def _worst_axis(axes, vals, pts, ref, kcol, line, scales, which=None):
-    """The axis whose coarsening by 2 raises the sample error (of quantity ``which``, default
-    the largest) most (None if none can be)."""
-    best, worst = None, -1.0
+def _worst_axis(axes, vals, pts, ref, kcol, line, scales, accuracy):
+    """The axis to refine (None if none can be): for the quantity with the largest error, the
+    axis whose coarsening by 2 changes the interpolated values most at the sample cells that
+    fail the accuracy (the difference between a coarse and a fine interpolant estimates the
+    fine one's error)."""
+    fine = _predict(axes, vals, pts, kcol, line, scales)
+    errs, sc = _cell_errors(fine, ref)
+    q = int(np.argmax([e.max() for e in errs]))
+    failing = errs[q] > accuracy
+    if not np.any(failing):
+        failing = errs[q] >= errs[q].max()
+    best, score = None, -1.0
     for a, ax in enumerate(axes):
         if ax.size < 3:
             continue
@@ -186,9 +197,10 @@ def _worst_axis(axes, vals, pts, ref, kcol, line, scales, which=None):
         coarse[a] = ax[::2]
         sl = [slice(None)] * 3
         sl[a] = slice(None, None, 2)
-        e = _error(coarse, vals[tuple(sl)], pts, ref, kcol, line, scales, which)
-        if e > worst:
-            best, worst = a, e
+        got = _predict(coarse, vals[tuple(sl)], pts, kcol, line, scales)[q]
+        change = float(np.max((np.abs(got - fine[q]) / sc[q])[failing]))
+        if change > score:
+            best, score = a, change
     return best
 
 
@@ -254,7 +266,7 @@ def build_table(system, ranges, sample, line, opts, accuracy=0.01, max_nodes=600
             progress(min(0.8, 0.8 * accuracy / max(err, accuracy)))
         if err <= accuracy:
             break
-        a = _worst_axis(axes, vals, sample, ref, kcol, consts, scales, int(np.argmax(errs)))
+        a = _worst_axis(axes, vals, sample, ref, kcol, consts, scales, accuracy)
         size = np.prod([ax.size for ax in axes])
         if a is None or size * (2 * axes[a].size - 1) / axes[a].size > max_nodes:
             warnings.warn(f"LVG table stopped at {size} nodes (cap max_table_nodes="
