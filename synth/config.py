@@ -9,6 +9,7 @@ reference (docs/config.md mirrors it; a test keeps them in step).
 """
 
 import difflib
+import math
 import os
 import tomllib
 
@@ -33,6 +34,7 @@ CLOUD = {
     "mach": (_NUM, 10.0, "demo cloud: 3-D turbulent Mach number"),
     "solenoidal_fraction": (_NUM, 0.7, "demo cloud: solenoidal share of the turbulent power"),
     "level": (int, 0, "yt: refinement level of the covering grid"),
+    "edges": (str, "nearest", 'rotated views: "nearest" (edge cells continue to the box faces) or "periodic" (periodic box)'),
 }
 SKY = {
     "distance_pc": (_NUM, REQUIRED, "distance to the cloud in pc"),
@@ -40,7 +42,7 @@ SKY = {
     "dec_deg": (_NUM, -5.0, "declination of the map centre, deg"),
     "systemic_velocity_kms": (_NUM, 0.0, "added to the model's line-of-sight velocities, km/s"),
     "line_of_sight": ((str, dict), "z", '"z", "-z", "x", "-x", "y", "-y" or {euler_deg = [a, b, c]}'),
-    "background_k": (_NUM, 2.725, "background temperature, K (the CMB)"),
+    "background_k": (_NUM, 2.725, "background temperature, K (the CMB); also the field LVG populations see"),
     "beyond_box": (str, "empty", 'sky outside the model box: "empty" (an isolated cloud) or '
                    '"repeat" (a periodic simulation box tiles the sky)'),
 }
@@ -188,6 +190,12 @@ def _check_values(conf):
         raise ConfigError("the config needs at least one [[tracer]] (species, transition, abundance)")
     if conf["sky"]["distance_pc"] <= 0:
         raise ConfigError(f"[sky].distance_pc must be > 0, got {conf['sky']['distance_pc']}")
+    from .snapshot.views import EDGE_MODES
+    if conf["cloud"]["edges"] not in EDGE_MODES:
+        raise ConfigError(f"[cloud].edges is '{conf['cloud']['edges']}'; valid: {', '.join(EDGE_MODES)}")
+    bg = conf["sky"]["background_k"]
+    if not (math.isfinite(bg) and bg > 0):
+        raise ConfigError(f"[sky].background_k must be a finite temperature > 0 K, got {bg}")
     if conf["channels"]["width_kms"] <= 0:
         raise ConfigError(f"[channels].width_kms must be > 0, got {conf['channels']['width_kms']}")
     from .excitation.product import EXCITATION_METHODS

@@ -165,7 +165,7 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
         vrange = (chan["velocity_min_kms"], chan["velocity_max_kms"]) * u.km / u.s
     los = sky["line_of_sight"]
-    view = snap if (los == "z" or lazy is not None) else snap.view(los)
+    view = snap if (los == "z" or lazy is not None) else snap.view(los, conf["cloud"]["edges"])
     view_los = los if lazy is not None else "z"
     if vrange is None:
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
@@ -255,7 +255,10 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
             abs(cube.wcs.wcs.cdelt[1]) * 3600),
         "excitation_info": {k: v for k, v in res.excitation_info.items()
                             if isinstance(v, (int, float, str, bool))},
+        "velocity_resolution": res.stats["velocity_resolution"],
     }
+    from .transfer.synthesize import warn_if_underresolved
+    warn_if_underresolved(name, entry["velocity_resolution"])
     if conf["output"]["figures"]:
         from .report.figures import moment0_figure
         moment0_figure(mom0, cube, str(line), os.path.join(tmp, f"{name}_mom0.png"))

@@ -315,8 +315,9 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_rati
     floored by the local FWHM over ``max_escape_length``) enters the escape probability through
     tau = (c^3 A / (8 pi nu^3)) K (x_l g_u/g_l - x_u) (Castor 1970), the same opacity the
     transfer uses. Populations come from a table over (n_H2, T_kin, K), refined until the
-    line's T_R differs from direct solves of ``n_check`` random cells by less than
-    ``accuracy`` (:mod:`synth.excitation.tables`).
+    line's T_R, optical depth and source function J(T_ex) - J(T_bg) each differ from direct
+    solves of ``n_check`` random cells by less than ``accuracy``
+    (:mod:`synth.excitation.tables`).
 
     Parameters
     ----------
@@ -331,7 +332,7 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_rati
     max_escape_length : Quantity ``[length]``, optional
         Cap on the Sobolev length (default the longest box edge).
     accuracy : float
-        Required relative accuracy of the table in T_R (default 1 %).
+        Required relative accuracy of the table in T_R, tau and J(T_ex) - J(T_bg) (default 1 %).
     seed : int
         Seed of the random check sample.
     progress : callable(fraction) or tqdm, optional
@@ -342,7 +343,8 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_rati
     -------
     Excitation
         ``t_ex_k``, ``opacity_integral`` (float32); ``info`` holds the achieved accuracy
-        ("table_error"), the table shape and size, the number of direct solves and ranges.
+        ("table_error", the largest of "table_error_t_r", "table_error_tau" and
+        "table_error_source"), the table shape and size, the number of direct solves and ranges.
     """
     from .gradient import sobolev_column
     from .product import Excitation
@@ -366,7 +368,9 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_rati
     info = {"geometry": geometry, "accuracy": accuracy, "levels": system.n_levels,
             "active_cells": int(active.sum())}
     if info["active_cells"] == 0:
-        info.update(table_error=0.0, table_shape=(0, 0, 0), table_nodes=0, direct_solves=0)
+        info.update(table_error=0.0, table_error_t_r=0.0, table_error_tau=0.0,
+                    table_error_source=0.0, table_shape=(0, 0, 0), table_nodes=0,
+                    direct_solves=0)
         shape = snapshot.shape
         return Excitation(line, np.full(shape, t_bg_k, np.float32),
                           np.zeros(shape, np.float32), "lvg", info)
@@ -381,7 +385,9 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_rati
     t_ex, op = apply_table(table, system, k_line, snapshot, ab, kcol, t_bg_k)
     if report is not None:
         report(1.0)
-    info.update(table_error=table.error, table_shape=table.shape,
+    info.update(table_error=table.error, table_error_t_r=table.errors[0],
+                table_error_tau=table.errors[1], table_error_source=table.errors[2],
+                table_shape=table.shape,
                 table_nodes=int(np.prod(table.shape)), direct_solves=table.solves,
                 n_check=int(cells.size), ranges_log10={"n_h2_cm3": ranges[0],
                                                        "t_kin_k": ranges[1], "k_cm3s": ranges[2]})

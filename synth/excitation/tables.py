@@ -17,12 +17,27 @@ nodes (logarithmic over the decades e spans, e ~ n at low density), f with v_0 =
 largest |f| (f changes sign in weak inversions, where a logarithm would interpolate badly).
 
 Error control: a random sample of cells (``numpy.random.default_rng(seed)``) is solved
-directly. The table's error is the largest relative difference in the line's radiation
-temperature T_R = [J(T_ex) - J(T_bg)](1 - e^{-tau}) (tau the cell's Sobolev optical depth)
-between interpolation and direct solve, measured against max(|T_R|, 1e-3 max|T_R| of the
-sample) so that nearly empty cells do not dominate. While it exceeds the requested accuracy
-the node spacing is halved along the axis whose coarsening (dropping every other node) raises
-the error most; new nodes start from the geometric mean of their neighbours' populations. If
+directly and three errors are measured between interpolation and direct solve:
+
+- in the line's radiation temperature T_R = [J(T_ex) - J(T_bg)](1 - e^{-tau}) (tau the cell's
+  Sobolev optical depth), relative to max(|T_R|, 1e-3 max|T_R| of the sample) so that nearly
+  empty cells do not dominate;
+- in tau itself, relative to max(|tau|, THICK_TAU = 1). T_R alone cannot see opacity errors
+  in thick cells, where 1 - e^{-tau} ~ 1, but the attenuation of what lies behind can; in a
+  thin cell the emission (J(T_ex) - J(T_bg)) tau = e tau_c K does not depend on f (T_ex and
+  tau come from the same interpolated e and f) and an error in f only changes the
+  attenuation, by |delta tau| (the Sobolev tau is the depth a photon sees over the
+  velocity-coherence length);
+- in the source function above the background, J(T_ex) - J(T_bg) = e/f, which is how T_ex
+  enters the transfer (T_ex itself diverges as f -> 0, so its relative error is no useful
+  bound), relative, over the sample cells with |tau| >= THICK_TAU, where it sets the
+  brightness.
+
+The table's error is the largest of the three. While it exceeds the requested accuracy the
+node spacing is halved along one axis: for the quantity with the largest error, the axis whose
+coarsening (dropping every other node) changes the interpolated values most at the failing
+sample cells (the difference between the coarse and the fine interpolant estimates the fine
+one's error). New nodes start from the geometric mean of their neighbours' populations. If
 the next halving would pass ``max_nodes`` a :class:`~synth.errors.TableAccuracyWarning` gives
 the accuracy reached.
 """
@@ -38,11 +53,14 @@ from ..errors import TableAccuracyWarning
 from ..radiation import H_CGS, K_CGS, radiation_temperature
 from .statistical_equilibrium import solve_levels
 
-__all__ = ["PopulationTable", "build_table", "apply_table", "INITIAL_STEP_DEX"]
+__all__ = ["PopulationTable", "build_table", "apply_table", "INITIAL_STEP_DEX", "THICK_TAU"]
 
 #: Initial node spacing (dex) along log n(H2), log T_kin, log K.
 INITIAL_STEP_DEX = (0.5, 0.1, 0.5)
 _REL_FLOOR = 1e-3
+#: Sobolev optical depth below which a cell counts as thin for the tau and source-function
+#: errors (module docstring).
+THICK_TAU = 1.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -52,8 +70,9 @@ class PopulationTable:
     axes : tuple of three 1-D arrays of log10 node values (uniformly spaced, length 1 allowed);
     values : ndarray (m_n, m_T, m_K, 2), asinh(e/e_0) and asinh(f/f_0) (module docstring);
     scales : (e_0, f_0); line : (nu_hz, g_u/g_l, tau_c, J(T_bg)) of the tabulated line;
-    error : float, the achieved sample error in T_R (module docstring); solves : int, the number
-    of direct solves made (nodes and sample).
+    error : float, the largest of the achieved sample errors; errors : (T_R, tau, source
+    function) sample errors (module docstring); solves : int, the number of direct solves made
+    (nodes and sample).
     """
 
     axes: tuple
@@ -62,6 +81,7 @@ class PopulationTable:
     line: tuple
     error: float
     solves: int
+    errors: tuple = (0.0, 0.0, 0.0)
 
     @property
     def shape(self):
@@ -129,16 +149,47 @@ def _node_values(pops, up, lo, line, scales=None):
     return np.stack([np.arcsinh(e / scales[0]), np.arcsinh(f / scales[1])], axis=-1), scales
 
 
-def _error(axes, vals, pts, ref_tr, kcol, line, scales):
+def _checked(e, f, kcol, line):
+    """(T_R, tau, J(T_ex) - J(T_bg)) of the line from e, f and the cells' K."""
+    tau = line[2] * kcol * f
+    with np.errstate(divide="ignore", invalid="ignore"):
+        src = np.where(f == 0.0, 0.0, e / np.where(f == 0.0, 1.0, f))
+    return _t_r(e, f, line[2] * kcol), tau, src
+
+
+def _predict(axes, vals, pts, kcol, line, scales):
     v = _interp(axes, vals, pts)
-    tr = _t_r(scales[0] * np.sinh(v[:, 0]), scales[1] * np.sinh(v[:, 1]), line[2] * kcol)
-    scale = np.maximum(np.abs(ref_tr), _REL_FLOOR * np.abs(ref_tr).max() + 1e-300)
-    return float(np.max(np.abs(tr - ref_tr) / scale))
+    return _checked(scales[0] * np.sinh(v[:, 0]), scales[1] * np.sinh(v[:, 1]), kcol, line)
 
 
-def _worst_axis(axes, vals, pts, ref_tr, kcol, line, scales):
-    """The axis whose coarsening by 2 raises the sample error most (None if none can be)."""
-    best, worst = None, -1.0
+def _cell_errors(got, ref):
+    """Per-cell errors (T_R, tau, source function) with their scales (module docstring);
+    the source-function error is 0 in thin cells."""
+    thick = np.abs(ref[1]) >= THICK_TAU
+    scales = (np.maximum(np.abs(ref[0]), _REL_FLOOR * np.abs(ref[0]).max() + 1e-300),
+              np.maximum(np.abs(ref[1]), THICK_TAU),
+              np.where(thick, np.abs(ref[2]) + 1e-300, np.inf))
+    return [np.abs(g - r) / sc for g, r, sc in zip(got, ref, scales)], scales
+
+
+def _errors(axes, vals, pts, ref, kcol, line, scales):
+    """Sample errors (T_R, tau, source function) of the interpolated table."""
+    errs, _ = _cell_errors(_predict(axes, vals, pts, kcol, line, scales), ref)
+    return tuple(float(np.max(e)) for e in errs)
+
+
+def _worst_axis(axes, vals, pts, ref, kcol, line, scales, accuracy):
+    """The axis to refine (None if none can be): for the quantity with the largest error, the
+    axis whose coarsening by 2 changes the interpolated values most at the sample cells that
+    fail the accuracy (the difference between a coarse and a fine interpolant estimates the
+    fine one's error)."""
+    fine = _predict(axes, vals, pts, kcol, line, scales)
+    errs, sc = _cell_errors(fine, ref)
+    q = int(np.argmax([e.max() for e in errs]))
+    failing = errs[q] > accuracy
+    if not np.any(failing):
+        failing = errs[q] >= errs[q].max()
+    best, score = None, -1.0
     for a, ax in enumerate(axes):
         if ax.size < 3:
             continue
@@ -146,9 +197,10 @@ def _worst_axis(axes, vals, pts, ref_tr, kcol, line, scales):
         coarse[a] = ax[::2]
         sl = [slice(None)] * 3
         sl[a] = slice(None, None, 2)
-        e = _error(coarse, vals[tuple(sl)], pts, ref_tr, kcol, line, scales)
-        if e > worst:
-            best, worst = a, e
+        got = _predict(coarse, vals[tuple(sl)], pts, kcol, line, scales)[q]
+        change = float(np.max((np.abs(got - fine[q]) / sc[q])[failing]))
+        if change > score:
+            best, score = a, change
     return best
 
 
@@ -200,28 +252,31 @@ def build_table(system, ranges, sample, line, opts, accuracy=0.01, max_nodes=600
     idx = np.stack(np.meshgrid(*[np.arange(a.size) for a in axes], indexing="ij"),
                    axis=-1).reshape(-1, 3)
     pops = _solve_nodes(system, axes, idx, None, opts).reshape(tuple(a.size for a in axes) + (-1,))
-    ref = solve_levels(system, *(10.0 ** sample.T), **opts).populations
+    x_ref = solve_levels(system, *(10.0 ** sample.T), **opts).populations
     kcol = 10.0 ** sample[:, 2]
-    ref_tr = line_t_r(ref[:, up], ref[:, lo], kcol, consts)
+    f_ref = x_ref[:, lo] * consts[1] - x_ref[:, up]
+    ref = _checked(H_CGS * nu / K_CGS * x_ref[:, up] - consts[3] * f_ref, f_ref, kcol, consts)
     solves = idx.shape[0] + sample.shape[0]
     scales = None
     while True:
         vals, scales = _node_values(pops, up, lo, consts, scales)
-        err = _error(axes, vals, sample, ref_tr, kcol, consts, scales)
+        errs = _errors(axes, vals, sample, ref, kcol, consts, scales)
+        err = max(errs)
         if progress is not None:
             progress(min(0.8, 0.8 * accuracy / max(err, accuracy)))
         if err <= accuracy:
             break
-        a = _worst_axis(axes, vals, sample, ref_tr, kcol, consts, scales)
+        a = _worst_axis(axes, vals, sample, ref, kcol, consts, scales, accuracy)
         size = np.prod([ax.size for ax in axes])
         if a is None or size * (2 * axes[a].size - 1) / axes[a].size > max_nodes:
             warnings.warn(f"LVG table stopped at {size} nodes (cap max_table_nodes="
-                          f"{max_nodes}) with a T_R error of {err:.3g} > accuracy {accuracy:g}",
+                          f"{max_nodes}) with a T_R error of {errs[0]:.3g}, tau {errs[1]:.3g}, "
+                          f"source function {errs[2]:.3g} > accuracy {accuracy:g}",
                           TableAccuracyWarning, stacklevel=3)
             break
         axes, pops, n_new = _refine(system, axes, pops, a, opts)
         solves += n_new
-    return PopulationTable(axes, vals, scales, consts, err, solves)
+    return PopulationTable(axes, vals, scales, consts, err, solves, errs)
 
 
 @njit(parallel=True, cache=True)

@@ -246,10 +246,10 @@ class Snapshot:
         """Edge lengths of the box, (Lx, Ly, Lz) as a Quantity in pc."""
         return (np.array(self.shape) * self.cell_size_cm * u.cm).to(u.pc)
 
-    def view(self, line_of_sight="z"):
+    def view(self, line_of_sight="z", edges=None):
         """This snapshot seen along another axis or rotation; see :func:`synth.snapshot.views.view`."""
         from .views import view
-        return view(self, line_of_sight)
+        return view(self, line_of_sight, edges)
 
     def __repr__(self):
         nx, ny, nz = self.shape

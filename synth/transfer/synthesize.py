@@ -6,6 +6,7 @@ tile and the output cube, never with snapshot x channels.
 
 import os
 import shutil
+import warnings
 import tempfile
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -14,18 +15,25 @@ import numpy as np
 import astropy.units as u
 from spectral_cube import SpectralCube
 
-from ..errors import ConfigError, ExcitationError
+from ..errors import ConfigError, ExcitationError, UnderResolvedVelocityWarning
 from ..excitation.product import EXCITATION_METHODS, Excitation
 from ..parallel import DaskExecutor, SerialExecutor
 from ..snapshot.core import Snapshot
 from ..snapshot.lazy import SnapshotFile
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
+from ..excitation.gradient import FWHM_PER_SIGMA
 from .kernel import N_SIGMA, transfer_columns
 from .skycube import channel_grid, sky_wcs
 from .tiles import plan_tiles
 
 __all__ = ["synthesize", "synthesize_products", "SynthesisResult", "excite_snapshot",
            "LINES_OF_SIGHT", "auto_velocity_range"]
+
+#: UnderResolvedVelocityWarning above this fraction of the emission from under-resolved cells.
+UNDERRESOLVED_WARN_FRACTION = 0.25
+
+#: What the tau cube holds (its TAUKIND header card): tau averaged over each channel.
+TAU_KIND = "channel mean"
 
 #: Axis views a tracer can be seen along (rotations are given as a dict, see views).
 LINES_OF_SIGHT = ("z", "-z", "x", "-x", "y", "-y")
@@ -114,7 +122,9 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
     position : (Quantity, Quantity), optional
         (RA, Dec) of the map centre.
     t_bg : Quantity ``[temperature]``, optional
-        Background temperature (default 2.725 K, the CMB).
+        Background blackbody temperature (default 2.725 K, the CMB), > 0. It is the radiation
+        behind the cloud in the transfer and, for LVG, the external field the level
+        populations are solved against (escape-probability J = (1 - beta) S + beta J(T_bg)).
     t_ex : Quantity, optional
         A fixed LTE excitation temperature instead of T_kin.
     excitation_options : dict, optional
@@ -125,7 +135,9 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
     Returns
     -------
     SpectralCube
-        Brightness temperature above the background (K), axes (v, y, x).
+        Brightness temperature above the background (K), axes (v, y, x); each channel is the
+        emergent intensity averaged over the channel (as a spectrometer channel reports it),
+        computed on sub-channels where the line is thick and narrower than the channel.
 
     Notes
     -----
@@ -168,7 +180,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
         if on_disk:
             raise ConfigError("LVG excitation needs the snapshot in memory (velocity gradients "
                               "across tiles); load it with SnapshotFile.load() first")
-        exc = excite_snapshot(snap, line, abundance, excitation, t_ex, excitation_options)
+        exc = excite_snapshot(snap, line, abundance, excitation, t_ex,
+                              _with_background(excitation, excitation_options, t_bg_k))
     n_cubes = 1 + ("tau" in products)
     plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
                       in_flight=getattr(executor or SerialExecutor(), "in_flight", 1),
@@ -178,7 +191,7 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
                "column" in products, line_of_sight if on_disk else "z")
     executor = executor or SerialExecutor()
     with _worker_source(snapshot if on_disk else snap, exc, executor) as source:
-        data, tau, col = _integrate(source, exc, plan, job, executor, progress)
+        data, tau, col, counts = _integrate(source, exc, plan, job, executor, progress)
     nx, ny, _ = shape
     cell_cm = snapshot.block(0, 1, line_of_sight).cell_size_cm if on_disk else snap.cell_size_cm
     pixel_deg = np.degrees(cell_cm / dist_cm)
@@ -187,7 +200,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
             "ABUND": float(abundance), "DISTPC": dist_cm / u.pc.to(u.cm),
             "LOS": str(line_of_sight), "TBG": t_bg_k}
     cube = _cube(data, wcs, meta, "K")
-    tau_cube = _cube(tau, wcs, dict(meta, BUNIT=""), "") if tau is not None else None
+    tau_cube = (_cube(tau, wcs, dict(meta, BUNIT="", TAUKIND=TAU_KIND), "")
+                if tau is not None else None)
     column = col.T * u.cm**-2 if col is not None else None
     stats = {"peak_k": float(np.nanmax(data)), "n_channels": grid.n,
              "integrated_k_kms": float(data.sum(dtype=np.float64) * grid.width_kms)}
@@ -195,7 +209,22 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
         stats["tau_max"] = float(np.max(tau))
     info = exc.info if exc is not None else {"t_ex": "t_kin" if t_ex is None else "fixed"}
     stats["tiles"] = len(plan.tiles)
+    stats["velocity_resolution"] = velocity_resolution(counts)
     return SynthesisResult(cube, tau_cube, column, info, stats)
+
+
+def _with_background(excitation, options, t_bg_k):
+    """LVG options with the populations solved against the same background as the transfer."""
+    options = dict(options or {})
+    if excitation != "lvg":
+        return options
+    given = options.get("t_bg_k")
+    if given is not None and not np.isclose(float(given), t_bg_k, rtol=1e-9, atol=0.0):
+        raise ConfigError(f"excitation_options t_bg_k={given!r} differs from t_bg={t_bg_k} K; "
+                          "give the background once, as t_bg (it sets both the LVG populations "
+                          "and the transfer)")
+    options["t_bg_k"] = t_bg_k
+    return options
 
 
 def _cube(data, wcs, meta, unit):
@@ -226,13 +255,14 @@ class _Job:
         if exc_block is None:
             from ..excitation.lte import lte_excitation
             exc_block = lte_excitation(block, self.line, self.abundance, t_ex=self.t_ex)
-        out, tau = transfer_tile(block, self.line, exc_block, slice(0, x1 - x0), self.grid,
-                                 self.v_sys_kms, self.j_bg, self.want_tau)
+        out, tau, counts = transfer_tile(block, self.line, exc_block, slice(0, x1 - x0),
+                                         self.grid, self.v_sys_kms, self.j_bg, self.want_tau,
+                                         want_resolution=True)
         col = None
         if self.want_column:
             x_ab = block.abundance_for(self.line.species, self.abundance)
             col = (block.n_h2_cm3 * x_ab).sum(axis=2) * block.cell_size_cm
-        return out, tau, col
+        return out, tau, col, counts
 
 
 @contextmanager
@@ -288,6 +318,7 @@ def _integrate(source, exc, plan, job, executor, progress):
     tiles = plan.tiles
     threads = 1 if isinstance(executor, DaskExecutor) else None
     on_disk = isinstance(source, SnapshotFile)
+    counts = np.zeros(4)
 
     def args():
         for x0, x1 in tiles:
@@ -299,7 +330,8 @@ def _integrate(source, exc, plan, job, executor, progress):
         from tqdm.auto import tqdm
         bar = tqdm(total=len(tiles), desc=f"{job.line} tiles", unit="tile", leave=False)
     try:
-        for i, (out, tau_t, col_t) in executor.map(job, args(), progress=bar):
+        for i, (out, tau_t, col_t, counts_t) in executor.map(job, args(), progress=bar):
+            counts += counts_t
             x0, x1 = tiles[i]
             n = x1 - x0
             data[:, :, x0:x1] = out.reshape(n, ny, nch).transpose(2, 1, 0)
@@ -310,11 +342,15 @@ def _integrate(source, exc, plan, job, executor, progress):
     finally:
         if bar is not None:
             bar.close()
-    return data, tau, col
+    return data, tau, col, counts
 
 
-def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=False):
-    """The block-level kernel: columns x in ``x_slice`` (all y, z) -> (ncol, nch) spectra."""
+def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=False,
+                  want_resolution=False):
+    """The block-level kernel: columns x in ``x_slice`` (all y, z) -> (ncol, nch) spectra.
+
+    Returns (spectra, tau or None), and with ``want_resolution`` also the
+    :func:`resolution_counts` of the block."""
     nx, ny, nz = snap.shape
     n = x_slice.stop - x_slice.start
     shape = (n * ny, nz)
@@ -335,7 +371,51 @@ def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=Fals
                      delta.astype(np.float32).reshape(shape),
                      float(grid.start_kms), float(grid.width_kms), int(grid.n), j_bg,
                      out, tau_out)
+    if want_resolution:
+        counts = resolution_counts(tau_int.reshape(shape), src, delta.reshape(shape),
+                                   sigma.reshape(shape), j_bg)
+        return out, (tau_out if want_tau else None), counts
     return out, (tau_out if want_tau else None)
+
+
+def resolution_counts(tau_int, src, delta, sigma, j_bg):
+    """[emitting cells, under-resolved emitting cells, emission weight, under-resolved weight].
+
+    A cell emits when its thin-limit contribution to the integrated intensity,
+    w = |J(T_ex) - J(T_bg)| |tau_int| (K km/s), is non-zero; it is under-resolved when the
+    line-of-sight velocity change across it (delta, central differences, as in the kernel)
+    exceeds the local thermal+turbulent FWHM, sqrt(8 ln 2) sigma.
+    """
+    w = np.abs(src.astype(np.float64) - j_bg) * np.abs(tau_int.astype(np.float64))
+    emitting = w > 0
+    bad = emitting & (delta > FWHM_PER_SIGMA * sigma)
+    return np.array([emitting.sum(), bad.sum(), w.sum(), w[bad].sum()], dtype=np.float64)
+
+
+def warn_if_underresolved(name, entry, threshold=None):
+    """UnderResolvedVelocityWarning when more than ``threshold`` (default
+    UNDERRESOLVED_WARN_FRACTION) of the emission of ``entry`` (a :func:`velocity_resolution`
+    dict) comes from under-resolved cells; returns whether it warned."""
+    threshold = UNDERRESOLVED_WARN_FRACTION if threshold is None else threshold
+    frac = entry["underresolved_emission_fraction"]
+    if frac <= threshold:
+        return False
+    warnings.warn(
+        f"{name}: {100 * frac:.0f} % of the emission ({100 * entry['underresolved_fraction']:.0f}"
+        " % of the emitting cells) comes from cells whose line-of-sight velocity change exceeds"
+        " the local thermal+turbulent FWHM; thick-line spectra may be off by 10 % or more "
+        "(docs/guide.md, velocity resolution); use a finer snapshot",
+        UnderResolvedVelocityWarning, stacklevel=2)
+    return True
+
+
+def velocity_resolution(counts):
+    """The summary entry from summed :func:`resolution_counts` (see docs/guide.md)."""
+    n_emit, n_bad, w_all, w_bad = (float(c) for c in counts)
+    return {"criterion": "line-of-sight velocity change across a cell > thermal+turbulent FWHM",
+            "emitting_cells": int(n_emit),
+            "underresolved_fraction": n_bad / n_emit if n_emit else 0.0,
+            "underresolved_emission_fraction": w_bad / w_all if w_all > 0 else 0.0}
 
 
 def _positive(q, unit, name):
