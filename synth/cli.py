@@ -8,7 +8,8 @@
     synth plan CONFIG               planning estimates per tracer x setup of a config
     synth compare A.fits B.fits     the same statistics of two cubes, side by side
 
-Bad input prints one line ``synth: error: ...`` and exits with status 2.
+Bad input prints one line ``synth: error: ...`` and exits with status 2. Ctrl-C (130) and
+SIGTERM (143) remove the half-built run folder and temporary files and print one line.
 """
 
 import argparse
@@ -212,7 +213,7 @@ def _cmd_compare(args):
     if names[0] == names[1]:
         names = ["a", "b"]
     if args.out is not None:
-        check_out_dir(args.out, args.overwrite)
+        check_out_dir(args.out, args.overwrite, (args.cube_a, args.cube_b))
     a, b = read_cube(args.cube_a, "A.fits"), read_cube(args.cube_b, "B.fits")
     rng = None if args.scale_range is None else tuple(args.scale_range)
     if rng is not None and not 0 < rng[0] < rng[1]:
@@ -220,7 +221,8 @@ def _cmd_compare(args):
     result = compare(a, b, names=tuple(names), scale_range=rng)
     print(comparison_text(result))
     if args.out is not None:
-        files = write_comparison(result, args.out, overwrite=args.overwrite)
+        files = write_comparison(result, args.out, overwrite=args.overwrite,
+                                 inputs=(args.cube_a, args.cube_b))
         print(f"wrote {', '.join(files)} into {args.out}")
     return 0
 
@@ -243,9 +245,23 @@ def _one_line_warnings():
     warnings.showwarning = show
 
 
+class Terminated(BaseException):
+    """Raised in the main thread when SIGTERM arrives, so cleanup runs as for Ctrl-C."""
+
+
+def _on_sigterm(signum, frame):
+    raise Terminated()
+
+
 def main(argv=None):
+    import signal
+    from .rundir import cleanup_registered
     args = build_parser().parse_args(argv)
     _one_line_warnings()
+    try:
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not the main thread: leave signals alone
+        previous = None
     try:
         return _COMMANDS[args.command](args)
     except SynthError as exc:
@@ -253,8 +269,16 @@ def main(argv=None):
         print(f"synth: error: {msg}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
+        cleanup_registered()
         print("synth: interrupted; nothing was written", file=sys.stderr)
         return 130
+    except Terminated:
+        cleanup_registered()
+        print("synth: terminated (SIGTERM); nothing was written", file=sys.stderr)
+        return 143
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":

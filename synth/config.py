@@ -9,10 +9,13 @@ reference (docs/config.md mirrors it; a test keeps them in step).
 """
 
 import difflib
+import math
 import os
 import tomllib
+import warnings
 
-from .errors import ConfigError
+from .errors import ConfigError, SynthWarning
+from .rundir import check_name
 
 __all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS"]
 
@@ -162,6 +165,8 @@ def validate_config(raw):
 
 
 def _check_values(conf):
+    raw_names = [tr["name"] for tr in conf["tracer"]]
+    _check_numbers(conf)
     if not conf["tracer"]:
         raise ConfigError("the config needs at least one [[tracer]] (species, transition, abundance)")
     if conf["sky"]["distance_pc"] <= 0:
@@ -174,9 +179,10 @@ def _check_values(conf):
         if tr["excitation"] not in EXCITATION_METHODS:
             raise ConfigError(f"[[tracer]] #{i + 1}.excitation is '{tr['excitation']}'; valid: "
                               f"{', '.join(EXCITATION_METHODS)}")
-        if not tr["abundance"] >= 0:
-            raise ConfigError(f"[[tracer]] #{i + 1}.abundance must be >= 0, got {tr['abundance']}")
-        tr["name"] = tr["name"] or f"{tr['species']}_{tr['transition']}".replace("+", "p")
+        if tr["name"] is None:
+            tr["name"] = f"{tr['species']}_{tr['transition']}".replace("+", "p")
+        check_name(tr["name"], f"[[tracer]] #{i + 1}.name" if raw_names[i] is not None
+                   else f"[[tracer]] #{i + 1} (its default name species_transition)")
         if tr["name"] in names:
             raise ConfigError(f"two tracers are named '{tr['name']}'; give one a different name")
         names.add(tr["name"])
@@ -184,11 +190,15 @@ def _check_values(conf):
     for i, st in enumerate(conf["setup"]):
         if st["kind"] not in SETUP_KINDS:
             raise ConfigError(f"[[setup]] #{i + 1}.kind is '{st['kind']}'; valid: {', '.join(SETUP_KINDS)}")
+        check_name(st["name"], f"[[setup]] #{i + 1}.name")
         if st["name"] in setups:
             raise ConfigError(f"two setups are named '{st['name']}'")
         setups.add(st["name"])
     for st in conf["setup"]:
         for other in st["combine_with"] or []:
+            if other == st["name"]:
+                raise ConfigError(f"[[setup]] '{st['name']}'.combine_with names the setup "
+                                  "itself; name other setups")
             if other not in setups:
                 raise ConfigError(f"setup '{st['name']}' combines with unknown setup '{other}'; "
                                   f"valid: {', '.join(sorted(setups))}")
@@ -196,6 +206,58 @@ def _check_values(conf):
         if p not in ("tau", "column"):
             raise ConfigError(f"[output].products has '{p}'; valid: 'tau', 'column'")
     _check_analysis(conf["analysis"])
+
+
+def _walk_numbers(value, where):
+    if isinstance(value, dict):
+        for k, v in value.items():
+            yield from _walk_numbers(v, f"{where}.{k}")
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            yield from _walk_numbers(v, f"{where}[{i}]")
+    elif isinstance(value, float):
+        yield where, value
+
+
+def _check_numbers(conf):
+    """Finite numbers everywhere (TOML allows nan and inf) and the ranges of sky positions,
+    abundances and channels, before any work."""
+    for section, value in conf.items():
+        items = value if section in _LISTS else [value]
+        for i, table in enumerate(items):
+            where = f"[[{section}]] #{i + 1}" if section in _LISTS else f"[{section}]"
+            for key, v in _walk_numbers(table, where):
+                if not math.isfinite(v):
+                    raise ConfigError(f"{key} is {v}; give a finite number")
+    sky, chan = conf["sky"], conf["channels"]
+    if not -90 <= sky["dec_deg"] <= 90:
+        raise ConfigError(f"[sky].dec_deg is {sky['dec_deg']}; valid: -90 <= dec_deg <= 90")
+    if not 0 <= sky["ra_deg"] < 360:
+        raise ConfigError(f"[sky].ra_deg is {sky['ra_deg']}; valid: 0 <= ra_deg < 360")
+    vmin, vmax = chan["velocity_min_kms"], chan["velocity_max_kms"]
+    if (vmin is None) != (vmax is None):
+        raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
+    if vmin is not None:
+        if not vmin < vmax:
+            raise ConfigError(f"[channels].velocity_max_kms ({vmax}) must be greater than "
+                              f"velocity_min_kms ({vmin})")
+        if chan["width_kms"] > vmax - vmin:
+            raise ConfigError(f"[channels].width_kms is {chan['width_kms']}, wider than the band "
+                              f"velocity_max_kms - velocity_min_kms = {vmax - vmin:g}; valid: "
+                              f"0 < width_kms <= {vmax - vmin:g}")
+    for i, tr in enumerate(conf["tracer"]):
+        x = tr["abundance"]
+        if isinstance(x, (int, float)) and not 0 < x < 1:
+            raise ConfigError(f"[[tracer]] #{i + 1}.abundance is {x}; valid: 0 < abundance < 1 "
+                              "(relative to H2)")
+        if isinstance(x, (int, float)) and x > 1e-3:
+            warnings.warn(f"[[tracer]] #{i + 1}.abundance is {x}, above 1e-3 (CO, the most "
+                          "abundant tracer, has about 1e-4 relative to H2)", SynthWarning,
+                          stacklevel=4)
+    for i, st in enumerate(conf["setup"]):
+        w = st["channel_width_kms"]
+        if w is not None and not w > 0:
+            raise ConfigError(f"[[setup]] #{i + 1}.channel_width_kms is {w}; valid: > 0")
 
 
 def _check_analysis(an):

@@ -14,6 +14,7 @@ import astropy.units as u
 
 from .errors import ConfigError
 from .fitsio import write_cube
+from .rundir import run_path
 
 __all__ = ["make_instrument", "observe_setups", "observe_options"]
 
@@ -89,7 +90,7 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
             inst = [inst] + [observed[(tname, o)] if setups[o]["kind"] == "dish"
                              else instruments[o] for o in st["combine_with"]]
         obs = observe(cube, inst, **observe_options(st))
-        base = os.path.join(tmp, f"{tname}_{sname}")
+        base = run_path(tmp, f"{tname}_{sname}")
         extra = {"SETUP": sname, "TRACER": tname}
         unit = obs.unit.to_string()
         write_cube(obs, f"{base}_{'jyb' if 'Jy' in unit else 'k'}.fits", chash, extra)
@@ -132,4 +133,4 @@ def _uv_figures(setups, instruments, ideal, tmp):
             continue
         plot_uv_and_beam(instruments[name], dec,
                          (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
-                         st["sample_interval_s"] * u.s, os.path.join(tmp, f"uv_{name}.png"), freq)
+                         st["sample_interval_s"] * u.s, run_path(tmp, f"uv_{name}.png"), freq)

@@ -7,7 +7,6 @@ existing run is replaced only with ``overwrite=True``.
 
 import os
 import shutil
-import tempfile
 import time
 
 import numpy as np
@@ -17,9 +16,11 @@ from . import __version__
 from .config import load_config, validate_config
 from .errors import ConfigError, OutputError
 from .fitsio import config_hash, write_cube, write_image, write_json
+from .rundir import (check_overwrite, finish_output, make_partial, run_path, sweep_debris,
+                     unregister_cleanup)
 
 __all__ = ["run_config", "synthesize_config", "ideal_cubes", "build_snapshot", "tracer_line",
-           "prepare_output", "DEMO_CONFIG"]
+           "prepare_output", "run_inputs", "DEMO_CONFIG"]
 
 #: The packaged demo configuration (identical to configs/demo.toml).
 DEMO_CONFIG = os.path.join(os.path.dirname(__file__), "configs", "demo.toml")
@@ -61,33 +62,23 @@ def _lvg_options(tracer):
     return opts or None
 
 
-def prepare_output(out_dir, overwrite):
-    """Check the output folder can be made; return a fresh temporary folder beside it."""
-    out_dir = os.path.abspath(out_dir)
-    if os.path.exists(out_dir) and not overwrite:
-        raise OutputError(f"output folder {out_dir} exists; choose another --out or pass --overwrite")
-    parent = os.path.dirname(out_dir)
-    if not os.path.isdir(parent):
-        raise OutputError(f"cannot create {out_dir}: the folder {parent} does not exist")
-    if not os.access(parent, os.W_OK):
-        raise OutputError(f"cannot create {out_dir}: the folder {parent} is not writable")
-    try:
-        return tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
-    except OSError as exc:
-        raise OutputError(f"cannot create {out_dir}: {exc.strerror or exc} in {parent}; "
-                          "choose a writable folder with --out") from None
+def run_inputs(conf, config_path=None):
+    """The files a run reads: its config, snapshot, molecular data files and antenna CSVs."""
+    paths = [config_path] if isinstance(config_path, (str, os.PathLike)) else []
+    if conf["cloud"]["source"] != "demo":
+        paths.append(conf["cloud"]["source"])
+    paths += [tr["datafile"] for tr in conf["tracer"] if tr["datafile"]]
+    paths += [st["antennas"] for st in conf["setup"]
+              if st["antennas"] and os.path.exists(st["antennas"])]
+    return [os.path.abspath(os.fspath(p)) for p in paths]
 
 
-def _finish_output(tmp, out_dir):
-    out_dir = os.path.abspath(out_dir)
-    if os.path.exists(out_dir):
-        old = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.old-",
-                               dir=os.path.dirname(out_dir))
-        os.replace(out_dir, os.path.join(old, "run"))
-        os.replace(tmp, out_dir)
-        shutil.rmtree(old, ignore_errors=True)
-    else:
-        os.replace(tmp, out_dir)
+def prepare_output(out_dir, overwrite, inputs=(), log=None):
+    """Check the output folder may be made (or replaced); return a fresh hidden folder beside
+    it to build the run in. Debris of killed runs in the same parent is removed first."""
+    out_dir = check_overwrite(out_dir, overwrite, inputs)
+    sweep_debris(os.path.dirname(out_dir), log)
+    return make_partial(out_dir)
 
 
 def run_config(config, out_dir, overwrite=False, progress=True, log=print, memory=None,
@@ -104,15 +95,16 @@ def run_config(config, out_dir, overwrite=False, progress=True, log=print, memor
     if memory is not None:
         from .transfer.tiles import parse_memory
         memory = parse_memory(memory)
-    tmp = prepare_output(out_dir, overwrite)
+    tmp = prepare_output(out_dir, overwrite, run_inputs(conf, config), log)
     try:
         from .parallel import executor_context
         with executor_context(workers, scheduler) as executor:
             summary = _run(conf, lines, chash, tmp, progress, log,
                            {"memory": memory, "executor": executor})
-        _finish_output(tmp, out_dir)
+        finish_output(tmp, out_dir)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
+        unregister_cleanup(tmp)
         raise
     return summary
 
@@ -206,7 +198,7 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
     write_report(tmp, summary, log=log)
-    write_json(summary, os.path.join(tmp, "summary.json"))
+    write_json(summary, run_path(tmp, "summary.json"))
     return summary
 
 
@@ -214,13 +206,13 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
     name = tr["name"]
     cube = res.cube
     extra = {"LINE": str(line), "EXCIT": tr["excitation"], "ABUND": tr["abundance"]}
-    write_cube(cube, os.path.join(tmp, f"{name}_ideal.fits"), chash, extra)
+    write_cube(cube, run_path(tmp, f"{name}_ideal.fits"), chash, extra)
     if "tau" in conf["output"]["products"]:
-        write_cube(res.tau, os.path.join(tmp, f"{name}_tau.fits"), chash, extra)
+        write_cube(res.tau, run_path(tmp, f"{name}_tau.fits"), chash, extra)
     if res.column is not None:
         hdr = cube.wcs.celestial.to_header()
         hdr["BUNIT"] = "cm-2"
-        write_image(res.column.value, hdr, os.path.join(tmp, f"{name}_column.fits"), chash, extra)
+        write_image(res.column.value, hdr, run_path(tmp, f"{name}_column.fits"), chash, extra)
     data = cube.unmasked_data[:].value
     dv = abs(cube.spectral_axis[1] - cube.spectral_axis[0]).to_value(u.km / u.s)
     mom0 = data.sum(axis=0) * dv
@@ -239,7 +231,7 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
     }
     if conf["output"]["figures"]:
         from .report.figures import moment0_figure
-        moment0_figure(mom0, cube, str(line), os.path.join(tmp, f"{name}_mom0.png"))
+        moment0_figure(mom0, cube, str(line), run_path(tmp, f"{name}_mom0.png"))
     return entry
 
 

@@ -1,0 +1,309 @@
+"""Run folders never lose a user's data: --overwrite replaces only a folder synth wrote, names
+stay labels, nothing is written outside the run folder, CSV cells are inert, and debris of
+killed runs is removed (synth.rundir)."""
+
+import hashlib
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import pytest
+
+from synth import cli
+from synth.config import validate_config
+from synth.errors import ConfigError, OutputError
+from synth.rundir import MARKER, check_name, csv_cell, run_path, sweep_debris
+
+TINY = """
+[cloud]
+source = "demo"
+size = 10
+seed = 3
+[sky]
+distance_pc = 2000
+[channels]
+width_kms = 1.0
+velocity_min_kms = -8
+velocity_max_kms = 8
+[[tracer]]
+species = "13CO"
+transition = "1-0"
+abundance = 2e-6
+[output]
+figures = false
+"""
+
+
+def _tree(folder):
+    """{relative path: sha256} of every file under ``folder`` (and the folder names)."""
+    out = {}
+    for root, dirs, files in os.walk(folder):
+        for d in dirs:
+            out[os.path.relpath(os.path.join(root, d), folder) + "/"] = "dir"
+        for f in files:
+            p = os.path.join(root, f)
+            with open(p, "rb") as fh:
+                out[os.path.relpath(p, folder)] = hashlib.sha256(fh.read()).hexdigest()
+    return out
+
+
+def _run(argv, capsys):
+    rc = cli.main(argv)
+    return rc, capsys.readouterr().err.strip()
+
+
+@pytest.fixture
+def tiny(tmp_path):
+    p = tmp_path / "in" / "run.toml"
+    p.parent.mkdir()
+    p.write_text(TINY)
+    return p
+
+
+def test_overwrite_replaces_a_run_folder(tiny, tmp_path, capsys):
+    """A folder synth wrote (it has the marker) is replaced by --overwrite, after the new run
+    succeeded; the marker lists the files written."""
+    out = tmp_path / "out"
+    assert _run(["run", str(tiny), "--out", str(out), "--quiet"], capsys)[0] == 0
+    marker = json.loads((out / MARKER).read_text())
+    assert marker["written_by"] == "synth" and "13CO_1-0_ideal.fits" in marker["files"]
+    assert sorted(marker["files"]) == sorted(f for f in os.listdir(out) if f != MARKER)
+    (out / "old.txt").write_text("x")
+    assert _run(["run", str(tiny), "--out", str(out), "--quiet", "--overwrite"], capsys)[0] == 0
+    assert not (out / "old.txt").exists() and (out / MARKER).exists()
+
+
+def _marked(folder):
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / MARKER).write_text(json.dumps({"written_by": "synth", "files": []}))
+    return folder
+
+
+@pytest.mark.parametrize("case, why", [
+    ("inputs", "an input of this run"),
+    ("dot", "the working folder or one of its parents"),
+    ("parent_of_cwd", "the working folder or one of its parents"),
+    ("not_a_run", "has no synth-run.json"),
+    ("file", "it is a file, not a run folder"),
+    ("symlink", "symbolic link"),
+])
+def test_overwrite_refused_and_nothing_deleted(case, why, tiny, tmp_path, capsys, monkeypatch):
+    """--overwrite into a folder holding the inputs, into '.', into a parent of the working
+    folder, into a folder synth did not write, onto a file and onto a link: each refused in
+    one line with exit 2, every byte under tmp_path unchanged."""
+    config = tiny
+    if case == "inputs":  # a run folder that also holds the config and snapshot
+        out = _marked(tmp_path / "in")
+        target = str(out)
+    elif case == "dot":
+        out = _marked(tmp_path / "here")
+        monkeypatch.chdir(out)
+        target = "."
+    elif case == "parent_of_cwd":
+        out = _marked(tmp_path / "top")
+        (out / "sub").mkdir()
+        monkeypatch.chdir(out / "sub")
+        target = str(out)
+    elif case == "not_a_run":
+        out = tmp_path / "mine"
+        out.mkdir()
+        (out / "thesis.tex").write_text("years of work")
+        target = str(out)
+    elif case == "file":
+        out = tmp_path / "notes.txt"
+        out.write_text("keep me")
+        target = str(out)
+    else:
+        real = _marked(tmp_path / "real")
+        out = tmp_path / "link"
+        out.symlink_to(real)
+        target = str(out)
+    before = _tree(tmp_path)
+    rc, err = _run(["run", str(config), "--out", target, "--overwrite", "--quiet"], capsys)
+    assert rc == 2
+    assert err.startswith("synth: error: --overwrite refuses") and why in err
+    assert len(err.splitlines()) == 1
+    assert _tree(tmp_path) == before
+
+
+def test_no_overwrite_refuses_existing(tiny, tmp_path, capsys):
+    out = tmp_path / "exists"
+    out.mkdir()
+    rc, err = _run(["run", str(tiny), "--out", str(out), "--quiet"], capsys)
+    assert rc == 2 and "exists; choose another --out or pass --overwrite" in err
+
+
+def test_compare_overwrite_refuses_folder_holding_its_cubes(tmp_path, capsys):
+    """synth compare --out --overwrite follows the same rules: a folder holding A.fits is
+    refused even when it carries the marker."""
+    folder = _marked(tmp_path / "cubes")
+    (folder / "a.fits").write_bytes(b"not read")
+    (folder / "b.fits").write_bytes(b"not read")
+    before = _tree(tmp_path)
+    rc, err = _run(["compare", str(folder / "a.fits"), str(folder / "b.fits"), "--out",
+                    str(folder), "--overwrite"], capsys)
+    assert rc == 2 and "an input of this run" in err
+    assert _tree(tmp_path) == before
+
+
+# -- names are labels, not paths -------------------------------------------------------------
+
+@pytest.mark.parametrize("name, fragment", [
+    ("../x", "first character '.'"),
+    ("/abs", "first character '/'"),
+    ("a/b", "character '/'"),
+    ("é", "U+00E9"),
+    ("\n", "U+000A"),
+    ("=1+1", "first character '='"),
+    ("-rf", "first character '-'"),
+    ("a b", "character ' '"),
+    ("x" * 65, "65 characters long"),
+    ("", "non-empty name"),
+])
+@pytest.mark.parametrize("section", ["tracer", "setup"])
+def test_unsafe_names_refused(name, fragment, section):
+    raw = {"sky": {"distance_pc": 100}, "channels": {"width_kms": 1.0},
+           "tracer": [{"species": "CO", "transition": "1-0", "abundance": 1e-4}]}
+    if section == "tracer":
+        raw["tracer"][0]["name"] = name
+        where = "[[tracer]] #1.name"
+    else:
+        raw["setup"] = [{"name": name, "kind": "dish", "diameter_m": 10, "rms_k": 0.1}]
+        where = "[[setup]] #1.name"
+    with pytest.raises(ConfigError, match="names may hold only|non-empty") as info:
+        validate_config(raw)
+    msg = str(info.value)
+    assert fragment in msg and where in msg and "\n" not in msg
+
+
+@pytest.mark.parametrize("name", ["13CO_1-0", "HCOp", "a.b+c-d", "_x"])
+def test_safe_names_accepted(name):
+    assert check_name(name, "k") == name
+
+
+def test_default_tracer_name_checked():
+    raw = {"sky": {"distance_pc": 100}, "channels": {"width_kms": 1.0},
+           "tracer": [{"species": "C/O", "transition": "1-0", "abundance": 1e-4}]}
+    with pytest.raises(ConfigError, match="its default name species_transition.*character '/'"):
+        validate_config(raw)
+
+
+@pytest.mark.parametrize("name", ["../x", "/etc/x", "a/b", "..", ".", ""])
+def test_run_path_keeps_files_inside(name, tmp_path):
+    with pytest.raises(OutputError, match="not a plain file name inside the run folder"):
+        run_path(str(tmp_path), name)
+    assert run_path(str(tmp_path), "ok.fits") == os.path.join(str(tmp_path), "ok.fits")
+
+
+def test_run_path_refuses_symlink_leaving_the_run(tmp_path):
+    (tmp_path / "run").mkdir()
+    (tmp_path / "run" / "x.fits").symlink_to(tmp_path / "elsewhere.fits")
+    with pytest.raises(OutputError):
+        run_path(str(tmp_path / "run"), "x.fits")
+
+
+@pytest.mark.parametrize("cell, inert", [
+    ("=1+1", "'=1+1"), ("+x", "'+x"), ("-x", "'-x"), ("@SUM(A1)", "'@SUM(A1)"),
+    ("\tx", "'\tx"), ("CO", "CO"), (-1.5, -1.5), (3, 3), (None, None)])
+def test_csv_cells_inert(cell, inert):
+    assert csv_cell(cell) == inert
+
+
+def test_csv_writers_make_formulas_inert(tmp_path):
+    """Every CSV writer (plan rows, survival matrix, antenna layout) quotes a formula cell and
+    keeps negative numbers as numbers."""
+    from synth.analysis.survival import matrix_csv
+    from synth.instrument.arrays import write_layout_csv
+    from synth.report.run_analysis import rows_csv
+    rows = [{"tracer": "=HYPERLINK(1)", "setup": "@x", "value": -2.5}]
+    for text in (rows_csv(rows), matrix_csv(rows)):
+        assert "'=HYPERLINK(1),'@x,-2.5" in text
+    write_layout_csv(tmp_path / "a.csv", [[0, 0, 0], [10, 0, 0]], names=["=A1", "-B"])
+    text = (tmp_path / "a.csv").read_text()
+    assert "\n'=A1," in text and "\n'-B," in text
+
+
+def test_hostile_names_write_nothing_outside(tmp_path, capsys):
+    """A config whose tracer name tries to leave the run folder is refused before anything
+    is created: the parent holds only the config afterwards."""
+    bad = TINY.replace('abundance = 2e-6', 'abundance = 2e-6\nname = "../../escaped"')
+    p = tmp_path / "bad.toml"
+    p.write_text(bad)
+    rc, err = _run(["run", str(p), "--out", str(tmp_path / "out"), "--quiet"], capsys)
+    assert rc == 2 and "[[tracer]] #1.name" in err
+    assert os.listdir(tmp_path) == ["bad.toml"]
+    assert not (tmp_path.parent / "escaped_ideal.fits").exists()
+
+
+# -- signals and debris ------------------------------------------------------------------------
+
+def _debris(folder):
+    return [n for n in os.listdir(folder) if ".partial-" in n or ".old-" in n]
+
+
+def test_killed_run_debris_reported_and_removed(tiny, tmp_path, capsys):
+    """A partial folder left by a SIGKILLed run (its process gone) is reported and removed by
+    the next run into the same parent; one of a live process is left alone."""
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    left = tmp_path / f".out.partial-{dead.pid}-dead1234"
+    left.mkdir()
+    (left / "13CO_1-0_ideal.fits").write_bytes(b"half")
+    live = tmp_path / f".other.partial-{os.getppid()}-live1234"
+    live.mkdir()
+    rc = cli.main(["run", str(tiny), "--out", str(tmp_path / "out")])
+    out = capsys.readouterr().out
+    assert rc == 0
+    assert "removed 1 folder(s) left by an interrupted synth run" in out and left.name in out
+    assert not left.exists() and live.exists()
+    assert sweep_debris(str(tmp_path)) == []
+
+
+def _env():
+    env = dict(os.environ)
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env["PYTHONPATH"] = root + os.pathsep + env.get("PYTHONPATH", "")
+    return env
+
+
+SLOWISH = TINY.replace("size = 10", "size = 20").replace("figures = false", "figures = true") + """
+[[tracer]]
+species = "C18O"
+transition = "1-0"
+abundance = 2e-7
+excitation = "lvg"
+[[setup]]
+name = "dish"
+kind = "dish"
+diameter_m = 30
+rms_k = 0.1
+"""
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("delay", [0.3, 1.5, 3.0, 4.5])
+def test_sigterm_cleans_up(delay, tmp_path):
+    """SIGTERM to a running `synth run` (a few seconds of work: LTE and LVG tracers, a dish,
+    figures) at a few points: exit 143 with one line, no partial folder and no temporary
+    files left. A signal that arrives after the run ended finds nothing to clean."""
+    import tempfile
+    spills = lambda: {n for n in os.listdir(tempfile.gettempdir()) if n.startswith("synth-tmp-")}
+    tmp_before = spills()
+    (tmp_path / "run.toml").write_text(SLOWISH)
+    proc = subprocess.Popen([sys.executable, "-m", "synth", "run", "run.toml", "--out", "out",
+                             "--quiet"], cwd=tmp_path, env=_env(),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    time.sleep(delay)
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=120)
+    names = sorted(os.listdir(tmp_path))
+    if proc.returncode == 143:
+        assert err.strip().splitlines()[-1] == "synth: terminated (SIGTERM); nothing was written"
+        assert names == ["run.toml"]
+    else:  # Python still starting (-15) or the run already over: still no debris
+        assert proc.returncode in (0, -15), err
+        assert names in (["run.toml"], ["out", "run.toml"])
+    assert spills() <= tmp_before
