@@ -307,3 +307,17 @@ def test_sigterm_cleans_up(delay, tmp_path):
         assert proc.returncode in (0, -15), err
         assert names in (["run.toml"], ["out", "run.toml"])
     assert spills() <= tmp_before
+
+
+def test_files_and_folders_follow_the_umask(tiny, tmp_path):
+    """Run folders and files get 0777 / 0666 less the user's umask, and importing or running
+    synth never changes the process umask."""
+    import synth.fitsio  # noqa: F401  (used to change the umask at import)
+    old = os.umask(0o027)
+    try:
+        cli.main(["run", str(tiny), "--out", str(tmp_path / "out"), "--quiet"])
+        assert os.umask(0o027) == 0o027
+    finally:
+        os.umask(old)
+    assert (tmp_path / "out").stat().st_mode & 0o777 == 0o750
+    assert (tmp_path / "out" / "summary.json").stat().st_mode & 0o777 == 0o640
