@@ -32,7 +32,12 @@ def _add_run_options(p):
     g.add_argument("--workers", type=int, default=None, metavar="N",
                    help="run the tiles on a local dask cluster of N worker processes")
     g.add_argument("--scheduler", default=None, metavar="ADDRESS",
-                   help="run the tiles on an existing dask.distributed scheduler, e.g. tcp://host:8786")
+                   help="run the tiles on an existing dask.distributed scheduler, e.g. "
+                        "tcp://host:8786 (only a cluster you trust: it runs code this "
+                        "process sends and sends back pickled results)")
+    g.add_argument("--dashboard", action="store_true",
+                   help="with --workers: serve the dask dashboard on 127.0.0.1 (a free port; "
+                        "the link is printed)")
 
 
 def build_parser():
@@ -124,7 +129,8 @@ def _cmd_run(args):
 def _run(conf, args, run_config):
     log = (lambda *a, **k: None) if args.quiet else print
     summary = run_config(conf, args.out, overwrite=args.overwrite, progress=not args.quiet, log=log,
-                         memory=args.memory, workers=args.workers, scheduler=args.scheduler)
+                         memory=args.memory, workers=args.workers, scheduler=args.scheduler,
+                         dashboard=args.dashboard)
     if not args.quiet:
         for name, t in summary["tracers"].items():
             print(f"{name:>14s}: peak T_B {t['peak_tb_k']:7.2f} K, peak ∫T dv "
@@ -190,10 +196,12 @@ def _cmd_plan(args):
     from .config import load_config
     from .pipeline import ideal_cubes
     from .report.run_analysis import plan_config, plan_text
+    from .preflight import preflight
     conf = load_config(args.config)
     settings = _plan_settings(conf, args)
     if not conf["setup"]:
         raise SynthError(f"{args.config} has no [[setup]] tables: nothing to plan")
+    preflight(conf)
     _, rows, skipped = plan_config(conf, ideal_cubes(conf), settings)
     print(f"target: S/N {settings['target_snr']:g} per channel on the "
           f"{settings['percentile']:g}th percentile of the emission")

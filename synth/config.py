@@ -202,6 +202,7 @@ def _check_values(conf):
             if other not in setups:
                 raise ConfigError(f"setup '{st['name']}' combines with unknown setup '{other}'; "
                                   f"valid: {', '.join(sorted(setups))}")
+    _check_setup_values(conf["setup"])
     for p in conf["output"]["products"]:
         if p not in ("tau", "column"):
             raise ConfigError(f"[output].products has '{p}'; valid: 'tau', 'column'")
@@ -260,6 +261,38 @@ def _check_numbers(conf):
             raise ConfigError(f"[[setup]] #{i + 1}.channel_width_kms is {w}; valid: > 0")
 
 
+_SETUP_RANGES = (  # key, test, what is valid
+    ("diameter_m", lambda v: v > 0, "> 0"),
+    ("efficiency", lambda v: 0 < v <= 1, "0 < efficiency <= 1"),
+    ("tsys_k", lambda v: v > 0, "> 0"),
+    ("taper", lambda v: v > 0, "> 0"),
+    ("beam_arcsec", lambda v: v > 0, "> 0"),
+    ("integration_time_h", lambda v: v > 0, "> 0"),
+    ("rms_k", lambda v: v > 0, "> 0"),
+    ("seed", lambda v: v >= 0, ">= 0"),
+    ("latitude_deg", lambda v: -90 <= v <= 90, "-90 <= latitude_deg <= 90"),
+    ("hour_angle_start_h", lambda v: -12 <= v <= 12, "-12 <= hour_angle_start_h <= 12"),
+    ("hour_angle_stop_h", lambda v: -12 <= v <= 12, "-12 <= hour_angle_stop_h <= 12"),
+    ("sample_interval_s", lambda v: v > 0, "> 0"),
+)
+_WEIGHTINGS = ("natural", "uniform", "robust")
+
+
+def _check_setup_values(setups):
+    """Ranges of [[setup]] values, in config terms, before any instrument is built."""
+    for i, st in enumerate(setups):
+        where = f"[[setup]] #{i + 1} '{st['name']}'"
+        for key, ok, valid in _SETUP_RANGES:
+            if st[key] is not None and not ok(st[key]):
+                raise ConfigError(f"{where}.{key} is {st[key]}; valid: {valid}")
+        if not st["hour_angle_start_h"] < st["hour_angle_stop_h"]:
+            raise ConfigError(f"{where}: hour_angle_start_h ({st['hour_angle_start_h']}) must be "
+                              f"less than hour_angle_stop_h ({st['hour_angle_stop_h']})")
+        if st["weighting"] not in _WEIGHTINGS:
+            raise ConfigError(f"{where}.weighting is '{st['weighting']}'; valid: "
+                              f"{', '.join(_WEIGHTINGS)}")
+
+
 def _check_analysis(an):
     checks = (("target_snr", an["target_snr"] > 0, "> 0"),
               ("percentile", 0 <= an["percentile"] <= 100, "in 0..100"),
@@ -282,6 +315,12 @@ def load_config(path):
             raw = tomllib.load(fh)
     except FileNotFoundError:
         raise ConfigError(f"config file {path} does not exist") from None
+    except IsADirectoryError:
+        raise ConfigError(f"config file {path} is a folder; give the path of a TOML file") from None
+    except PermissionError:
+        raise ConfigError(f"config file {path} cannot be read (permission denied)") from None
+    except UnicodeDecodeError:
+        raise ConfigError(f"config file {path} is not UTF-8 text; save it as UTF-8") from None
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"config file {path} is not valid TOML: {exc}") from None
     conf = validate_config(raw)

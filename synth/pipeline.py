@@ -82,23 +82,27 @@ def prepare_output(out_dir, overwrite, inputs=(), log=None):
 
 
 def run_config(config, out_dir, overwrite=False, progress=True, log=print, memory=None,
-               workers=None, scheduler=None):
+               workers=None, scheduler=None, dashboard=False):
     """Run a configuration (a path or a dict) and write its products into ``out_dir``.
 
     ``memory`` (bytes or "8GB") caps the transfer stage and makes snapshot files in HDF5,
     zarr or FITS be read tile by tile; ``workers`` runs the tiles on a local dask cluster,
-    ``scheduler`` on an existing one. Returns the run summary (also ``summary.json``).
+    ``scheduler`` on an existing one (a cluster you trust), ``dashboard`` serves the local
+    cluster's dask dashboard on 127.0.0.1. Returns the run summary (also ``summary.json``).
     """
     conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
     chash = config_hash(conf)
-    lines = [tracer_line(tr) for tr in conf["tracer"]]  # resolve names before any work
+    from .preflight import preflight
+    lines = preflight(conf, memory, workers, scheduler)  # every check before any work
     if memory is not None:
         from .transfer.tiles import parse_memory
         memory = parse_memory(memory)
     tmp = prepare_output(out_dir, overwrite, run_inputs(conf, config), log)
     try:
         from .parallel import executor_context
-        with executor_context(workers, scheduler) as executor:
+        with executor_context(workers, scheduler, dashboard) as executor:
+            if getattr(executor, "dashboard_link", None):
+                log(f"dask dashboard: {executor.dashboard_link}")
             summary = _run(conf, lines, chash, tmp, progress, log,
                            {"memory": memory, "executor": executor})
         finish_output(tmp, out_dir)
@@ -159,6 +163,10 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
                                       line_of_sight=view_los).value for ln in lines]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
+        from .preflight import check_cube_size  # the band is known only now
+        n_chan = int(np.ceil((vrange[1] - vrange[0]).to_value(u.km / u.s) / chan["width_kms"]))
+        check_cube_size(n_chan, (view.shape if lazy is None else lazy.view_shape(view_los)),
+                        len(lines), memory)
     products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
     from tqdm.auto import tqdm
     bar = tqdm(list(zip(conf["tracer"], lines)), desc="tracers", unit="tracer",

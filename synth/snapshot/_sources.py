@@ -6,6 +6,7 @@ stored unit (``unit``: npz key ``<name>_unit``, HDF5 attribute ``units``/``unit`
 """
 
 import os
+import zipfile
 
 import numpy as np
 import astropy.units as u
@@ -64,11 +65,18 @@ class _Npz(_Source):
         return list(self._data.files)
 
     def get(self, name):
-        return self._data[name]
+        try:
+            return self._data[name]
+        except ValueError as exc:  # e.g. an object array, refused without pickle
+            raise SnapshotError(f"{self.label}: array '{name}' cannot be read without running "
+                                f"code stored in the file ({exc}); store plain numeric "
+                                "arrays") from None
+        except (OSError, EOFError, zipfile.BadZipFile) as exc:
+            raise SnapshotError(f"{self.label}: array '{name}' is damaged: {exc}") from None
 
     def unit(self, name):
         key = f"{name}_unit"
-        return str(self._data[key]) if key in self._data.files else None
+        return str(self.get(key)) if key in self._data.files else None
 
     def cell_size(self):
         if "cell_size" not in self._data.files:

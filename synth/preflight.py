@@ -1,0 +1,197 @@
+"""Every check of a run that needs no synthesis, in one pass before any work.
+
+:func:`preflight` is called by ``synth run`` / ``synth demo`` (before the output folder is
+made) and by ``synth plan``. It resolves each tracer's line, reads the snapshot's shape (not
+its data), builds each ``[[setup]]``'s instrument with the same code the observing stage uses
+(:func:`synth.observing.make_instrument`, so required keys per kind are checked in one place),
+reads antenna files, checks that the source rises at each array's site, that the cube's pixel
+samples each array's longest baseline, and that the cubes fit in memory. Errors are one line
+naming the section, the tracer or setup, the key, the value and what is valid.
+"""
+
+import math
+import os
+import warnings
+
+import numpy as np
+
+from .errors import ConfigError, MemoryBudgetError, SynthError, SynthWarning
+
+__all__ = ["preflight", "check_cube_size", "snapshot_geometry"]
+
+_PC_CM = 3.0856775814913673e18
+_C_KMS = 299792.458
+#: Bytes per channel and sky pixel the run keeps for each tracer's cubes (ideal + tau,
+#: float32, and float64 copies made for figures and observing): a planning figure.
+_BYTES_PER_VOXEL = 24
+
+
+def preflight(conf, memory=None, workers=None, scheduler=None):
+    """Check a validated config and the execution options; return the tracers' Lines.
+
+    Raises the first problem found as a one-line :class:`~synth.errors.SynthError`."""
+    from .parallel import check_execution
+    check_execution(workers, scheduler)
+    budget = None
+    if memory is not None:
+        from .transfer.tiles import parse_memory
+        budget = parse_memory(memory)
+    lines = [_line(tr, i) for i, tr in enumerate(conf["tracer"])]
+    shape, cell_pc = snapshot_geometry(conf["cloud"], conf["sky"]["line_of_sight"])
+    chan = conf["channels"]
+    if chan["velocity_min_kms"] is not None:
+        n_chan = math.ceil((chan["velocity_max_kms"] - chan["velocity_min_kms"])
+                           / chan["width_kms"] - 1e-9)
+        check_cube_size(n_chan, shape, len(lines), budget)
+        _check_band(conf, lines)
+    _check_setups(conf, lines, cell_pc)
+    return lines
+
+
+def _where_tracer(tr, i):
+    return f"[[tracer]] #{i + 1} '{tr['name']}'"
+
+
+def _line(tr, i):
+    """The tracer's Line; the datafile's molecule must be the tracer's species."""
+    from .pipeline import tracer_line
+    where = _where_tracer(tr, i)
+    if tr["datafile"] is not None and not os.path.isfile(tr["datafile"]):
+        raise ConfigError(f"{where}.datafile = {tr['datafile']}: no such file; give the path "
+                          "of a Leiden-format molecular data file (relative to the config)")
+    try:
+        line = tracer_line(tr)
+    except SynthError as exc:
+        raise type(exc)(f"{where}: {exc}") from None
+    if tr["datafile"] is not None:
+        name = str(line.molecule.name).strip()
+        if _norm(name) != _norm(tr["species"]):
+            raise ConfigError(f"{where}.datafile = {os.path.basename(tr['datafile'])} holds "
+                              f"molecule '{name}', not species = '{tr['species']}'; set "
+                              f"species = \"{name}\" or give that species' file")
+    return line
+
+
+def _norm(name):
+    return "".join(ch for ch in name.lower() if ch.isalnum() or ch == "+")
+
+
+def snapshot_geometry(cloud, line_of_sight="z"):
+    """((nx, ny, nz) of the view, cell size in pc or None) without reading the data."""
+    if cloud["source"] == "demo":
+        n = cloud["size"]
+        if n < 8:
+            raise ConfigError(f"[cloud].size is {n}; valid: >= 8 cells per axis")
+        return (n, n, n), cloud["box_pc"] / n
+    if cloud["format"] == "yt":
+        return None, cloud["cell_size_pc"]
+    from .snapshot.readers import snapshot_shape
+    src = cloud["source"]
+    if os.path.isdir(src) and not src.endswith(".zarr"):
+        raise ConfigError(f"[cloud].source = {src} is a folder; give a snapshot file")
+    if not os.path.exists(src):
+        raise ConfigError(f"[cloud].source = {src}: no such file; give \"demo\" or the path of "
+                          "a snapshot file (relative to the config)")
+    shape = tuple(int(n) for n in snapshot_shape(src, cloud["fields"], cloud["format"]))
+    if isinstance(line_of_sight, str):
+        los = "xyz".index(line_of_sight[-1])
+        sky = [shape[a] for a in range(3) if a != los]
+        shape = (sky[0], sky[1], shape[los])
+    return shape, cloud["cell_size_pc"]
+
+
+def check_cube_size(n_chan, shape, n_tracers=1, budget=None):
+    """Refuse a channel count whose cubes cannot fit: above ``budget`` bytes (--memory) or
+    this machine's memory. ``shape`` is the view's (nx, ny, nz) (None: unknown)."""
+    if shape is None:
+        return
+    nx, ny = shape[0], shape[1]
+    need = n_chan * nx * ny * _BYTES_PER_VOXEL
+    limit, what = (budget, "the --memory budget") if budget else (_ram(), "this machine's memory")
+    if limit and need > limit:
+        err = MemoryBudgetError if budget else ConfigError
+        raise err(f"[channels]: {n_chan:,} channels x {nx} x {ny} pixels need about "
+                  f"{_size(need)} per tracer, more than {what} ({_size(limit)}); widen "
+                  "width_kms or narrow velocity_min_kms..velocity_max_kms")
+
+
+def _ram():
+    try:
+        return os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def _size(nbytes):
+    for unit, f in (("TB", 1e12), ("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if nbytes >= f:
+            return f"{nbytes / f:.3g} {unit}"
+    return f"{nbytes} B"
+
+
+def _check_band(conf, lines):
+    """Warn when the given velocity band misses the systemic velocity (where the line is)."""
+    chan, v0 = conf["channels"], conf["sky"]["systemic_velocity_kms"]
+    if not chan["velocity_min_kms"] <= v0 <= chan["velocity_max_kms"]:
+        warnings.warn(f"[channels] velocity_min_kms..velocity_max_kms = "
+                      f"{chan['velocity_min_kms']:g}..{chan['velocity_max_kms']:g} km/s does not "
+                      f"cover [sky].systemic_velocity_kms = {v0:g}: the cubes will hold little "
+                      "or no line emission", SynthWarning, stacklevel=3)
+
+
+# -- setups ----------------------------------------------------------------------------------
+
+def _check_setups(conf, lines, cell_pc):
+    from .observing import make_instrument, observe_options
+    for st in conf["setup"]:
+        where = f"[[setup]] '{st['name']}'"
+        for other in st["combine_with"] or []:
+            if st["kind"] != "array":
+                raise ConfigError(f"{where}.combine_with: only kind = \"array\" setups combine "
+                                  f"with others; this one is kind = \"{st['kind']}\"")
+        try:
+            inst = make_instrument(st)
+            observe_options(st)
+        except SynthError as exc:
+            msg = str(exc)
+            own = f"setup '{st['name']}' "
+            msg = msg[len(own):].lstrip(": ") if msg.startswith(own) else msg
+            raise type(exc)(f"{where}: {msg}") from None
+        if st["kind"] == "array":
+            _check_array(conf, st, inst, lines, cell_pc, where)
+
+
+def _check_array(conf, st, inst, lines, cell_pc, where):
+    """The source rises at the site during the hour angles, and the cube's pixel samples the
+    longest projected baseline (Nyquist, as the imaging stage checks)."""
+    import astropy.units as u
+    from .instrument.uv import elevation, sample_hour_angles
+    dec = conf["sky"]["dec_deg"]
+    lat = st["latitude_deg"]
+    ha = (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle
+    h, _ = sample_hour_angles(ha, st["sample_interval_s"] * u.s)
+    el = np.degrees(elevation(h, np.radians(dec), np.radians(lat)))
+    limit = inst.elevation_limit.to_value(u.deg)
+    if not (el >= limit).any():
+        raise ConfigError(f"{where}: the source at [sky].dec_deg = {dec:g} never rises above "
+                          f"{limit:g} deg elevation at latitude_deg = {lat:g} during hour angles "
+                          f"{st['hour_angle_start_h']:g}..{st['hour_angle_stop_h']:g} h (highest "
+                          f"{el.max():.1f} deg); valid: a declination within about "
+                          f"{90 - limit:g} deg of the latitude")
+    if cell_pc is None:
+        return
+    from .instrument.uv import uv_tracks
+    uvw = uv_tracks(inst, dec * u.deg, ha, st["sample_interval_s"] * u.s).uvw_m
+    longest = np.abs(uvw[:, :2]).max()
+    pixel_rad = cell_pc / conf["sky"]["distance_pc"]
+    v_sys = conf["sky"]["systemic_velocity_kms"]
+    for line in lines:
+        nu = line.freq_hz * (1 - v_sys / _C_KMS)  # <= the cube's highest frequency
+        need = 0.5 / (longest * nu / (_C_KMS * 1e3))
+        if pixel_rad > need * (1 + 1e-6):
+            raise ConfigError(
+                f"{where}: the cube's pixel, {math.degrees(pixel_rad) * 3600:.3g} arcsec "
+                f"([cloud] cell size / [sky].distance_pc), is too coarse for this array's "
+                f"longest projected baseline ({longest:.0f} m) at {line}: valid: a pixel <= "
+                f"{math.degrees(need) * 3600:.3g} arcsec (more cells, a larger distance_pc) or "
+                "a more compact antenna layout")
