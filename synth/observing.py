@@ -36,10 +36,10 @@ def make_instrument(st):
         else:
             kw["diameter"] = st["diameter_m"] * u.m
         return SingleDish(**kw)
-    from .instrument.interferometer import Interferometer
     for key in ("antennas", "latitude_deg", "tsys_k"):
         if st[key] is None:
             raise ConfigError(f"setup '{st['name']}' (array) needs '{key}'")
+    from .instrument.interferometer import Interferometer  # after the cheap checks
     kw = dict(antennas=st["antennas"], latitude=st["latitude_deg"] * u.deg,
               efficiency=st["efficiency"], tsys=st["tsys_k"] * u.K, name=st["name"])
     if st["diameter_m"] is not None:

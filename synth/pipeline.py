@@ -57,8 +57,9 @@ def _lvg_options(tracer):
     if tracer["max_escape_length_pc"] is not None:
         opts["max_escape_length"] = tracer["max_escape_length_pc"] * u.pc
     if opts and tracer["excitation"] != "lvg":
-        raise ConfigError(f"tracer '{tracer['name']}' sets LVG options {sorted(opts)} but its "
-                          "excitation is 'lte'")
+        raise ConfigError(f"[[tracer]] '{tracer['name']}' sets LVG options "
+                          f"{', '.join(sorted(opts))} but its excitation is 'lte'; set "
+                          "excitation = \"lvg\" or remove them")
     return opts or None
 
 

@@ -11,10 +11,12 @@ naming the section, the tracer or setup, the key, the value and what is valid.
 
 import math
 import os
+import re
 import warnings
 
 import numpy as np
 
+from .config import SETUP
 from .errors import ConfigError, MemoryBudgetError, SynthError, SynthWarning
 
 __all__ = ["preflight", "check_cube_size", "snapshot_geometry"]
@@ -37,6 +39,7 @@ def preflight(conf, memory=None, workers=None, scheduler=None):
         from .transfer.tiles import parse_memory
         budget = parse_memory(memory)
     lines = [_line(tr, i) for i, tr in enumerate(conf["tracer"])]
+    _check_view(conf["sky"]["line_of_sight"])
     shape, cell_pc = snapshot_geometry(conf["cloud"], conf["sky"]["line_of_sight"])
     chan = conf["channels"]
     if chan["velocity_min_kms"] is not None:
@@ -63,6 +66,8 @@ def _line(tr, i):
         line = tracer_line(tr)
     except SynthError as exc:
         raise type(exc)(f"{where}: {exc}") from None
+    from .pipeline import _lvg_options
+    _lvg_options(tr)
     if tr["datafile"] is not None:
         name = str(line.molecule.name).strip()
         if _norm(name) != _norm(tr["species"]):
@@ -70,6 +75,19 @@ def _line(tr, i):
                               f"molecule '{name}', not species = '{tr['species']}'; set "
                               f"species = \"{name}\" or give that species' file")
     return line
+
+
+def _check_view(los):
+    from .snapshot.views import AXIS_VIEWS, _parse_rotation
+    if isinstance(los, str):
+        if los not in AXIS_VIEWS:
+            raise ConfigError(f"[sky].line_of_sight is '{los}'; valid: "
+                              f"{', '.join(AXIS_VIEWS)} or {{euler_deg = [a, b, c]}}")
+        return
+    try:
+        _parse_rotation(los)
+    except SynthError as exc:
+        raise ConfigError(f"[sky].line_of_sight: {exc}") from None
 
 
 def _norm(name):
@@ -156,7 +174,11 @@ def _check_setups(conf, lines, cell_pc):
             msg = str(exc)
             own = f"setup '{st['name']}' "
             msg = msg[len(own):].lstrip(": ") if msg.startswith(own) else msg
-            raise type(exc)(f"{where}: {msg}") from None
+            m = re.search(r"needs '(\w+)'$", msg)
+            if m and m.group(1) in SETUP:
+                msg += f" ({SETUP[m.group(1)][2]})"
+            raise type(exc)(f"{where} {msg}" if msg.startswith("(") else f"{where}: {msg}"
+                            ) from None
         if st["kind"] == "array":
             _check_array(conf, st, inst, lines, cell_pc, where)
 
