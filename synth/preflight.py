@@ -48,7 +48,19 @@ def preflight(conf, memory=None, workers=None, scheduler=None):
         check_cube_size(n_chan, shape, len(lines), budget)
         _check_band(conf, lines)
     _check_setups(conf, lines, cell_pc)
+    _check_spectra_positions(conf, shape)
     return lines
+
+
+def _check_spectra_positions(conf, shape):
+    given = conf["analysis"]["spectra_positions"]
+    if not given or shape is None or not isinstance(conf["sky"]["line_of_sight"], str):
+        return
+    nx, ny = shape[0], shape[1]
+    for x, y in given:
+        if not (0 <= x < nx and 0 <= y < ny):
+            raise ConfigError(f"[analysis].spectra_positions has [{x}, {y}]; valid: "
+                              f"0 <= x < {nx}, 0 <= y < {ny} (the cube's pixels)")
 
 
 def _where_tracer(tr, i):
@@ -161,12 +173,28 @@ def _check_band(conf, lines):
 
 def _check_setups(conf, lines, cell_pc):
     from .observing import make_instrument, observe_options
+    kinds = {st["name"]: st["kind"] for st in conf["setup"]}
+    chan = conf["channels"]
     for st in conf["setup"]:
         where = f"[[setup]] '{st['name']}'"
-        for other in st["combine_with"] or []:
-            if st["kind"] != "array":
-                raise ConfigError(f"{where}.combine_with: only kind = \"array\" setups combine "
-                                  f"with others; this one is kind = \"{st['kind']}\"")
+        if st["combine_with"] and st["kind"] != "array":
+            raise ConfigError(f"{where}.combine_with: only kind = \"array\" setups combine "
+                              f"with others; this one is kind = \"{st['kind']}\"")
+        dishes = [o for o in st["combine_with"] or [] if kinds.get(o) == "dish"]
+        if len(dishes) > 1:
+            raise ConfigError(f"{where}.combine_with names {len(dishes)} dish setups "
+                              f"({', '.join(dishes)}); valid: at most one dish to feather with")
+        w = st["channel_width_kms"]
+        if w is not None and w < chan["width_kms"] * (1 - 1e-9):
+            raise ConfigError(f"{where}.channel_width_kms is {w:g}, finer than the ideal cube's "
+                              f"[channels].width_kms = {chan['width_kms']:g}; valid: >= "
+                              f"{chan['width_kms']:g}")
+        if w is not None and chan["velocity_min_kms"] is not None:
+            band = chan["velocity_max_kms"] - chan["velocity_min_kms"]
+            if w > band * (1 + 1e-9):
+                raise ConfigError(f"{where}.channel_width_kms is {w:g}, wider than the band "
+                                  f"[channels] velocity_max_kms - velocity_min_kms = {band:g}; "
+                                  f"valid: {chan['width_kms']:g} <= channel_width_kms <= {band:g}")
         try:
             inst = make_instrument(st)
             observe_options(st)

@@ -172,6 +172,13 @@ CONFIG_CASES = [
     ("combine-with-unknown", _setup(combine_with=["nope"]), "unknown setup 'nope'"),
     ("dish-combines", _two_setups(dict(DISH, combine_with=["arr"]), ARRAY),
      "only kind = \"array\" setups combine"),
+    ("setup-channel-finer", _setup(channel_width_kms=0.5), "finer than the ideal cube's"),
+    ("setup-channel-above-band", _setup(channel_width_kms=40.0), "wider than the band"),
+    ("two-dishes-feathered", lambda c: c.update(setup=[
+        dict(DISH, name="d1"), dict(DISH, name="d2"),
+        dict(ARRAY, combine_with=["d1", "d2"])]), "names 2 dish setups"),
+    ("spectra-position-outside", _set(["analysis"], {"spectra_positions": [[10, 2]]}),
+     "valid: 0 <= x < 10, 0 <= y < 10"),
     ("unknown-layout", _setup(antennas="nowhere-7"), "'nowhere-7': no such file; give a built-in layout"),
     ("source-never-rises", _set(["sky", "dec_deg"], 70.0), None),  # with an array: below
     ("pixel-too-coarse", _many(_set(["sky", "distance_pc"], 200),
