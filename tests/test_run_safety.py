@@ -321,3 +321,37 @@ def test_files_and_folders_follow_the_umask(tiny, tmp_path):
         os.umask(old)
     assert (tmp_path / "out").stat().st_mode & 0o777 == 0o750
     assert (tmp_path / "out" / "summary.json").stat().st_mode & 0o777 == 0o640
+
+
+# -- dask etiquette ----------------------------------------------------------------------------
+
+def _worker_env():
+    return {k: os.environ.get(k) for k in ("OMP_NUM_THREADS", "MKL_NUM_THREADS",
+                                           "OPENBLAS_NUM_THREADS")}
+
+
+@pytest.mark.slow
+def test_local_cluster_etiquette(monkeypatch):
+    """A local cluster: workers get one thread each through the environment, the caller's
+    environment is untouched, everything listens on 127.0.0.1, no dashboard."""
+    pytest.importorskip("distributed")
+    from synth.parallel import executor_context
+    for k in ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS"):
+        monkeypatch.delenv(k, raising=False)
+    unset = {"OMP_NUM_THREADS": None, "MKL_NUM_THREADS": None, "OPENBLAS_NUM_THREADS": None}
+    with executor_context(workers=1) as ex:
+        assert _worker_env() == unset
+        (wenv,) = ex.client.run(_worker_env).values()
+        assert wenv == {"OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
+                        "OPENBLAS_NUM_THREADS": "1"}
+        info = ex.client.scheduler_info()
+        assert info["address"].startswith("tcp://127.0.0.1:")
+        assert all(w.startswith("tcp://127.0.0.1:") for w in info["workers"])
+        assert getattr(ex, "dashboard_link", None) is None
+        port = info.get("services", {}).get("dashboard")
+        if port is not None:  # dask's health endpoint may listen (loopback), no dashboard page
+            import urllib.error
+            import urllib.request
+            with pytest.raises(urllib.error.HTTPError, match="404"):
+                urllib.request.urlopen(f"http://127.0.0.1:{port}/status", timeout=5)
+    assert _worker_env() == unset
