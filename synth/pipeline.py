@@ -174,6 +174,9 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
                disable=not progress)
     for tr, line in bar:
         bar.set_postfix_str(str(line))
+        budget = memory
+        if memory is not None and lazy is None and tr["excitation"] != "lte":
+            budget = _budget_beside(view, memory, tr)
         yield tr, line, synthesize_products(
             view, line, tr["abundance"], tr["excitation"],
             distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
@@ -183,7 +186,21 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             t_bg=sky["background_k"] * u.K,
             t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
             excitation_options=_lvg_options(tr), products=products, progress=progress,
-            memory=memory, executor=executor)
+            memory=budget, executor=executor)
+
+
+def _budget_beside(snap, memory, tr):
+    """What is left of ``memory`` for the transfer stage of an LVG tracer once the whole
+    snapshot is in memory (LVG cannot read it by tiles), so the run stays within --memory."""
+    from .errors import MemoryBudgetError
+    held = sum(np.asarray(a).nbytes for a in snap._cgs.values() if isinstance(a, np.ndarray))
+    held += sum(np.asarray(a).nbytes for a in (snap._cgs.get("abundance") or {}).values())
+    if held >= memory:
+        raise MemoryBudgetError(
+            f"[[tracer]] '{tr['name']}' (excitation = \"lvg\") holds the snapshot in memory, "
+            f"{held / 1e6:.1f} MB, which leaves nothing of --memory {memory / 1e6:.1f} MB; raise "
+            "--memory or use excitation = \"lte\"")
+    return memory - held
 
 
 def ideal_cubes(config):

@@ -42,11 +42,13 @@ def preflight(conf, memory=None, workers=None, scheduler=None):
     _check_view(conf["sky"]["line_of_sight"])
     shape, cell_pc = snapshot_geometry(conf["cloud"], conf["sky"]["line_of_sight"])
     chan = conf["channels"]
+    n_chan = None
     if chan["velocity_min_kms"] is not None:
         n_chan = math.ceil((chan["velocity_max_kms"] - chan["velocity_min_kms"])
                            / chan["width_kms"] - 1e-9)
         check_cube_size(n_chan, shape, len(lines), budget)
         _check_band(conf, lines)
+    _check_lvg_memory(conf, shape, budget, n_chan)
     _check_setups(conf, lines, cell_pc)
     _check_spectra_positions(conf, shape)
     return lines
@@ -143,6 +145,43 @@ def check_cube_size(n_chan, shape, n_tracers=1, budget=None):
         raise err(f"[channels]: {n_chan:,} channels x {nx} x {ny} pixels need about "
                   f"{_size(need)} per tracer, more than {what} ({_size(limit)}); widen "
                   "width_kms or narrow velocity_min_kms..velocity_max_kms")
+
+
+#: LVG holds the whole snapshot in memory (velocity gradients cross tiles). Measured with
+#: tracemalloc on demo clouds of 32^3 and 64^3 (C18O 1-0): the solver's peak is ~40 MB of
+#: tables plus ~8 bytes per cell; these figures add a margin of two.
+LVG_FIXED_BYTES = 80_000_000
+LVG_BYTES_PER_CELL = 16
+#: A snapshot in memory: n, T, 3 velocity components, sigma and an abundance, float64 when
+#: read from a file (the demo cloud stores float32).
+SNAPSHOT_BYTES_PER_CELL = {"file": 56, "demo": 24}
+
+
+def lvg_memory_need(shape, demo, n_chan=None, n_cubes=2):
+    """Bytes an LVG tracer needs at its peak: the snapshot in memory plus the larger of the
+    solver's work and (the output cubes plus its excitation, 8 bytes per cell)."""
+    cells = shape[0] * shape[1] * shape[2]
+    snap = cells * SNAPSHOT_BYTES_PER_CELL["demo" if demo else "file"]
+    cubes = 0 if n_chan is None else n_cubes * n_chan * shape[0] * shape[1] * 4
+    return snap + max(LVG_FIXED_BYTES + cells * LVG_BYTES_PER_CELL, cubes + 8 * cells)
+
+
+def _check_lvg_memory(conf, shape, budget, n_chan):
+    """With --memory, an LVG tracer must fit in it with the whole snapshot in memory; say up
+    front by how much it does not."""
+    lvg = [(i, tr) for i, tr in enumerate(conf["tracer"]) if tr["excitation"] != "lte"]
+    if budget is None or not lvg or shape is None:
+        return
+    need = lvg_memory_need(shape, conf["cloud"]["source"] == "demo", n_chan)
+    if need > budget:
+        i, tr = lvg[0]
+        nx, ny, nz = shape
+        raise MemoryBudgetError(
+            f"{_where_tracer(tr, i)} has excitation = \"{tr['excitation']}\", which holds the "
+            f"whole snapshot in memory (velocity gradients cross tiles): about {_size(need)} "
+            f"for {nx} x {ny} x {nz} cells, {_size(need - budget)} more than --memory "
+            f"{_size(budget)}; raise --memory to at least {_size(need)} or use "
+            "excitation = \"lte\" (read tile by tile)")
 
 
 def _ram():
