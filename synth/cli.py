@@ -257,8 +257,26 @@ class Terminated(BaseException):
     """Raised in the main thread when SIGTERM arrives, so cleanup runs as for Ctrl-C."""
 
 
+_SIGNALLED = []
+
+
 def _on_sigterm(signum, frame):
-    raise Terminated()
+    if not _SIGNALLED:
+        _SIGNALLED.append(signum)
+        raise Terminated()
+    # a second SIGTERM (the first was swallowed somewhere, or cleanup hangs): clean up and die
+    import os
+    import signal
+    from .rundir import cleanup_registered
+    cleanup_registered()
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    os.kill(os.getpid(), signal.SIGTERM)
+
+
+def _terminated(cleanup):
+    cleanup()
+    print("synth: terminated (SIGTERM); nothing was written", file=sys.stderr)
+    return 143
 
 
 def main(argv=None):
@@ -266,6 +284,7 @@ def main(argv=None):
     from .rundir import cleanup_registered
     args = build_parser().parse_args(argv)
     _one_line_warnings()
+    _SIGNALLED.clear()
     try:
         previous = signal.signal(signal.SIGTERM, _on_sigterm)
     except ValueError:  # not the main thread: leave signals alone
@@ -273,6 +292,8 @@ def main(argv=None):
     try:
         return _COMMANDS[args.command](args)
     except SynthError as exc:
+        if _SIGNALLED:  # a library turned our Terminated into its own error
+            return _terminated(cleanup_registered)
         msg = " ".join(str(exc).split())
         print(f"synth: error: {msg}", file=sys.stderr)
         return 2
@@ -281,9 +302,11 @@ def main(argv=None):
         print("synth: interrupted; nothing was written", file=sys.stderr)
         return 130
     except Terminated:
-        cleanup_registered()
-        print("synth: terminated (SIGTERM); nothing was written", file=sys.stderr)
-        return 143
+        return _terminated(cleanup_registered)
+    except Exception:
+        if _SIGNALLED:  # a library turned our Terminated into its own error
+            return _terminated(cleanup_registered)
+        raise
     finally:
         if previous is not None:
             signal.signal(signal.SIGTERM, previous)

@@ -262,6 +262,24 @@ def test_killed_run_debris_reported_and_removed(tiny, tmp_path, capsys):
     assert sweep_debris(str(tmp_path)) == []
 
 
+def test_spill_folders_registered_and_swept(tmp_path):
+    """A temporary snapshot spill folder is removed at exit (registered), and one left by a
+    killed process (synth-tmp-PID-XXXX, PID gone) is removed by the next sweep."""
+    import tempfile
+    from synth import rundir
+    mine = rundir.temp_folder()
+    (open(os.path.join(mine, "snapshot.h5"), "wb")).close()
+    assert mine in rundir._REGISTERED
+    rundir.cleanup_registered()
+    assert not os.path.exists(mine) and not rundir._REGISTERED
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    stale = os.path.join(tempfile.gettempdir(), f"synth-tmp-{dead.pid}-abcd1234")
+    os.mkdir(stale)
+    removed = rundir.sweep_debris(str(tmp_path))
+    assert stale in removed and not os.path.exists(stale)
+
+
 def _env():
     env = dict(os.environ)
     root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
