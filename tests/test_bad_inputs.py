@@ -405,3 +405,23 @@ def test_bad_api(case, clean_dirs):
 
 def test_table_has_at_least_60_cases():
     assert len(CONFIG_CASES) + len(FILE_CASES) + len(CLI_CASES) + len(API_IDS) >= 60
+
+
+WARNING_CASES = [
+    ("abundance-high", _tracer(abundance=5e-3), "above 1e-3"),
+    ("band-misses-line", _many(_set(["sky", "systemic_velocity_kms"], 40.0)),
+     "does not cover [sky].systemic_velocity_kms = 40"),
+]
+
+
+@pytest.mark.parametrize("case, edit, fragment", WARNING_CASES,
+                         ids=[c[0] for c in WARNING_CASES])
+def test_suspicious_config_warns_up_front(case, edit, fragment, tmp_path, monkeypatch):
+    """Suspicious but possible values warn (one line) before any work, and the run goes on."""
+    from synth.config import validate_config
+    from synth.errors import SynthWarning
+    from synth.preflight import preflight
+    conf = copy.deepcopy(BASE)
+    edit(conf)
+    with pytest.warns(SynthWarning, match=fragment.replace("[", "\\[").replace("]", "\\]")):
+        preflight(validate_config(conf))
