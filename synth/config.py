@@ -200,8 +200,8 @@ def _check_values(conf):
                 raise ConfigError(f"[[setup]] '{st['name']}'.combine_with names the setup "
                                   "itself; name other setups")
             if other not in setups:
-                raise ConfigError(f"setup '{st['name']}' combines with unknown setup '{other}'; "
-                                  f"valid: {', '.join(sorted(setups))}")
+                raise ConfigError(f"[[setup]] '{st['name']}'.combine_with names '{other}', which "
+                                  f"is not a setup; valid: {', '.join(sorted(setups))}")
     _check_setup_values(conf["setup"])
     for p in conf["output"]["products"]:
         if p not in ("tau", "column"):

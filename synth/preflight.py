@@ -234,6 +234,7 @@ def _check_setups(conf, lines, cell_pc):
                 raise ConfigError(f"{where}.channel_width_kms is {w:g}, wider than the band "
                                   f"[channels] velocity_max_kms - velocity_min_kms = {band:g}; "
                                   f"valid: {chan['width_kms']:g} <= channel_width_kms <= {band:g}")
+        _check_setup_files(st, where)
         try:
             inst = make_instrument(st)
             observe_options(st)
@@ -248,6 +249,31 @@ def _check_setups(conf, lines, cell_pc):
                             ) from None
         if st["kind"] == "array":
             _check_array(conf, st, inst, lines, cell_pc, where)
+
+
+def _check_setup_files(st, where):
+    """antennas and taper in config terms, before the instrument code sees them."""
+    if st["taper"] is not None:
+        from .instrument.beam import TAPER_RANGE
+        lo, hi = TAPER_RANGE
+        if not lo <= st["taper"] <= hi:
+            raise ConfigError(f"{where}.taper is {st['taper']:g}; valid: {lo:g} <= taper <= {hi:g} "
+                              "(beam FWHM in lambda/D)")
+    ant = st["antennas"]
+    if st["kind"] != "array" or ant is None:
+        return
+    from .instrument.arrays import BUILTIN_LAYOUTS
+    if ant in BUILTIN_LAYOUTS:
+        return
+    if os.path.isdir(ant):
+        raise ConfigError(f"{where}.antennas = {ant} is a folder; give a CSV file or a built-in "
+                          f"layout ({', '.join(sorted(BUILTIN_LAYOUTS))})")
+    if not os.path.isfile(ant):
+        raise ConfigError(f"{where}.antennas = '{ant}' is neither a built-in layout "
+                          f"({', '.join(sorted(BUILTIN_LAYOUTS))}) nor a CSV file (no such file; "
+                          "paths are relative to the config)")
+    if not os.access(ant, os.R_OK):
+        raise ConfigError(f"{where}.antennas = {ant} cannot be read (permission denied)")
 
 
 def _check_array(conf, st, inst, lines, cell_pc, where):

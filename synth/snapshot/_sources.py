@@ -53,6 +53,9 @@ class _Npz(_Source):
 
     def __init__(self, path):
         self.label = f"snapshot file '{path}'"
+        if os.path.isfile(path) and not zipfile.is_zipfile(path):
+            raise SnapshotError(f"{self.label} is not a .npz file (not a zip archive of "
+                                "arrays); write it with numpy.savez or synth.write_npz")
         try:
             self._data = np.load(path, allow_pickle=False)
         except (OSError, ValueError) as exc:
@@ -68,9 +71,9 @@ class _Npz(_Source):
         try:
             return self._data[name]
         except ValueError as exc:  # e.g. an object array, refused without pickle
-            raise SnapshotError(f"{self.label}: array '{name}' cannot be read without running "
-                                f"code stored in the file ({exc}); store plain numeric "
-                                "arrays") from None
+            raise SnapshotError(f"{self.label}: array '{name}' holds Python objects, which "
+                                "synth does not load (loading them could run code stored in "
+                                "the file); store plain numeric arrays") from None
         except (OSError, EOFError, zipfile.BadZipFile) as exc:
             raise SnapshotError(f"{self.label}: array '{name}' is damaged: {exc}") from None
 
