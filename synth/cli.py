@@ -201,7 +201,7 @@ def _cmd_plan(args):
     settings = _plan_settings(conf, args)
     if not conf["setup"]:
         raise SynthError(f"{args.config} has no [[setup]] tables: nothing to plan")
-    preflight(conf)
+    preflight(conf, observing=False)
     _, rows, skipped = plan_config(conf, ideal_cubes(conf), settings)
     print(f"target: S/N {settings['target_snr']:g} per channel on the "
           f"{settings['percentile']:g}th percentile of the emission")

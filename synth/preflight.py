@@ -28,10 +28,13 @@ _C_KMS = 299792.458
 _BYTES_PER_VOXEL = 24
 
 
-def preflight(conf, memory=None, workers=None, scheduler=None):
+def preflight(conf, memory=None, workers=None, scheduler=None, observing=True):
     """Check a validated config and the execution options; return the tracers' Lines.
 
-    Raises the first problem found as a one-line :class:`~synth.errors.SynthError`."""
+    Raises the first problem found as a one-line :class:`~synth.errors.SynthError`.
+    ``observing=False`` (``synth plan``) leaves out what only observing needs: that the
+    source rises at each array and that the pixel samples its baselines (the planner reports
+    such setups as not planned, with the reason)."""
     from .parallel import check_execution
     check_execution(workers, scheduler)
     budget = None
@@ -49,7 +52,7 @@ def preflight(conf, memory=None, workers=None, scheduler=None):
         check_cube_size(n_chan, shape, len(lines), budget)
         _check_band(conf, lines)
     _check_lvg_memory(conf, shape, budget, n_chan)
-    _check_setups(conf, lines, cell_pc)
+    _check_setups(conf, lines, cell_pc, observing)
     _check_spectra_positions(conf, shape)
     return lines
 
@@ -210,7 +213,7 @@ def _check_band(conf, lines):
 
 # -- setups ----------------------------------------------------------------------------------
 
-def _check_setups(conf, lines, cell_pc):
+def _check_setups(conf, lines, cell_pc, observing=True):
     from .observing import make_instrument, observe_options
     kinds = {st["name"]: st["kind"] for st in conf["setup"]}
     chan = conf["channels"]
@@ -247,7 +250,7 @@ def _check_setups(conf, lines, cell_pc):
                 msg += f" ({SETUP[m.group(1)][2]})"
             raise type(exc)(f"{where} {msg}" if msg.startswith("(") else f"{where}: {msg}"
                             ) from None
-        if st["kind"] == "array":
+        if st["kind"] == "array" and observing:
             _check_array(conf, st, inst, lines, cell_pc, where)
 
 

@@ -336,7 +336,7 @@ CLI_CASES = [
     ("plan-target-snr", ["plan", "withsetup.toml", "--target-snr", "-1"],
      "--target-snr must be > 0"),
     ("plan-no-setup", ["plan", "run.toml"], "has no [[setup]] tables"),
-    ("plan-never-rises", ["plan", "rises.toml"], "never rises above"),
+    ("plan-array-without-antennas", ["plan", "noants.toml"], "'arr' (array) needs 'antennas'"),
 ]
 
 
@@ -348,9 +348,8 @@ def test_bad_cli(case, argv, fragment, clean_dirs, capsys):
                                                                   "dec_deg": 95.0},
                                         setup=[DISH])),
              "withsetup.toml": to_toml(dict(copy.deepcopy(BASE), setup=[DISH])),
-             "rises.toml": to_toml(dict(copy.deepcopy(BASE), sky={"distance_pc": 2000,
-                                                                  "dec_deg": 70.0},
-                                        setup=[ARRAY]))}
+             "noants.toml": to_toml(dict(copy.deepcopy(BASE), setup=[
+                 {k: v for k, v in ARRAY.items() if k != "antennas"}]))}
     for name, text in files.items():
         (work / name).write_text(text)
     (work / "latin1.toml").write_bytes('[sky]\nname = "caf\xe9"\n'.encode("latin-1"))
@@ -426,3 +425,15 @@ def test_suspicious_config_warns_up_front(case, edit, fragment, tmp_path, monkey
     edit(conf)
     with pytest.warns(SynthWarning, match=fragment.replace("[", "\\[").replace("]", "\\]")):
         preflight(validate_config(conf))
+
+
+def test_plan_reports_a_setup_that_cannot_observe(tmp_path, capsys, monkeypatch):
+    """`synth plan` checks the config up front but leaves observing-only conditions (the
+    source rising at an array) to the planner, which lists the setup as not planned."""
+    monkeypatch.chdir(tmp_path)
+    conf = dict(copy.deepcopy(BASE), sky={"distance_pc": 2000, "dec_deg": 70.0},
+                setup=[ARRAY, DISH])
+    (tmp_path / "p.toml").write_text(to_toml(conf))
+    assert cli.main(["plan", "p.toml"]) == 0
+    out = capsys.readouterr().out
+    assert "not planned: arr / 13CO_1-0" in out and "dish" in out
