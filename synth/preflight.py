@@ -43,6 +43,7 @@ def preflight(conf, memory=None, workers=None, scheduler=None, observing=True):
         budget = parse_memory(memory)
     lines = [_line(tr, i) for i, tr in enumerate(conf["tracer"])]
     _check_view(conf["sky"]["line_of_sight"])
+    _check_cloud(conf["cloud"], conf["sky"])
     shape, cell_pc = snapshot_geometry(conf["cloud"], conf["sky"]["line_of_sight"])
     chan = conf["channels"]
     n_chan = None
@@ -85,6 +86,12 @@ def _line(tr, i):
         raise type(exc)(f"{where}: {exc}") from None
     from .pipeline import _lvg_options
     _lvg_options(tr)
+    _check_tracer_values(tr, where)
+    if tr["excitation"] == "lvg":
+        try:
+            line.collision_molecule()  # LVG needs collision rates: found now, not after work
+        except SynthError as exc:
+            raise type(exc)(f"{where} (excitation = \"lvg\"): {exc}") from None
     if tr["datafile"] is not None:
         name = str(line.molecule.name).strip()
         if _norm(name) != _norm(tr["species"]):
@@ -92,6 +99,36 @@ def _line(tr, i):
                               f"molecule '{name}', not species = '{tr['species']}'; set "
                               f"species = \"{name}\" or give that species' file")
     return line
+
+
+def _check_tracer_values(tr, where):
+    from .excitation.escape import GEOMETRIES
+    checks = (("t_ex_k", lambda v: v > 0, "> 0 K"),
+              ("ortho_para_ratio", lambda v: v >= 0, ">= 0"),
+              ("accuracy", lambda v: 0 < v < 1, "0 < accuracy < 1"),
+              ("max_escape_length_pc", lambda v: v > 0, "> 0"))
+    for key, ok, valid in checks:
+        if tr[key] is not None and not ok(tr[key]):
+            raise ConfigError(f"{where}.{key} is {tr[key]}; valid: {valid}")
+    if tr["geometry"] is not None and tr["geometry"] not in GEOMETRIES:
+        raise ConfigError(f"{where}.geometry is '{tr['geometry']}'; valid: "
+                          f"{', '.join(GEOMETRIES)}")
+
+
+_CLOUD_CHECKS = (("box_pc", lambda v: v > 0, "> 0"),
+                 ("mean_density_cm3", lambda v: v > 0, "> 0"),
+                 ("mach", lambda v: v >= 0, ">= 0"),
+                 ("solenoidal_fraction", lambda v: 0 <= v <= 1, "0 <= solenoidal_fraction <= 1"),
+                 ("cell_size_pc", lambda v: v > 0, "> 0"),
+                 ("sigma_turb_kms", lambda v: v >= 0, ">= 0"))
+
+
+def _check_cloud(cloud, sky):
+    for key, ok, valid in _CLOUD_CHECKS:
+        if cloud[key] is not None and not ok(cloud[key]):
+            raise ConfigError(f"[cloud].{key} is {cloud[key]}; valid: {valid}")
+    if not sky["background_k"] > 0:
+        raise ConfigError(f"[sky].background_k is {sky['background_k']}; valid: > 0 K")
 
 
 def _check_view(los):
@@ -128,11 +165,22 @@ def snapshot_geometry(cloud, line_of_sight="z"):
         raise ConfigError(f"[cloud].source = {src}: no such file; give \"demo\" or the path of "
                           "a snapshot file (relative to the config)")
     shape = tuple(int(n) for n in snapshot_shape(src, cloud["fields"], cloud["format"]))
+    first = _first_slab(cloud, shape)  # every field, unit and the cell size, on one slab
+    cell_pc = cloud["cell_size_pc"] or first.cell_size_cm / _PC_CM
     if isinstance(line_of_sight, str):
         los = "xyz".index(line_of_sight[-1])
         sky = [shape[a] for a in range(3) if a != los]
         shape = (sky[0], sky[1], shape[los])
-    return shape, cloud["cell_size_pc"]
+    return shape, cell_pc
+
+
+def _first_slab(cloud, shape):
+    """The first x slab of a snapshot file, read as the run will read it (fields, units,
+    cell size, values), so a bad file is refused before any work."""
+    from .pipeline import _reader_kwargs
+    from .snapshot.readers import read_snapshot
+    return read_snapshot(cloud["source"], fields=cloud["fields"], format=cloud["format"],
+                         region=(0, 0, 1), **_reader_kwargs(cloud))
 
 
 def check_cube_size(n_chan, shape, n_tracers=1, budget=None):
