@@ -2,7 +2,7 @@
 the cleanup of half-built folders.
 
 A run folder is built under a hidden name beside its destination
-(``.NAME.partial-PID-XXXX``) and renamed into place when the run succeeds. Its marker file,
+(``.NAME.partial-HOST-PID-XXXX``) and renamed into place when the run succeeds. Its marker file,
 :data:`MARKER`, names synth, its version and the files it wrote. ``--overwrite`` replaces a
 folder only when it carries that marker, holds none of the run's inputs and is neither the
 working folder nor one of its parents; anything else is refused before any work. Half-built
@@ -17,6 +17,7 @@ import os
 import re
 import secrets
 import shutil
+import stat
 import tempfile
 
 from .errors import ConfigError, OutputError
@@ -24,7 +25,7 @@ from .errors import ConfigError, OutputError
 __all__ = ["MARKER", "SAFE_NAME_RULE", "check_name", "run_path", "check_overwrite",
            "make_partial", "finish_output", "write_marker", "read_marker", "sweep_debris",
            "temp_folder", "register_cleanup", "unregister_cleanup", "cleanup_registered",
-           "remove_temp_folder", "csv_cell"]
+           "remove_temp_folder", "csv_cell", "host_tag"]
 
 #: The marker file every run folder carries (JSON: written_by, version, files).
 MARKER = "synth-run.json"
@@ -34,9 +35,9 @@ SAFE_NAME_RULE = ("ASCII letters, digits and _ - . + (at most 64 characters, "
                   "not starting with . or - or +)")
 _SAFE_FIRST = re.compile(r"[A-Za-z0-9_]")
 _SAFE_REST = re.compile(r"[A-Za-z0-9_.+-]")
-_DEBRIS = re.compile(r"^\..+\.(partial|old)-(\d+)-[A-Za-z0-9_]+$")
+_DEBRIS = re.compile(r"^\..+\.(?:partial|old)-([0-9a-f]{6})-(\d+)-[0-9a-f]+$")
 _SPILL_PREFIX = "synth-tmp-"
-_SPILL = re.compile(r"^synth-tmp-(\d+)-[A-Za-z0-9_]+$")
+_SPILL = re.compile(r"^synth-tmp-([0-9a-f]{6})-(\d+)-[0-9a-f]+$")
 
 
 def check_name(name, where):
@@ -157,8 +158,16 @@ def cleanup_registered():
         shutil.rmtree(_REGISTERED.pop(), ignore_errors=True)
 
 
+def host_tag():
+    """Six hex digits naming this machine, so that a sweep never judges a process of another
+    machine (a shared file system) by a process id of this one."""
+    import hashlib
+    import socket
+    return hashlib.sha256(socket.gethostname().encode()).hexdigest()[:6]
+
+
 def _token():
-    return f"{os.getpid()}-{secrets.token_hex(4)}"
+    return f"{host_tag()}-{os.getpid()}-{secrets.token_hex(4)}"
 
 
 def _mkdir_umask(path):
@@ -229,9 +238,11 @@ def sweep_debris(parent, log=None):
     """Remove half-built run folders in ``parent`` (and temporary snapshot files in the
     temporary folder) left by synth processes that no longer run; return their paths.
 
-    Only names synth makes are touched: ``.NAME.partial-PID-XXXX``, ``.NAME.old-PID-XXXX``
-    and ``synth-tmp-PID-XXXX``, and only when process PID is gone."""
+    Only names synth makes are touched: ``.NAME.partial-HOST-PID-XXXX``,
+    ``.NAME.old-HOST-PID-XXXX`` and ``synth-tmp-HOST-PID-XXXX``, and only when they belong to
+    this user, were made on this machine (HOST) and process PID is gone."""
     removed = []
+    host, uid = host_tag(), os.getuid()
     for folder, pattern in ((parent, _DEBRIS), (tempfile.gettempdir(), _SPILL)):
         try:
             names = os.listdir(folder)
@@ -240,9 +251,13 @@ def sweep_debris(parent, log=None):
         for name in names:
             m = pattern.match(name)
             path = os.path.join(folder, name)
-            if m is None or not os.path.isdir(path) or os.path.islink(path):
+            if m is None or m.group(1) != host or _alive(int(m.group(2))):
                 continue
-            if _alive(int(m.group(1) if pattern is _SPILL else m.group(2))):
+            try:
+                st = os.lstat(path)
+            except OSError:
+                continue
+            if not stat.S_ISDIR(st.st_mode) or st.st_uid != uid:
                 continue
             shutil.rmtree(path, ignore_errors=True)
             if not os.path.exists(path):

@@ -15,6 +15,7 @@ import pytest
 from synth import cli
 from synth.config import validate_config
 from synth.errors import ConfigError, OutputError
+from synth import rundir
 from synth.rundir import MARKER, check_name, csv_cell, run_path, sweep_debris
 
 TINY = """
@@ -246,25 +247,32 @@ def _debris(folder):
 
 def test_killed_run_debris_reported_and_removed(tiny, tmp_path, capsys):
     """A partial folder left by a SIGKILLed run (its process gone) is reported and removed by
-    the next run into the same parent; one of a live process is left alone."""
+    the next run into the same parent; one of a live process, one with a name synth does not
+    make and one made on another machine (a shared file system) are left alone."""
     dead = subprocess.Popen([sys.executable, "-c", "pass"])
     dead.wait()
-    left = tmp_path / f".out.partial-{dead.pid}-dead1234"
+    host = rundir.host_tag()
+    left = tmp_path / f".out.partial-{host}-{dead.pid}-dead1234"
     left.mkdir()
     (left / "13CO_1-0_ideal.fits").write_bytes(b"half")
-    live = tmp_path / f".other.partial-{os.getppid()}-live1234"
+    live = tmp_path / f".other.partial-{host}-{os.getppid()}-1234abcd"
     live.mkdir()
+    elsewhere = tmp_path / f".third.partial-zzzzzz-{dead.pid}-1234abcd"  # not our name
+    elsewhere.mkdir()
+    other = "000000" if host != "000000" else "111111"
+    other_host = tmp_path / f".fourth.partial-{other}-{dead.pid}-1234abcd"
+    other_host.mkdir()
     rc = cli.main(["run", str(tiny), "--out", str(tmp_path / "out")])
     out = capsys.readouterr().out
     assert rc == 0
     assert "removed 1 folder(s) left by an interrupted synth run" in out and left.name in out
-    assert not left.exists() and live.exists()
+    assert not left.exists() and live.exists() and elsewhere.exists() and other_host.exists()
     assert sweep_debris(str(tmp_path)) == []
 
 
 def test_spill_folders_registered_and_swept(tmp_path):
     """A temporary snapshot spill folder is removed at exit (registered), and one left by a
-    killed process (synth-tmp-PID-XXXX, PID gone) is removed by the next sweep."""
+    killed process (synth-tmp-HOST-PID-XXXX, PID gone) is removed by the next sweep."""
     import tempfile
     from synth import rundir
     mine = rundir.temp_folder()
@@ -274,7 +282,7 @@ def test_spill_folders_registered_and_swept(tmp_path):
     assert not os.path.exists(mine) and not rundir._REGISTERED
     dead = subprocess.Popen([sys.executable, "-c", "pass"])
     dead.wait()
-    stale = os.path.join(tempfile.gettempdir(), f"synth-tmp-{dead.pid}-abcd1234")
+    stale = os.path.join(tempfile.gettempdir(), f"synth-tmp-{rundir.host_tag()}-{dead.pid}-abcd1234")
     os.mkdir(stale)
     removed = rundir.sweep_debris(str(tmp_path))
     assert stale in removed and not os.path.exists(stale)
