@@ -23,8 +23,8 @@ __all__ = ["preflight", "check_cube_size", "snapshot_geometry"]
 
 _PC_CM = 3.0856775814913673e18
 _C_KMS = 299792.458
-#: Bytes per channel and sky pixel the run keeps for each tracer's cubes (ideal + tau,
-#: float32, and float64 copies made for figures and observing): a planning figure.
+#: Bytes per channel and sky pixel while one tracer is worked on (ideal + tau, float32, and
+#: float64 copies made for figures and observing): a planning figure.
 _BYTES_PER_VOXEL = 24
 
 
@@ -50,7 +50,8 @@ def preflight(conf, memory=None, workers=None, scheduler=None, observing=True):
     if chan["velocity_min_kms"] is not None:
         n_chan = math.ceil((chan["velocity_max_kms"] - chan["velocity_min_kms"])
                            / chan["width_kms"] - 1e-9)
-        check_cube_size(n_chan, shape, len(lines), budget)
+        check_cube_size(n_chan, shape, len(lines), budget,
+                        n_cubes=1 + ("tau" in conf["output"]["products"]))
         _check_band(conf, lines)
     _check_lvg_memory(conf, shape, budget, n_chan)
     _check_setups(conf, lines, cell_pc, observing)
@@ -94,7 +95,8 @@ def _line(tr, i):
             raise type(exc)(f"{where} (excitation = \"lvg\"): {exc}") from None
     if tr["datafile"] is not None:
         name = str(line.molecule.name).strip()
-        if _norm(name) != _norm(tr["species"]):
+        first = re.split(r"[\s@(,;]", name)[0]  # "HCN (hfs)", "CO@xpol" name HCN, CO
+        if _norm(first) != _norm(tr["species"]):
             raise ConfigError(f"{where}.datafile = {os.path.basename(tr['datafile'])} holds "
                               f"molecule '{name}', not species = '{tr['species']}'; set "
                               f"species = \"{name}\" or give that species' file")
@@ -183,19 +185,32 @@ def _first_slab(cloud, shape):
                          region=(0, 0, 1), **_reader_kwargs(cloud))
 
 
-def check_cube_size(n_chan, shape, n_tracers=1, budget=None):
-    """Refuse a channel count whose cubes cannot fit: above ``budget`` bytes (--memory) or
-    this machine's memory. ``shape`` is the view's (nx, ny, nz) (None: unknown)."""
+def check_cube_size(n_chan, shape, n_tracers=1, budget=None, n_cubes=2):
+    """Refuse a channel count whose cubes cannot fit, with the size they need.
+
+    With ``budget`` (--memory, bytes) the transfer stage's own rule applies (its output cubes
+    plus one tile row, :func:`synth.transfer.tiles.plan_tiles`). Whatever the budget, the
+    ideal cubes a run keeps (one per tracer, float64) plus the working copies of one tracer
+    must fit in this machine's memory. ``shape`` is the view's (nx, ny, nz) (None: unknown).
+    """
     if shape is None:
         return
     nx, ny = shape[0], shape[1]
-    need = n_chan * nx * ny * _BYTES_PER_VOXEL
-    limit, what = (budget, "the --memory budget") if budget else (_ram(), "this machine's memory")
-    if limit and need > limit:
-        err = MemoryBudgetError if budget else ConfigError
-        raise err(f"[channels]: {n_chan:,} channels x {nx} x {ny} pixels need about "
-                  f"{_size(need)} per tracer, more than {what} ({_size(limit)}); widen "
-                  "width_kms or narrow velocity_min_kms..velocity_max_kms")
+    voxels = n_chan * nx * ny
+    need = voxels * (_BYTES_PER_VOXEL + 8 * max(0, n_tracers - 1))
+    ram = _ram()
+    if ram and need > ram:
+        raise ConfigError(f"[channels]: {n_chan:,} channels x {nx} x {ny} pixels x {n_tracers} "
+                          f"tracer(s) need about {_size(need)}, more than this machine's memory "
+                          f"({_size(ram)}); widen width_kms or narrow "
+                          "velocity_min_kms..velocity_max_kms")
+    if budget:
+        from .transfer.tiles import plan_tiles
+        try:
+            plan_tiles(tuple(shape), n_chan, budget, n_cubes=n_cubes)
+        except MemoryBudgetError as exc:
+            raise MemoryBudgetError(f"[channels]: {n_chan:,} channels x {nx} x {ny} pixels: "
+                                    f"{exc}") from None
 
 
 #: LVG holds the whole snapshot in memory (velocity gradients cross tiles). Measured with

@@ -339,7 +339,7 @@ CLI_CASES = [
     ("config-not-utf8", ["run", "latin1.toml", "--out", "out"], "is not UTF-8"),
     ("memory-text", ["run", "run.toml", "--out", "out", "--memory", "lots"], "is not a size"),
     ("memory-tiny", ["run", "run.toml", "--out", "out", "--memory", "1kB"],
-     "more than the --memory budget"),
+     "[channels]: 16 channels x 10 x 10 pixels: memory budget"),
     ("workers-zero", ["run", "run.toml", "--out", "out", "--workers", "0"],
      "--workers must be >= 1"),
     ("scheduler-not-address", ["run", "run.toml", "--out", "out", "--scheduler",
@@ -441,6 +441,22 @@ def test_suspicious_config_warns_up_front(case, edit, fragment, tmp_path, monkey
     conf = copy.deepcopy(BASE)
     edit(conf)
     with pytest.warns(SynthWarning, match=fragment.replace("[", "\\[").replace("]", "\\]")):
+        preflight(validate_config(conf))
+
+
+def test_datafile_molecule_name_with_a_note_matches(tmp_path):
+    """A Leiden file whose molecule line carries a note ("HCN (hfs)") matches species HCN;
+    a different molecule does not."""
+    from synth.config import validate_config
+    from synth.preflight import preflight
+    p = tmp_path / "hcn.dat"
+    p.write_text(LEIDEN_OTHER.replace("HCN\n", "HCN (invented test file)\n", 1))
+    conf = copy.deepcopy(BASE)
+    conf["tracer"][0].update(species="hcn", datafile=str(p))
+    (line,) = preflight(validate_config(conf))
+    assert line.freq_hz == pytest.approx(88.6316e9)
+    conf["tracer"][0].update(species="HNC")
+    with pytest.raises(SynthError, match="holds molecule 'HCN \\(invented test file\\)'"):
         preflight(validate_config(conf))
 
 
