@@ -161,7 +161,7 @@ def snapshot_geometry(cloud, line_of_sight="z"):
         return None, cloud["cell_size_pc"]
     from .snapshot.readers import snapshot_shape
     src = cloud["source"]
-    if os.path.isdir(src) and not src.endswith(".zarr"):
+    if os.path.isdir(src) and not (src.rstrip("/").endswith(".zarr") or cloud["format"] == "zarr"):
         raise ConfigError(f"[cloud].source = {src} is a folder; give a snapshot file")
     if not os.path.exists(src):
         raise ConfigError(f"[cloud].source = {src}: no such file; give \"demo\" or the path of "

@@ -95,6 +95,13 @@ def _inside(path, folder):
     return path == folder or path.startswith(folder.rstrip(os.sep) + os.sep)
 
 
+def _cwd():
+    try:
+        return os.getcwd()
+    except OSError:  # the working folder was removed: nothing can be inside it
+        return None
+
+
 def read_marker(folder):
     """The parsed marker of a run folder, or None if it has none (or an unreadable one)."""
     try:
@@ -122,7 +129,7 @@ def check_overwrite(out_dir, overwrite, inputs=(), flag="--overwrite"):
         why = "it is a symbolic link, not a run folder"
     elif not os.path.isdir(out_dir):
         why = "it is a file, not a run folder"
-    elif _inside(os.getcwd(), out_dir):
+    elif _cwd() is not None and _inside(_cwd(), out_dir):
         why = "it is the working folder or one of its parents"
     elif read_marker(out_dir) is None:
         why = f"it has no {MARKER}, so it was not written by synth"
