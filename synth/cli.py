@@ -8,7 +8,8 @@
     synth plan CONFIG               planning estimates per tracer x setup of a config
     synth compare A.fits B.fits     the same statistics of two cubes, side by side
 
-Bad input prints one line ``synth: error: ...`` and exits with status 2.
+Bad input prints one line ``synth: error: ...`` and exits with status 2. Ctrl-C (130) and
+SIGTERM (143) remove the half-built run folder and temporary files and print one line.
 """
 
 import argparse
@@ -31,7 +32,12 @@ def _add_run_options(p):
     g.add_argument("--workers", type=int, default=None, metavar="N",
                    help="run the tiles on a local dask cluster of N worker processes")
     g.add_argument("--scheduler", default=None, metavar="ADDRESS",
-                   help="run the tiles on an existing dask.distributed scheduler, e.g. tcp://host:8786")
+                   help="run the tiles on an existing dask.distributed scheduler, e.g. "
+                        "tcp://host:8786 (only a cluster you trust: it runs code this "
+                        "process sends and sends back pickled results)")
+    g.add_argument("--dashboard", action="store_true",
+                   help="with --workers: serve the dask dashboard on 127.0.0.1 (a free port; "
+                        "the link is printed)")
 
 
 def build_parser():
@@ -123,7 +129,8 @@ def _cmd_run(args):
 def _run(conf, args, run_config):
     log = (lambda *a, **k: None) if args.quiet else print
     summary = run_config(conf, args.out, overwrite=args.overwrite, progress=not args.quiet, log=log,
-                         memory=args.memory, workers=args.workers, scheduler=args.scheduler)
+                         memory=args.memory, workers=args.workers, scheduler=args.scheduler,
+                         dashboard=args.dashboard)
     if not args.quiet:
         for name, t in summary["tracers"].items():
             print(f"{name:>14s}: peak T_B {t['peak_tb_k']:7.2f} K, peak ∫T dv "
@@ -189,10 +196,12 @@ def _cmd_plan(args):
     from .config import load_config
     from .pipeline import ideal_cubes
     from .report.run_analysis import plan_config, plan_text
+    from .preflight import preflight
     conf = load_config(args.config)
     settings = _plan_settings(conf, args)
     if not conf["setup"]:
         raise SynthError(f"{args.config} has no [[setup]] tables: nothing to plan")
+    preflight(conf, observing=False)
     _, rows, skipped = plan_config(conf, ideal_cubes(conf), settings)
     print(f"target: S/N {settings['target_snr']:g} per channel on the "
           f"{settings['percentile']:g}th percentile of the emission")
@@ -212,7 +221,7 @@ def _cmd_compare(args):
     if names[0] == names[1]:
         names = ["a", "b"]
     if args.out is not None:
-        check_out_dir(args.out, args.overwrite)
+        check_out_dir(args.out, args.overwrite, (args.cube_a, args.cube_b))
     a, b = read_cube(args.cube_a, "A.fits"), read_cube(args.cube_b, "B.fits")
     rng = None if args.scale_range is None else tuple(args.scale_range)
     if rng is not None and not 0 < rng[0] < rng[1]:
@@ -220,7 +229,8 @@ def _cmd_compare(args):
     result = compare(a, b, names=tuple(names), scale_range=rng)
     print(comparison_text(result))
     if args.out is not None:
-        files = write_comparison(result, args.out, overwrite=args.overwrite)
+        files = write_comparison(result, args.out, overwrite=args.overwrite,
+                                 inputs=(args.cube_a, args.cube_b))
         print(f"wrote {', '.join(files)} into {args.out}")
     return 0
 
@@ -243,18 +253,63 @@ def _one_line_warnings():
     warnings.showwarning = show
 
 
+class Terminated(BaseException):
+    """Raised in the main thread when SIGTERM arrives, so cleanup runs as for Ctrl-C."""
+
+
+_SIGNALLED = []
+
+
+def _on_sigterm(signum, frame):
+    if not _SIGNALLED:
+        _SIGNALLED.append(signum)
+        raise Terminated()
+    # a second SIGTERM (the first was swallowed somewhere, or cleanup hangs): clean up and die
+    import os
+    import signal
+    from .rundir import cleanup_registered
+    cleanup_registered()
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    os.kill(os.getpid(), signal.SIGTERM)
+
+
+def _terminated(cleanup):
+    cleanup()
+    print("synth: terminated (SIGTERM); nothing was written", file=sys.stderr)
+    return 143
+
+
 def main(argv=None):
+    import signal
+    from .rundir import cleanup_registered
     args = build_parser().parse_args(argv)
     _one_line_warnings()
+    _SIGNALLED.clear()
+    try:
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    except ValueError:  # not the main thread: leave signals alone
+        previous = None
     try:
         return _COMMANDS[args.command](args)
     except SynthError as exc:
+        if _SIGNALLED:  # a library turned our Terminated into its own error
+            return _terminated(cleanup_registered)
         msg = " ".join(str(exc).split())
         print(f"synth: error: {msg}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
+        cleanup_registered()
         print("synth: interrupted; nothing was written", file=sys.stderr)
         return 130
+    except Terminated:
+        return _terminated(cleanup_registered)
+    except Exception:
+        if _SIGNALLED:  # a library turned our Terminated into its own error
+            return _terminated(cleanup_registered)
+        raise
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
 
 
 if __name__ == "__main__":

@@ -12,8 +12,10 @@ import difflib
 import math
 import os
 import tomllib
+import warnings
 
-from .errors import ConfigError
+from .errors import ConfigError, SynthWarning
+from .rundir import check_name
 
 __all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS", "REMOVED_KEYS"]
 
@@ -186,6 +188,8 @@ def validate_config(raw):
 
 
 def _check_values(conf):
+    raw_names = [tr["name"] for tr in conf["tracer"]]
+    _check_numbers(conf)
     if not conf["tracer"]:
         raise ConfigError("the config needs at least one [[tracer]] (species, transition, abundance)")
     if conf["sky"]["distance_pc"] <= 0:
@@ -204,9 +208,10 @@ def _check_values(conf):
         if tr["excitation"] not in EXCITATION_METHODS:
             raise ConfigError(f"[[tracer]] #{i + 1}.excitation is '{tr['excitation']}'; valid: "
                               f"{', '.join(EXCITATION_METHODS)}")
-        if not tr["abundance"] >= 0:
-            raise ConfigError(f"[[tracer]] #{i + 1}.abundance must be >= 0, got {tr['abundance']}")
-        tr["name"] = tr["name"] or f"{tr['species']}_{tr['transition']}".replace("+", "p")
+        if tr["name"] is None:
+            tr["name"] = f"{tr['species']}_{tr['transition']}".replace("+", "p")
+        check_name(tr["name"], f"[[tracer]] #{i + 1}.name" if raw_names[i] is not None
+                   else f"[[tracer]] #{i + 1} (its default name species_transition)")
         if tr["name"] in names:
             raise ConfigError(f"two tracers are named '{tr['name']}'; give one a different name")
         names.add(tr["name"])
@@ -214,15 +219,20 @@ def _check_values(conf):
     for i, st in enumerate(conf["setup"]):
         if st["kind"] not in SETUP_KINDS:
             raise ConfigError(f"[[setup]] #{i + 1}.kind is '{st['kind']}'; valid: {', '.join(SETUP_KINDS)}")
+        check_name(st["name"], f"[[setup]] #{i + 1}.name")
         if st["name"] in setups:
             raise ConfigError(f"two setups are named '{st['name']}'")
         setups.add(st["name"])
     for st in conf["setup"]:
         for other in st["combine_with"] or []:
+            if other == st["name"]:
+                raise ConfigError(f"[[setup]] '{st['name']}'.combine_with names the setup "
+                                  "itself; name other setups")
             if other not in setups:
-                raise ConfigError(f"setup '{st['name']}' combines with unknown setup '{other}'; "
-                                  f"valid: {', '.join(sorted(setups))}")
+                raise ConfigError(f"[[setup]] '{st['name']}'.combine_with names '{other}', which "
+                                  f"is not a setup; valid: {', '.join(sorted(setups))}")
         _check_map_keys(st)
+    _check_setup_values(conf["setup"])
     if conf["sky"]["beyond_box"] not in ("empty", "repeat"):
         raise ConfigError(f"[sky].beyond_box is '{conf['sky']['beyond_box']}'; valid: "
                           "empty, repeat")
@@ -263,6 +273,90 @@ def _check_map_keys(st):
                           "valid: 0 < cutoff < 1")
 
 
+def _walk_numbers(value, where):
+    if isinstance(value, dict):
+        for k, v in value.items():
+            yield from _walk_numbers(v, f"{where}.{k}")
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            yield from _walk_numbers(v, f"{where}[{i}]")
+    elif isinstance(value, float):
+        yield where, value
+
+
+def _check_numbers(conf):
+    """Finite numbers everywhere (TOML allows nan and inf) and the ranges of sky positions,
+    abundances and channels, before any work."""
+    for section, value in conf.items():
+        items = value if section in _LISTS else [value]
+        for i, table in enumerate(items):
+            where = f"[[{section}]] #{i + 1}" if section in _LISTS else f"[{section}]"
+            for key, v in _walk_numbers(table, where):
+                if not math.isfinite(v):
+                    raise ConfigError(f"{key} is {v}; give a finite number")
+    sky, chan = conf["sky"], conf["channels"]
+    if not -90 <= sky["dec_deg"] <= 90:
+        raise ConfigError(f"[sky].dec_deg is {sky['dec_deg']}; valid: -90 <= dec_deg <= 90")
+    if not 0 <= sky["ra_deg"] < 360:
+        raise ConfigError(f"[sky].ra_deg is {sky['ra_deg']}; valid: 0 <= ra_deg < 360")
+    vmin, vmax = chan["velocity_min_kms"], chan["velocity_max_kms"]
+    if (vmin is None) != (vmax is None):
+        raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
+    if vmin is not None:
+        if not vmin < vmax:
+            raise ConfigError(f"[channels].velocity_max_kms ({vmax}) must be greater than "
+                              f"velocity_min_kms ({vmin})")
+        if chan["width_kms"] > vmax - vmin:
+            raise ConfigError(f"[channels].width_kms is {chan['width_kms']}, wider than the band "
+                              f"velocity_max_kms - velocity_min_kms = {vmax - vmin:g}; valid: "
+                              f"0 < width_kms <= {vmax - vmin:g}")
+    for i, tr in enumerate(conf["tracer"]):
+        x = tr["abundance"]
+        if isinstance(x, (int, float)) and not 0 < x < 1:
+            raise ConfigError(f"[[tracer]] #{i + 1}.abundance is {x}; valid: 0 < abundance < 1 "
+                              "(relative to H2)")
+        if isinstance(x, (int, float)) and x > 1e-3:
+            warnings.warn(f"[[tracer]] #{i + 1}.abundance is {x}, above 1e-3 (CO, the most "
+                          "abundant tracer, has about 1e-4 relative to H2)", SynthWarning,
+                          stacklevel=4)
+    for i, st in enumerate(conf["setup"]):
+        w = st["channel_width_kms"]
+        if w is not None and not w > 0:
+            raise ConfigError(f"[[setup]] #{i + 1}.channel_width_kms is {w}; valid: > 0")
+
+
+_SETUP_RANGES = (  # key, test, what is valid
+    ("diameter_m", lambda v: v > 0, "> 0"),
+    ("efficiency", lambda v: 0 < v <= 1, "0 < efficiency <= 1"),
+    ("tsys_k", lambda v: v > 0, "> 0"),
+    ("taper", lambda v: v > 0, "> 0"),
+    ("beam_arcsec", lambda v: v > 0, "> 0"),
+    ("integration_time_h", lambda v: v > 0, "> 0"),
+    ("rms_k", lambda v: v > 0, "> 0"),
+    ("seed", lambda v: v >= 0, ">= 0"),
+    ("latitude_deg", lambda v: -90 <= v <= 90, "-90 <= latitude_deg <= 90"),
+    ("hour_angle_start_h", lambda v: -12 <= v <= 12, "-12 <= hour_angle_start_h <= 12"),
+    ("hour_angle_stop_h", lambda v: -12 <= v <= 12, "-12 <= hour_angle_stop_h <= 12"),
+    ("sample_interval_s", lambda v: v > 0, "> 0"),
+)
+_WEIGHTINGS = ("natural", "uniform", "robust")
+
+
+def _check_setup_values(setups):
+    """Ranges of [[setup]] values, in config terms, before any instrument is built."""
+    for i, st in enumerate(setups):
+        where = f"[[setup]] #{i + 1} '{st['name']}'"
+        for key, ok, valid in _SETUP_RANGES:
+            if st[key] is not None and not ok(st[key]):
+                raise ConfigError(f"{where}.{key} is {st[key]}; valid: {valid}")
+        if not st["hour_angle_start_h"] < st["hour_angle_stop_h"]:
+            raise ConfigError(f"{where}: hour_angle_start_h ({st['hour_angle_start_h']}) must be "
+                              f"less than hour_angle_stop_h ({st['hour_angle_stop_h']})")
+        if st["weighting"] not in _WEIGHTINGS:
+            raise ConfigError(f"{where}.weighting is '{st['weighting']}'; valid: "
+                              f"{', '.join(_WEIGHTINGS)}")
+
+
 def _check_analysis(an):
     checks = (("target_snr", an["target_snr"] > 0, "> 0"),
               ("percentile", 0 <= an["percentile"] <= 100, "in 0..100"),
@@ -285,6 +379,12 @@ def load_config(path):
             raw = tomllib.load(fh)
     except FileNotFoundError:
         raise ConfigError(f"config file {path} does not exist") from None
+    except IsADirectoryError:
+        raise ConfigError(f"config file {path} is a folder; give the path of a TOML file") from None
+    except PermissionError:
+        raise ConfigError(f"config file {path} cannot be read (permission denied)") from None
+    except UnicodeDecodeError:
+        raise ConfigError(f"config file {path} is not UTF-8 text; save it as UTF-8") from None
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"config file {path} is not valid TOML: {exc}") from None
     conf = validate_config(raw)

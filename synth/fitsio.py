@@ -8,7 +8,7 @@ version (``SYNTHVER``) and the hash of the configuration that made it (``CONFHAS
 import hashlib
 import json
 import os
-import tempfile
+import secrets
 from contextlib import contextmanager
 
 import numpy as np
@@ -19,15 +19,6 @@ from .errors import OutputError
 
 __all__ = ["config_hash", "atomic_path", "write_cube", "write_json", "write_text",
            "write_image"]
-
-
-def _umask():
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
-
-
-_UMASK = _umask()
 
 
 def config_hash(config):
@@ -44,15 +35,14 @@ def atomic_path(path):
         raise OutputError(f"output folder {folder} does not exist")
     if not os.access(folder, os.W_OK):
         raise OutputError(f"output folder {folder} is not writable; choose another with --out")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=os.path.splitext(path)[1], dir=folder)
+    tmp = os.path.join(folder, f".tmp-{secrets.token_hex(6)}{os.path.splitext(path)[1]}")
+    try:  # mode 0666 less the user's umask (mkstemp would force 0600; no umask change)
+        os.close(os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666))
     except OSError as exc:
         raise OutputError(f"cannot write in {folder}: {exc.strerror or exc}; choose a "
                           "writable folder") from None
-    os.close(fd)
     try:
         yield tmp
-        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; outputs get the usual mode
         os.replace(tmp, path)
     finally:
         if os.path.exists(tmp):

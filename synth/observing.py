@@ -7,13 +7,13 @@ synthesized-beam figure; the ideal-vs-observed figures come from the run analysi
 (:mod:`synth.report.run_analysis`).
 """
 
-import os
 
 import numpy as np
 import astropy.units as u
 
 from .errors import ConfigError
 from .fitsio import write_cube
+from .rundir import run_path
 
 __all__ = ["make_instrument", "observe_setups", "observe_options", "map_keywords",
            "check_setups"]
@@ -36,10 +36,10 @@ def make_instrument(st):
         else:
             kw["diameter"] = st["diameter_m"] * u.m
         return SingleDish(**kw)
-    from .instrument.interferometer import Interferometer
     for key in ("antennas", "latitude_deg", "tsys_k"):
         if st[key] is None:
             raise ConfigError(f"setup '{st['name']}' (array) needs '{key}'")
+    from .instrument.interferometer import Interferometer  # after the cheap checks
     kw = dict(antennas=st["antennas"], latitude=st["latitude_deg"] * u.deg,
               efficiency=st["efficiency"], tsys=st["tsys_k"] * u.K, name=st["name"])
     if st["diameter_m"] is not None:
@@ -173,7 +173,7 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
             if dish:
                 kw["dish_options"] = _dish_options(setups[dish[0]])
         omap = observe(cube, inst, with_maps=True, **kw)
-        _write_observation(omap, os.path.join(tmp, f"{tname}_{sname}"), chash,
+        _write_observation(omap, run_path(tmp, f"{tname}_{sname}"), chash,
                            {"SETUP": sname, "TRACER": tname})
         entry = _obs_summary(omap.cube)
         entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
@@ -237,7 +237,7 @@ def _layout_figures(setups, observed, tmp):
             continue
         done.add(sname)
         layout_figure(omap, f"{sname}: {omap.layout.describe()}",
-                      os.path.join(tmp, f"layout_{sname}.png"))
+                      run_path(tmp, f"layout_{sname}.png"))
 
 
 def _uv_figures(setups, instruments, ideal, tmp):
@@ -250,4 +250,4 @@ def _uv_figures(setups, instruments, ideal, tmp):
             continue
         plot_uv_and_beam(instruments[name], dec,
                          (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
-                         st["sample_interval_s"] * u.s, os.path.join(tmp, f"uv_{name}.png"), freq)
+                         st["sample_interval_s"] * u.s, run_path(tmp, f"uv_{name}.png"), freq)

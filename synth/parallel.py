@@ -7,13 +7,32 @@ and cluster paths give the same cubes. A lost worker's tasks are re-run by the s
 a clear error and, in a pipeline run, leaves no output files.
 """
 
+import os
+import re
 import uuid
 from contextlib import contextmanager
 
 from ._optional import require
 from .errors import ConfigError, SynthError
 
-__all__ = ["Executor", "SerialExecutor", "DaskExecutor", "make_executor", "executor_context"]
+__all__ = ["Executor", "SerialExecutor", "DaskExecutor", "make_executor", "executor_context",
+           "check_execution"]
+
+_ADDRESS = re.compile(r"^(?:(tcp|tls|ws|wss|ucx)://)?(\[[0-9A-Fa-f:]+\]|[A-Za-z0-9_.-]+):(\d{1,5})$")
+
+
+def check_execution(workers=None, scheduler=None):
+    """Refuse bad --workers / --scheduler values before any work (ConfigError, one line)."""
+    if workers is not None and scheduler is not None:
+        raise ConfigError("give either --workers (a local cluster) or --scheduler (an existing "
+                          "one), not both")
+    if workers is not None and (isinstance(workers, bool) or int(workers) < 1):
+        raise ConfigError(f"--workers must be >= 1, got {workers}")
+    if scheduler is not None:
+        m = _ADDRESS.match(str(scheduler))
+        if m is None or not 0 < int(m.group(3)) < 65536:
+            raise ConfigError(f"--scheduler {str(scheduler)!r} is not a scheduler address; give "
+                              "PROTOCOL://HOST:PORT, e.g. tcp://10.0.0.5:8786")
 
 
 class Executor:
@@ -82,12 +101,40 @@ class DaskExecutor(Executor):
                 progress.update(1)
 
 
+#: Thread-count variables the worker processes get (one thread each); never left set in the
+#: caller's own environment.
+THREAD_VARS = ("OMP_NUM_THREADS", "MKL_NUM_THREADS", "OPENBLAS_NUM_THREADS")
+
+
 @contextmanager
-def executor_context(workers=None, scheduler=None):
+def _workers_only_environ(dask_config):
+    """dask.distributed's nanny sets its ``pre-spawn-environ`` variables (the thread counts)
+    in the calling process's ``os.environ`` before it spawns a worker, and leaves them there.
+    Keep them for the workers only: restore the caller's values once the workers started, and
+    again at the end (a restarted worker sets them anew)."""
+    keys = set(THREAD_VARS) | {"PYTHONHASHSEED"}
+    keys |= set(dask_config.get("distributed.nanny.pre-spawn-environ", default={}) or {})
+    saved = {k: os.environ.get(k) for k in keys}
+
+    def restore():
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+    try:
+        yield restore
+    finally:
+        restore()
+
+
+@contextmanager
+def executor_context(workers=None, scheduler=None, dashboard=False):
     """An Executor for the options: a local cluster of ``workers`` processes (one thread
-    each, loopback only), an existing scheduler address, or serial."""
-    if workers is not None and scheduler is not None:
-        raise ConfigError("give either --workers (a local cluster) or --scheduler (an existing one), not both")
+    each, bound to 127.0.0.1, no dashboard unless ``dashboard``), an existing scheduler
+    address (a cluster you trust: tasks run code sent by this process and results are
+    unpickled here), or serial."""
+    check_execution(workers, scheduler)
     if workers is None and scheduler is None:
         yield SerialExecutor()
         return
@@ -102,17 +149,20 @@ def executor_context(workers=None, scheduler=None):
         finally:
             client.close()
         return
-    if int(workers) < 1:
-        raise ConfigError(f"--workers must be >= 1, got {workers}")
-    cluster = distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1,
-                                       processes=True, host="127.0.0.1",
-                                       dashboard_address=None)
-    client = distributed.Client(cluster)
-    try:
-        yield DaskExecutor(client, local=True)
-    finally:
-        client.close()
-        cluster.close()
+    import dask
+    with _workers_only_environ(dask.config) as restore:
+        cluster = distributed.LocalCluster(
+            n_workers=int(workers), threads_per_worker=1, processes=True, host="127.0.0.1",
+            dashboard_address="127.0.0.1:0" if dashboard else None)
+        restore()
+        client = distributed.Client(cluster)
+        try:
+            ex = DaskExecutor(client, local=True)
+            ex.dashboard_link = cluster.dashboard_link if dashboard else None
+            yield ex
+        finally:
+            client.close()
+            cluster.close()
 
 
 def make_executor(client=None):

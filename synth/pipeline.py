@@ -7,7 +7,6 @@ existing run is replaced only with ``overwrite=True``.
 
 import os
 import shutil
-import tempfile
 import time
 
 import numpy as np
@@ -18,9 +17,11 @@ from .config import load_config, validate_config
 from .errors import ConfigError, OutputError
 from .fitsio import config_hash, write_cube, write_image, write_json
 from .sky import ARCSEC_PER_RAD
+from .rundir import (check_overwrite, finish_output, make_partial, run_path, sweep_debris,
+                     unregister_cleanup)
 
 __all__ = ["run_config", "synthesize_config", "ideal_cubes", "build_snapshot", "tracer_line",
-           "prepare_output", "DEMO_CONFIG"]
+           "prepare_output", "run_inputs", "DEMO_CONFIG"]
 
 #: The packaged demo configuration (identical to configs/demo.toml).
 DEMO_CONFIG = os.path.join(os.path.dirname(__file__), "configs", "demo.toml")
@@ -57,63 +58,59 @@ def _lvg_options(tracer):
     if tracer["max_escape_length_pc"] is not None:
         opts["max_escape_length"] = tracer["max_escape_length_pc"] * u.pc
     if opts and tracer["excitation"] != "lvg":
-        raise ConfigError(f"tracer '{tracer['name']}' sets LVG options {sorted(opts)} but its "
-                          "excitation is 'lte'")
+        raise ConfigError(f"[[tracer]] '{tracer['name']}' sets LVG options "
+                          f"{', '.join(sorted(opts))} but its excitation is 'lte'; set "
+                          "excitation = \"lvg\" or remove them")
     return opts or None
 
 
-def prepare_output(out_dir, overwrite):
-    """Check the output folder can be made; return a fresh temporary folder beside it."""
-    out_dir = os.path.abspath(out_dir)
-    if os.path.exists(out_dir) and not overwrite:
-        raise OutputError(f"output folder {out_dir} exists; choose another --out or pass --overwrite")
-    parent = os.path.dirname(out_dir)
-    if not os.path.isdir(parent):
-        raise OutputError(f"cannot create {out_dir}: the folder {parent} does not exist")
-    if not os.access(parent, os.W_OK):
-        raise OutputError(f"cannot create {out_dir}: the folder {parent} is not writable")
-    try:
-        return tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
-    except OSError as exc:
-        raise OutputError(f"cannot create {out_dir}: {exc.strerror or exc} in {parent}; "
-                          "choose a writable folder with --out") from None
+def run_inputs(conf, config_path=None):
+    """The files a run reads: its config, snapshot, molecular data files and antenna CSVs."""
+    paths = [config_path] if isinstance(config_path, (str, os.PathLike)) else []
+    if conf["cloud"]["source"] != "demo":
+        paths.append(conf["cloud"]["source"])
+    paths += [tr["datafile"] for tr in conf["tracer"] if tr["datafile"]]
+    paths += [st["antennas"] for st in conf["setup"]
+              if st["antennas"] and os.path.exists(st["antennas"])]
+    return [os.path.abspath(os.fspath(p)) for p in paths]
 
 
-def _finish_output(tmp, out_dir):
-    out_dir = os.path.abspath(out_dir)
-    if os.path.exists(out_dir):
-        old = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.old-",
-                               dir=os.path.dirname(out_dir))
-        os.replace(out_dir, os.path.join(old, "run"))
-        os.replace(tmp, out_dir)
-        shutil.rmtree(old, ignore_errors=True)
-    else:
-        os.replace(tmp, out_dir)
+def prepare_output(out_dir, overwrite, inputs=(), log=None):
+    """Check the output folder may be made (or replaced); return a fresh hidden folder beside
+    it to build the run in. Debris of killed runs in the same parent is removed first."""
+    out_dir = check_overwrite(out_dir, overwrite, inputs)
+    sweep_debris(os.path.dirname(out_dir), log)
+    return make_partial(out_dir)
 
 
 def run_config(config, out_dir, overwrite=False, progress=True, log=print, memory=None,
-               workers=None, scheduler=None):
+               workers=None, scheduler=None, dashboard=False):
     """Run a configuration (a path or a dict) and write its products into ``out_dir``.
 
     ``memory`` (bytes or "8GB") caps the transfer stage and makes snapshot files in HDF5,
     zarr or FITS be read tile by tile; ``workers`` runs the tiles on a local dask cluster,
-    ``scheduler`` on an existing one. Returns the run summary (also ``summary.json``).
+    ``scheduler`` on an existing one (a cluster you trust), ``dashboard`` serves the local
+    cluster's dask dashboard on 127.0.0.1. Returns the run summary (also ``summary.json``).
     """
     conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
     chash = config_hash(conf)
-    lines = [tracer_line(tr) for tr in conf["tracer"]]  # resolve names before any work
+    from .preflight import preflight
+    lines = preflight(conf, memory, workers, scheduler)  # every check before any work
     if memory is not None:
         from .transfer.tiles import parse_memory
         memory = parse_memory(memory)
-    tmp = prepare_output(out_dir, overwrite)
+    tmp = prepare_output(out_dir, overwrite, run_inputs(conf, config), log)
     try:
         from .parallel import executor_context
-        with executor_context(workers, scheduler) as executor:
+        with executor_context(workers, scheduler, dashboard) as executor:
+            if getattr(executor, "dashboard_link", None):
+                log(f"dask dashboard: {executor.dashboard_link}")
             summary = _run(conf, lines, chash, tmp, progress, log,
                            {"memory": memory, "executor": executor})
-        _finish_output(tmp, out_dir)
+        finish_output(tmp, out_dir)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
+        unregister_cleanup(tmp)
         raise
     return summary
 
@@ -171,6 +168,10 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
                                       line_of_sight=view_los).value for ln in lines]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
+        from .preflight import check_cube_size  # the band is known only now
+        n_chan = int(np.ceil((vrange[1] - vrange[0]).to_value(u.km / u.s) / chan["width_kms"]))
+        check_cube_size(n_chan, (view.shape if lazy is None else lazy.view_shape(view_los)),
+                        len(lines), memory)
     products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
     if preflight is not None:
         preflight(_sky_size_arcsec(snap, lazy, los, sky["distance_pc"]))
@@ -179,6 +180,9 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
                disable=not progress)
     for tr, line in bar:
         bar.set_postfix_str(str(line))
+        budget = memory
+        if memory is not None and lazy is None and tr["excitation"] != "lte":
+            budget = _budget_beside(view, memory, tr)
         yield tr, line, synthesize_products(
             view, line, tr["abundance"], tr["excitation"],
             distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
@@ -188,7 +192,21 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             t_bg=sky["background_k"] * u.K,
             t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
             excitation_options=_lvg_options(tr), products=products, progress=progress,
-            memory=memory, executor=executor)
+            memory=budget, executor=executor)
+
+
+def _budget_beside(snap, memory, tr):
+    """What is left of ``memory`` for the transfer stage of an LVG tracer once the whole
+    snapshot is in memory (LVG cannot read it by tiles), so the run stays within --memory."""
+    from .errors import MemoryBudgetError
+    held = sum(np.asarray(a).nbytes for a in snap._cgs.values() if isinstance(a, np.ndarray))
+    held += sum(np.asarray(a).nbytes for a in (snap._cgs.get("abundance") or {}).values())
+    if held >= memory:
+        raise MemoryBudgetError(
+            f"[[tracer]] '{tr['name']}' (excitation = \"lvg\") holds the snapshot in memory, "
+            f"{held / 1e6:.1f} MB, which leaves nothing of --memory {memory / 1e6:.1f} MB; raise "
+            "--memory or use excitation = \"lte\"")
+    return memory - held
 
 
 def _sky_size_arcsec(snap, lazy, los, distance_pc):
@@ -225,7 +243,7 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
     write_report(tmp, summary, log=log)
-    write_json(summary, os.path.join(tmp, "summary.json"))
+    write_json(summary, run_path(tmp, "summary.json"))
     return summary
 
 
@@ -233,13 +251,13 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
     name = tr["name"]
     cube = res.cube
     extra = {"LINE": str(line), "EXCIT": tr["excitation"], "ABUND": tr["abundance"]}
-    write_cube(cube, os.path.join(tmp, f"{name}_ideal.fits"), chash, extra)
+    write_cube(cube, run_path(tmp, f"{name}_ideal.fits"), chash, extra)
     if "tau" in conf["output"]["products"]:
-        write_cube(res.tau, os.path.join(tmp, f"{name}_tau.fits"), chash, extra)
+        write_cube(res.tau, run_path(tmp, f"{name}_tau.fits"), chash, extra)
     if res.column is not None:
         hdr = cube.wcs.celestial.to_header()
         hdr["BUNIT"] = "cm-2"
-        write_image(res.column.value, hdr, os.path.join(tmp, f"{name}_column.fits"), chash, extra)
+        write_image(res.column.value, hdr, run_path(tmp, f"{name}_column.fits"), chash, extra)
     data = cube.unmasked_data[:].value
     dv = abs(cube.spectral_axis[1] - cube.spectral_axis[0]).to_value(u.km / u.s)
     mom0 = data.sum(axis=0) * dv
@@ -261,7 +279,7 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
     warn_if_underresolved(name, entry["velocity_resolution"])
     if conf["output"]["figures"]:
         from .report.figures import moment0_figure
-        moment0_figure(mom0, cube, str(line), os.path.join(tmp, f"{name}_mom0.png"))
+        moment0_figure(mom0, cube, str(line), run_path(tmp, f"{name}_mom0.png"))
     return entry
 
 

@@ -99,8 +99,16 @@ def test_existing_output_refused_and_untouched(conf_file, tmp_path):
     with pytest.raises(OutputError, match="exists; choose another --out or pass --overwrite"):
         synth.run_config(str(conf_file), str(out), progress=False)
     assert os.listdir(out) == ["keep.txt"]
-    synth.run_config(str(conf_file), str(out), overwrite=True, progress=False)
-    assert "keep.txt" not in os.listdir(out) and "summary.json" in os.listdir(out)
+    with pytest.raises(OutputError, match="has no synth-run.json"):
+        synth.run_config(str(conf_file), str(out), overwrite=True, progress=False)
+    assert os.listdir(out) == ["keep.txt"]
+    run = tmp_path / "run2"
+    synth.run_config(str(conf_file), str(run), progress=False)
+    (run / "stale.txt").write_text("from an older run")
+    synth.run_config(str(conf_file), str(run), overwrite=True, progress=False)
+    assert "stale.txt" not in os.listdir(run) and "summary.json" in os.listdir(run)
+    marker = json.loads((run / "synth-run.json").read_text())
+    assert marker["written_by"] == "synth" and "summary.json" in marker["files"]
     assert not [p for p in os.listdir(tmp_path) if p.startswith(".")]
 
 
@@ -313,5 +321,5 @@ def test_lvg_tracer_in_config(tmp_path):
 def test_lvg_options_on_lte_tracer_refused(tmp_path):
     p = tmp_path / "c.toml"
     p.write_text(MINIMAL.replace('abundance = 2e-6', 'abundance = 2e-6\ngeometry = "slab"'))
-    with pytest.raises(ConfigError, match="sets LVG options \\['geometry'\\] but its excitation is 'lte'"):
+    with pytest.raises(ConfigError, match="sets LVG options geometry but its excitation is 'lte'"):
         synth.run_config(str(p), str(tmp_path / "o"), progress=False)

@@ -319,13 +319,15 @@ def survival_matrix(results, min_peak_snr=5.0, min_flux_fraction=0.5):
 
 
 def matrix_csv(rows):
-    """The survival-matrix rows as CSV text (header from the first row)."""
+    """The survival-matrix rows as CSV text (header from the first row); text cells that a
+    spreadsheet would run as a formula are made inert (:func:`synth.rundir.csv_cell`)."""
+    from ..rundir import csv_cell
     if not rows:
         return ""
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=list(rows[0]), lineterminator="\n")
     writer.writeheader()
-    writer.writerows(rows)
+    writer.writerows({k: csv_cell(v) for k, v in r.items()} for r in rows)
     return buf.getvalue()
 
 

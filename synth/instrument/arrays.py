@@ -173,7 +173,9 @@ def read_layout_csv(path):
 
 
 def write_layout_csv(path, enu_m, names=None, diameter_m=None, comment=None):
-    """Write positions (n, 3) in metres to the layout CSV format (atomic: temp file + rename)."""
+    """Write positions (n, 3) in metres to the layout CSV format (atomic: temp file + rename).
+    Names that a spreadsheet would run as a formula get a leading single quote."""
+    from ..rundir import csv_cell
     enu_m = np.asarray(enu_m, dtype=np.float64)
     n = enu_m.shape[0]
     names = names or [f"a{i + 1:02d}" for i in range(n)]
@@ -186,7 +188,7 @@ def write_layout_csv(path, enu_m, names=None, diameter_m=None, comment=None):
         fh.write(",".join(LAYOUT_COLUMNS) + "\n")
         for nm, (e, no, up), d in zip(names, enu_m, diam):
             dtxt = "" if np.isnan(d) else f"{d:g}"
-            fh.write(f"{nm},{e:.3f},{no:.3f},{up:.3f},{dtxt}\n")
+            fh.write(f"{csv_cell(str(nm))},{e:.3f},{no:.3f},{up:.3f},{dtxt}\n")
     os.replace(tmp, path)
 
 

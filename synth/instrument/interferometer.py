@@ -107,6 +107,11 @@ class Interferometer:
 
     def __post_init__(self):
         names, enu, diam = _resolve_antennas(self.antennas)
+        _, first, counts = np.unique(enu, axis=0, return_index=True, return_counts=True)
+        if (counts > 1).any():
+            k = int(first[np.argmax(counts > 1)])
+            raise InstrumentError(f"antennas {names[k]!r} and another share the position "
+                                  f"{enu[k].tolist()} m; every antenna needs its own position")
         d_m = _quantity("dish_diameter", self.dish_diameter, u.m).value
         diam = np.where(np.isnan(diam), d_m, diam)
         lat = _quantity("latitude", self.latitude, u.deg, positive=False)

@@ -6,12 +6,13 @@ module only reads the inputs, prints the result and writes figures and a JSON of
 
 import os
 import shutil
-import tempfile
 
 import numpy as np
 
 from ..errors import ConfigError, OutputError, SynthError
 from ..fitsio import atomic_path, write_json
+from ..rundir import (check_overwrite, finish_output, make_partial, run_path, sweep_debris,
+                      unregister_cleanup)
 
 __all__ = ["read_cube", "comparison_text", "comparison_json", "write_comparison",
            "check_out_dir"]
@@ -91,41 +92,35 @@ def _save(fig, path):
         fig.savefig(tmp, format="png", dpi=90)
 
 
-def check_out_dir(out_dir, overwrite=False):
-    """The absolute output folder, or an OutputError if it exists (without overwrite) or
-    its parent is not a writable folder."""
-    out_dir = os.path.abspath(out_dir)
+def check_out_dir(out_dir, overwrite=False, inputs=()):
+    """The absolute output folder, or an OutputError if it exists (without overwrite), is
+    not a folder synth wrote, holds one of ``inputs`` or its parent is not writable
+    (:func:`synth.rundir.check_overwrite`)."""
+    out_dir = check_overwrite(out_dir, overwrite, inputs)
     parent = os.path.dirname(out_dir)
-    if os.path.exists(out_dir) and not overwrite:
-        raise OutputError(f"output folder {out_dir} exists; choose another --out or pass "
-                          "--overwrite")
     if not os.path.isdir(parent) or not os.access(parent, os.W_OK):
         raise OutputError(f"cannot create {out_dir}: {parent} is not a writable folder")
     return out_dir
 
 
-def write_comparison(comparison, out_dir, overwrite=False):
+def write_comparison(comparison, out_dir, overwrite=False, inputs=()):
     """Write structure.png, moments.png and comparison.json into a new folder ``out_dir``.
 
     The folder is written under a temporary name beside it and renamed into place; an
-    existing folder is replaced only with ``overwrite=True``. Returns the file names.
+    existing folder is replaced only with ``overwrite=True`` and only if synth wrote it.
+    Returns the file names.
     """
     from ..analysis.plots import structure_figure
-    out_dir = check_out_dir(out_dir, overwrite)
-    parent = os.path.dirname(out_dir)
-    tmp = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.partial-", dir=parent)
+    out_dir = check_out_dir(out_dir, overwrite, inputs)
+    sweep_debris(os.path.dirname(out_dir))
+    tmp = make_partial(out_dir)
     try:
-        _save(structure_figure(comparison), os.path.join(tmp, "structure.png"))
-        _save(_moment0_figure(comparison), os.path.join(tmp, "moments.png"))
-        write_json(comparison_json(comparison), os.path.join(tmp, "comparison.json"))
-        if os.path.exists(out_dir):
-            old = tempfile.mkdtemp(prefix=f".{os.path.basename(out_dir)}.old-", dir=parent)
-            os.replace(out_dir, os.path.join(old, "previous"))
-            os.replace(tmp, out_dir)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out_dir)
+        _save(structure_figure(comparison), run_path(tmp, "structure.png"))
+        _save(_moment0_figure(comparison), run_path(tmp, "moments.png"))
+        write_json(comparison_json(comparison), run_path(tmp, "comparison.json"))
+        finish_output(tmp, out_dir, kind="compare")
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
+        unregister_cleanup(tmp)
         raise
     return ["structure.png", "moments.png", "comparison.json"]

@@ -263,7 +263,8 @@ def report_html(run_dir, summary):
 
 def write_report(run_dir, summary, log=None):
     """Write ``report.html`` into the run folder (atomically); return its path."""
-    path = os.path.join(run_dir, REPORT_NAME)
+    from ..rundir import run_path
+    path = run_path(run_dir, REPORT_NAME)
     write_text(report_html(run_dir, summary), path)
     if log is not None:
         log(f"run report: {REPORT_NAME} in the output folder (one self-contained page)")

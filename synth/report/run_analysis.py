@@ -17,6 +17,7 @@ import astropy.units as u
 
 from ..errors import ConfigError, InstrumentError
 from ..fitsio import atomic_path, write_json, write_text
+from ..rundir import csv_cell, run_path
 
 __all__ = ["run_analysis", "analysis_settings", "assess_observation", "plan_config",
            "spectra_positions", "rows_csv", "survival_text", "cell_text", "SURVIVAL_COLUMNS",
@@ -89,7 +90,7 @@ def rows_csv(rows):
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=keys, lineterminator="\n")
     writer.writeheader()
-    writer.writerows(rows)
+    writer.writerows({k: csv_cell(v) for k, v in r.items()} for r in rows)
     return buf.getvalue()
 
 
@@ -138,7 +139,7 @@ def _reference_as_cube(ideal, observed):
 
 def _observation_figures(tname, sname, ideal, obs, m, positions, tmp):
     from ..analysis.plots import moment_figure, spectra_figure
-    base = os.path.join(tmp, f"{tname}_{sname}")
+    base = run_path(tmp, f"{tname}_{sname}")
     out = {"moments": _save(moment_figure(m, title=f"{tname} with {sname}"),
                             f"{base}_moments.png")}
     ref = _reference_as_cube(ideal, obs).with_spectral_unit(u.km / u.s,
@@ -152,10 +153,10 @@ def _observation_figures(tname, sname, ideal, obs, m, positions, tmp):
 
 def _tracer_figures(tname, cube, positions, tmp):
     out = {}
-    if os.path.exists(os.path.join(tmp, f"{tname}_mom0.png")):
+    if os.path.exists(run_path(tmp, f"{tname}_mom0.png")):
         out["mom0"] = f"{tname}_mom0.png"
     out["spectra"] = _save(_ideal_spectra_figure(cube, positions, f"{tname}: ideal spectra"),
-                           os.path.join(tmp, f"{tname}_spectra.png"))
+                           run_path(tmp, f"{tname}_spectra.png"))
     return out
 
 
@@ -220,17 +221,17 @@ def _clean(v):
 
 def _write_plan(rows, tmp):
     clean = [{k: _clean(v) for k, v in r.items()} for r in rows]
-    write_text(rows_csv(clean), os.path.join(tmp, "plan.csv"))
-    write_text(plan_text(clean) + "\n", os.path.join(tmp, "plan.txt"))
+    write_text(rows_csv(clean), run_path(tmp, "plan.csv"))
+    write_text(plan_text(clean) + "\n", run_path(tmp, "plan.txt"))
     return clean
 
 
 def _survival_files(results, tmp):
     from ..analysis.survival import matrix_csv, matrix_json_rows, survival_matrix
     rows = survival_matrix(results)
-    write_text(matrix_csv(rows), os.path.join(tmp, "survival.csv"))
+    write_text(matrix_csv(rows), run_path(tmp, "survival.csv"))
     clean = matrix_json_rows(rows)
-    write_json(clean, os.path.join(tmp, "survival.json"))
+    write_json(clean, run_path(tmp, "survival.json"))
     return clean
 
 
@@ -280,10 +281,10 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
             mine = {s: results[(tname, s)] for s in entry["setups"]}
             entry["figures"]["recovery"] = _save(
                 recovery_figure(mine, title=f"{tname}: recovered power per scale"),
-                os.path.join(tmp, f"{tname}_recovery.png"))
+                run_path(tmp, f"{tname}_recovery.png"))
         out["tracers"][tname] = entry
     out["uv"] = {s: f"uv_{s}.png" for s, st in setups.items()
-                 if st["kind"] == "array" and os.path.exists(os.path.join(tmp, f"uv_{s}.png"))}
+                 if st["kind"] == "array" and os.path.exists(run_path(tmp, f"uv_{s}.png"))}
     out["survival"] = _survival_files(results, tmp) if results else []
     out["files"] += ["survival.csv", "survival.json"] if results else []
     _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)

@@ -6,6 +6,7 @@ stored unit (``unit``: npz key ``<name>_unit``, HDF5 attribute ``units``/``unit`
 """
 
 import os
+import zipfile
 
 import numpy as np
 import astropy.units as u
@@ -52,6 +53,9 @@ class _Npz(_Source):
 
     def __init__(self, path):
         self.label = f"snapshot file '{path}'"
+        if os.path.isfile(path) and not zipfile.is_zipfile(path):
+            raise SnapshotError(f"{self.label} is not a .npz file (not a zip archive of "
+                                "arrays); write it with numpy.savez or synth.write_npz")
         try:
             self._data = np.load(path, allow_pickle=False)
         except (OSError, ValueError) as exc:
@@ -64,11 +68,18 @@ class _Npz(_Source):
         return list(self._data.files)
 
     def get(self, name):
-        return self._data[name]
+        try:
+            return self._data[name]
+        except ValueError as exc:  # e.g. an object array, refused without pickle
+            raise SnapshotError(f"{self.label}: array '{name}' holds Python objects, which "
+                                "synth does not load (loading them could run code stored in "
+                                "the file); store plain numeric arrays") from None
+        except (OSError, EOFError, zipfile.BadZipFile) as exc:
+            raise SnapshotError(f"{self.label}: array '{name}' is damaged: {exc}") from None
 
     def unit(self, name):
         key = f"{name}_unit"
-        return str(self._data[key]) if key in self._data.files else None
+        return str(self.get(key)) if key in self._data.files else None
 
     def cell_size(self):
         if "cell_size" not in self._data.files:

@@ -31,7 +31,8 @@ def _as_quantity(value, unit, name):
             f"{name} has no unit; pass an astropy Quantity, e.g. {name}=array * u.{unit}"
         )
     try:
-        arr = value.to_value(unit)
+        with np.errstate(over="ignore", invalid="ignore"):  # overflow -> inf: refused below
+            arr = value.to_value(unit)
     except u.UnitConversionError:
         raise SnapshotError(
             f"{name} has unit '{value.unit}', which cannot be converted to {unit}"

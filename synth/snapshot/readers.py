@@ -324,6 +324,8 @@ def _array(src, name, order, key, vector=False):
     if arr.dtype.kind not in "fiu":
         raise SnapshotError(f"{src.label}: field '{key}' ('{name}') has dtype {arr.dtype}; "
                             "expected numbers")
+    if arr.dtype.kind == "f" and arr.dtype.itemsize < 4:
+        arr = arr.astype(np.float32)  # unit conversions would overflow half precision
     if order == "zyx" and arr.ndim >= 3:
         axes = (0, 3, 2, 1) if (vector and arr.ndim == 4) else tuple(range(arr.ndim))[::-1]
         arr = np.ascontiguousarray(np.transpose(arr, axes))
@@ -337,8 +339,11 @@ def _cell_size(src, cell_size):
     if value is None:
         raise SnapshotError(f"{src.label}: no cell size stored ({src.cell_size_hint}); pass "
                             "cell_size=<length Quantity>")
+    value = np.asarray(value)
     try:
-        return float(value) * u.Unit(unit)
+        if value.dtype.kind not in "fiu" or value.size != 1:
+            raise ValueError
+        return float(value.reshape(())) * u.Unit(unit)
     except (TypeError, ValueError):
         raise SnapshotError(f"{src.label}: stored cell size {value!r} {unit!r} is not a "
                             "number with a length unit") from None

@@ -5,9 +5,7 @@ tile and the output cube, never with snapshot x channels.
 """
 
 import os
-import shutil
 import warnings
-import tempfile
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 
@@ -277,7 +275,8 @@ def _worker_source(source, exc, executor):
         yield source
         return
     from ..snapshot.readers import write_hdf5
-    folder = tempfile.mkdtemp(prefix="synth-tiles-")
+    from ..rundir import remove_temp_folder, temp_folder
+    folder = temp_folder()  # removed at exit too, and by the next run if this one is killed
     try:
         path = os.path.join(folder, "snapshot.h5")
         write_hdf5(source, path)
@@ -285,7 +284,7 @@ def _worker_source(source, exc, executor):
         kw = {"sigma_turb": float(sig) * u.cm / u.s} if np.ndim(sig) == 0 else {}
         yield SnapshotFile(path, **kw)
     finally:
-        shutil.rmtree(folder, ignore_errors=True)
+        remove_temp_folder(folder)
 
 
 def _block(snap, x0, x1):
