@@ -14,7 +14,7 @@ import astropy.units as u
 
 from . import __version__
 from .config import load_config, validate_config
-from .errors import ConfigError, OutputError
+from .errors import ConfigError
 from .fitsio import config_hash, write_cube, write_image, write_json
 from .sky import ARCSEC_PER_RAD
 from .rundir import (check_overwrite, finish_output, make_partial, run_path, sweep_debris,

@@ -277,7 +277,7 @@ def test_lvg_populations_see_the_sky_background():
 
 @pytest.mark.parametrize("background, match", [
     (-5.0, r"\[sky\]\.background_k must be a finite temperature > 0 K, got -5.0"),
-    (float("nan"), r"\[sky\]\.background_k must be a finite temperature > 0 K, got nan"),
+    (float("nan"), r"\[sky\]\.background_k is nan; give a finite number"),
     (0.0, r"\[sky\]\.background_k must be a finite temperature > 0 K, got 0.0"),
 ])
 def test_bad_background_in_config(background, match):

@@ -70,7 +70,7 @@ class _Npz(_Source):
     def get(self, name):
         try:
             return self._data[name]
-        except ValueError as exc:  # e.g. an object array, refused without pickle
+        except ValueError:  # e.g. an object array, refused without pickle
             raise SnapshotError(f"{self.label}: array '{name}' holds Python objects, which "
                                 "synth does not load (loading them could run code stored in "
                                 "the file); store plain numeric arrays") from None
