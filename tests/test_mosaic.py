@@ -344,3 +344,17 @@ def test_removed_fast_key_is_refused_with_the_reason():
     conf = _config(fast=True)
     with pytest.raises(ConfigError, match=r"\[\[setup\]\] #1\.fast: removed: .*24-28 % peak"):
         validate_config(conf)
+
+
+def test_pointing_hour_angles_follow_the_sky():
+    """H = LST - RA: a pointing 1 degree of arc east (RA larger by 1 deg / cos dec) is at an
+    hour angle smaller by that much; pointing p of n starts p/n of a sample later (the
+    pointings are visited in turn; sidereal rate 7.2921150e-5 rad/s, IERS 2010)."""
+    from synth.instrument.mapping import pointing_hour_angles
+    opts = {"hour_angles": (-2, 2) * u.hourangle, "sample_interval": 600 * u.s}
+    dec = np.deg2rad(-40.0)
+    base = pointing_hour_angles(opts, 0, 4, 0.0, dec).to_value(u.rad)
+    east = pointing_hour_angles(opts, 0, 4, 3600.0, dec).to_value(u.rad)
+    later = pointing_hour_angles(opts, 3, 4, 0.0, dec).to_value(u.rad)
+    np.testing.assert_allclose(east - base, -np.deg2rad(1.0) / np.cos(dec), rtol=1e-12)
+    np.testing.assert_allclose(later - base, 0.75 * 600 * 7.2921150e-5, rtol=1e-12)

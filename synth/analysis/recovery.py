@@ -131,19 +131,26 @@ def fidelity_summary(obs, ref, mask):
 def excess_note(table, beam_arcsec=None, level=EXCESS_LEVEL):
     """A note explaining recovered power above ``level`` (or None): at which scales, how
     much, and what makes an observed map hold more power correlated with the model than the
-    model itself."""
+    model itself. Scales below the beam FWHM are not considered."""
     t = table[table["reliable"]]
     if beam_arcsec is not None:
         t = t[np.asarray(t["scale_arcsec"]) >= beam_arcsec]
     p = np.asarray(t["recovered_power"])
+    s = np.asarray(t["scale_arcsec"])
     hot = p > level
     if not hot.any():
         return None
-    s = np.asarray(t["scale_arcsec"])[hot]
-    return (f"recovered power above 1 (up to {p[hot].max():.2f}) at {s.min():.3g}-{s.max():.3g} "
-            "arcsec: the observed map holds more power correlated with the model than the "
-            "model itself at these scales. Usual causes: CLEAN residuals restored at the clean "
-            "beam's flux scale (the dirty beam's area differs), a scale measured by both the "
-            "dish and the array when feathering (the dish's beam transform does not fall "
-            "fast enough), or primary-beam correction amplifying emission at a map edge. The "
-            "noise does not cause it: this estimate uses the cross-power.")
+    where = ", ".join(f'{v:.2f} at {x:.3g}"' for v, x in sorted(zip(p[hot], s[hot]),
+                                                               key=lambda vx: -vx[1]))
+    causes = []
+    if beam_arcsec is not None and (s[hot] < 2 * beam_arcsec).any():
+        causes.append("within two beams of the resolution, the restoring beam is a Gaussian "
+                      "fitted to the PSF's main lobe while the PSF itself (robust or uniform "
+                      "weighting especially) is not Gaussian, and the reference there is tiny")
+    causes += ["CLEAN residuals restored at the clean beam's flux scale (the dirty beam's area "
+               "differs)", "a scale measured by both the dish and the array when feathering",
+               "primary-beam correction amplifying emission at a map edge"]
+    return (f"recovered power above 1 ({where}): the observed map holds more power correlated "
+            "with the model than the model itself at these scales. Likely causes: "
+            + "; ".join(causes) + ". Noise does not cause it: this estimate uses the "
+            "cross-power.")
