@@ -47,7 +47,7 @@ def make_cube(nch, n, pix):
 
 
 def per_pointing(nch, deconvolve):
-    """(seconds per pointing for 1, 7, 19 pointings)."""
+    """{n: seconds per pointing} for 1, 7 and 19 pointings, and {n: total seconds}."""
     pix = 0.5
     cube = make_cube(nch, 320, pix)
     arr = Interferometer("compact-16")
@@ -64,6 +64,7 @@ def per_pointing(nch, deconvolve):
         dt = time.perf_counter() - t0
         assert m.layout.n_pointings == n, m.layout.n_pointings
         out[n] = dt / n
+        out[f"total{n}"] = dt
     return out
 
 
@@ -155,6 +156,10 @@ def main():
     for n in (7, 19):
         print(f"time per pointing, {n}-pointing mosaic / one pointing (no CLEAN, {nch} channels): "
               f"{t[n] / t[1]:.2f} (target <= 1.2)")
+        marginal = (t[f"total{n}"] - t["total1"]) / (n - 1)
+        print(f"  marginal cost of a pointing in the {n}-pointing mosaic / the whole one-pointing "
+              f"run: {marginal / t['total1']:.2f} (the one-pointing run is "
+              f"{t['total1']:.2f} s, of which set-up is shared by a mosaic's pointings)")
     t = per_pointing(max(2, nch // 4), deconvolve=True)
     for n in (7, 19):
         print(f"time per pointing with CLEAN, {n} pointings / one: {t[n] / t[1]:.2f} "
