@@ -181,9 +181,14 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_shar
             s = s * np.sqrt(n_share)
         uvw.append(t.uvw_m)
         sig.append(s)
-        pairs = np.column_stack([np.minimum(d[t.ant1], d[t.ant2]), np.maximum(d[t.ant1], d[t.ant2])])
-        uniq, inv = np.unique(pairs, axis=0, return_inverse=True)
-        ids = [table.setdefault((a, b, arr.pb_shape, arr.taper), len(table)) for a, b in uniq]
+        # rows sharing one pair beam: group by the antenna pair's diameters (per antenna
+        # pair, not per row: far fewer values to sort)
+        da, db = np.minimum(d[t.ant1], d[t.ant2]), np.maximum(d[t.ant1], d[t.ant2])
+        dset = np.unique(d)
+        code = np.searchsorted(dset, da) * dset.size + np.searchsorted(dset, db)
+        codes, inv = np.unique(code, return_inverse=True)
+        ids = [table.setdefault((float(dset[k // dset.size]), float(dset[k % dset.size]),
+                                 arr.pb_shape, arr.taper), len(table)) for k in codes]
         gid.append(np.asarray(ids)[inv.ravel()])
     gid = np.concatenate(gid)
     groups = tuple((np.nonzero(gid == k)[0],) + key for key, k in table.items())

@@ -101,11 +101,14 @@ def _job(page, s):
                      "peak ∫T dv (K km/s)", "max tau"), rows, left=3))
     obs = [(sname, tname, e.get("unit"), _fmt(e.get("beam_major_arcsec"), "{:.3g}"),
             _fmt(e.get("beam_minor_arcsec"), "{:.3g}"), _fmt(e.get("noise_rms"), "{:.3g}"),
-            _fmt(e.get("peak"), "{:.3g}"), e.get("channels"))
+            _fmt(e.get("peak"), "{:.3g}"), e.get("channels"), e.get("n_pointings", "-"),
+            _fmt(e.get("pixel_arcsec"), "{:.3g}"),
+            "x".join(str(n) for n in e.get("map_shape", [])[::-1]) or "-")
            for sname, per in (s.get("setups") or {}).items() for tname, e in per.items()]
     if obs:
         page.add(_table(("setup", "tracer", "unit", "beam major (\")", "beam minor (\")",
-                         "noise rms", "peak", "channels"), obs, left=3))
+                         "noise rms", "peak", "channels", "pointings", "pixel (\")",
+                         "map (pixels)"), obs, left=3))
 
 
 def _config(page, s):
