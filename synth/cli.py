@@ -13,6 +13,7 @@ SIGTERM (143) remove the half-built run folder and temporary files and print one
 """
 
 import argparse
+import os
 import sys
 
 from . import __version__
@@ -95,6 +96,9 @@ def _add_plan_compare(sub):
                    help="percentile of the emitting voxels to reach (default 50)")
     p.add_argument("--time", default=None, metavar="TIME",
                    help="time for the noise column, e.g. 1h or 30min (default: each setup's)")
+    p.add_argument("--figures", default=None, metavar="DIR",
+                   help="write layout_<setup>.png into DIR (a new or existing folder): each "
+                        "setup's pointings over the first tracer's moment-0 map")
     p = sub.add_parser("compare", help="compare two cubes with the same statistics",
                        description="Match two FITS cubes (unit, beam, grid, channels) and "
                                    "measure both the same way (see docs/report.md).")
@@ -202,13 +206,45 @@ def _cmd_plan(args):
     if not conf["setup"]:
         raise SynthError(f"{args.config} has no [[setup]] tables: nothing to plan")
     preflight(conf, observing=False)
-    _, rows, skipped = plan_config(conf, ideal_cubes(conf), settings)
+    if args.figures is not None:
+        _check_figure_dir(args.figures)
+    ideal = ideal_cubes(conf)
+    plans, rows, skipped = plan_config(conf, ideal, settings)
     print(f"target: S/N {settings['target_snr']:g} per channel on the "
           f"{settings['percentile']:g}th percentile of the emission")
     print(plan_text(rows))
+    first = next(iter(ideal))
+    layouts = {}
+    for row, p in zip(rows, plans):
+        if row["tracer"] == first and p.layout is not None:
+            layouts[row["setup"]] = p.layout
+    print(f"pointings ({first}; the ones a run makes):")
+    for name, lay in layouts.items():
+        print(f"  {name}: {lay.describe()}")
+    if args.figures is not None:
+        from .report.figures import layout_figure
+        for name, lay in layouts.items():
+            path = os.path.join(args.figures, f"layout_{name}.png")
+            layout_figure(lay, ideal[first], f"{name}: {lay.describe()}", path)
+            print(f"wrote {path}")
     for sk in skipped:
         print(f"not planned: {sk['setup']} / {sk['tracer']}: {sk['reason']}")
     return 0
+
+
+def _check_figure_dir(path):
+    """A folder for plan figures: an existing folder or one we can create (its parent
+    exists); refused in one line otherwise."""
+    if os.path.isdir(path):
+        if not os.access(path, os.W_OK):
+            raise SynthError(f"--figures {path}: the folder is not writable")
+        return
+    if os.path.exists(path):
+        raise SynthError(f"--figures {path}: exists and is not a folder")
+    parent = os.path.dirname(os.path.abspath(path))
+    if not os.path.isdir(parent):
+        raise SynthError(f"--figures {path}: the folder {parent} does not exist")
+    os.mkdir(path)
 
 
 def _cmd_compare(args):

@@ -358,3 +358,40 @@ def test_pointing_hour_angles_follow_the_sky():
     later = pointing_hour_angles(opts, 3, 4, 0.0, dec).to_value(u.rad)
     np.testing.assert_allclose(east - base, -np.deg2rad(1.0) / np.cos(dec), rtol=1e-12)
     np.testing.assert_allclose(later - base, 0.75 * 600 * 7.2921150e-5, rtol=1e-12)
+
+
+def test_plan_cli_lists_and_draws_the_pointings(tmp_path, capsys):
+    """`synth plan --figures DIR` prints each setup's pointings (the planner's count, which
+    observe makes: tested above) and draws them over the model's moment-0 map."""
+    from synth.cli import main
+    cfg = tmp_path / "wide.toml"
+    cfg.write_text('''
+[cloud]
+source = "demo"
+size = 16
+box_pc = 2.0
+[sky]
+distance_pc = 1000.0
+dec_deg = -20.0
+[channels]
+width_kms = 0.5
+[[tracer]]
+species = "CO"
+transition = "1-0"
+abundance = 1e-4
+[[setup]]
+name = "wide"
+kind = "array"
+antennas = "compact-10"
+diameter_m = 12
+latitude_deg = -30
+tsys_k = 90
+integration_time_h = 1.0
+''')
+    assert main(["plan", str(cfg), "--figures", str(tmp_path / "figs")]) == 0
+    out = capsys.readouterr().out
+    line = next(ln for ln in out.splitlines() if ln.strip().startswith("wide: "))
+    n = int(line.split("pointings")[0].split(",")[-1])
+    row = next(ln for ln in out.splitlines() if ln.startswith("CO_1-0") and " wide " in ln)
+    assert f"  {n}  " in row and n > 7                 # 2 pc at 1 kpc = 412": a mosaic
+    assert (tmp_path / "figs" / "layout_wide.png").stat().st_size > 10_000

@@ -42,19 +42,27 @@ def reference_extent(cube):
     return [-(-0.5 - x0) * pix, -(nx - 0.5 - x0) * pix, (-0.5 - y0) * pix, (ny - 0.5 - y0) * pix]
 
 
-def layout_figure(omap, title, path):
-    """Write a PNG of a setup's map layout over the model's moment-0 map on the output grid:
-    the mapped area (dashed), an array's pointings with their primary-beam half-power circles
-    and the contour where the mosaic's response is 1/2, or a dish's Nyquist positions and
-    guard band."""
+def layout_figure(omap, sky_or_title, title_or_path, path=None):
+    """Write a PNG of a setup's map layout over the model's moment-0 map: the mapped area
+    (dashed), an array's pointings with their primary-beam half-power circles and the contour
+    where the mosaic's response is 1/2, or a dish's Nyquist positions and guard band.
+
+    ``layout_figure(observed_map, title, path)`` draws an ObservedMap over its own grid;
+    ``layout_figure(layout, sky_cube, title, path)`` a planned MapLayout over a model cube
+    (no response contour)."""
     import matplotlib
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
     from matplotlib.patches import Circle, Rectangle
     from ..fitsio import atomic_path
-    lay = omap.layout
-    sky = omap.sky
-    dv = abs(float(np.diff(sky.spectral_axis.value[:2])[0])) if sky.shape[0] > 1 else 1.0
+    if path is None:            # (observed map, title, path)
+        lay, sky, response = omap.layout, omap.sky, omap.response
+        title, path = sky_or_title, title_or_path
+    else:                       # (layout, sky cube, title, path)
+        lay, sky, response, title = omap, sky_or_title, None, title_or_path
+    import astropy.units as u
+    v = sky.with_spectral_unit(u.km / u.s, velocity_convention="radio").spectral_axis.value
+    dv = abs(float(v[1] - v[0])) if v.size > 1 else 1.0
     mom0 = np.nansum(np.asarray(sky.unmasked_data[:].value), axis=0) * dv
     ext = reference_extent(sky)
     fig, ax = plt.subplots(figsize=(5.6, 4.8), dpi=100,
@@ -75,15 +83,17 @@ def layout_figure(omap, title, path):
             ax.add_patch(Circle((e, n), lay.field_fwhm / 2, fill=False, color="C3", lw=0.8))
         ax.plot(p[:, 0], p[:, 1], "+", color="C3",
                 label=f"{len(p)} pointing(s), half-power circles")
-        if np.nanmax(omap.response) > 0.5:
-            ax.contour(omap.response, levels=[0.5], extent=ext, origin="lower",
+        if response is not None and np.nanmax(response) > 0.5:
+            ax.contour(response, levels=[0.5], extent=ext, origin="lower",
                        colors="C2", linewidths=0.8)
-    ax.set_xlim(ext[0], ext[1])
-    ax.set_ylim(ext[2], ext[3])
+    grid = (lay.grid_center, lay.grid_size)
+    ax.set_xlim(max(ext[0], grid[0][0] + grid[1][0] / 2), min(ext[1], grid[0][0] - grid[1][0] / 2))
+    ax.set_ylim(min(ext[2], grid[0][1] - grid[1][1] / 2), max(ext[3], grid[0][1] + grid[1][1] / 2))
     ax.set_aspect("equal")
     ax.set_xlabel("RA offset (arcsec, east to the left)")
     ax.set_ylabel("Dec offset (arcsec)")
-    ax.set_title(title, fontsize=8)
+    import textwrap
+    ax.set_title("\n".join(textwrap.wrap(title, 70)), fontsize=8)
     ax.legend(fontsize=7, loc="upper right")
     with atomic_path(path) as tmp:
         fig.savefig(tmp, format="png")
