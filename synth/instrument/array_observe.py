@@ -220,7 +220,8 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
         pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
     corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
                                                           seed, out_sl)
-    _warn_outside(frac, layout)
+    if mopts.map_size is None:      # the whole model was to be mapped: say what is lost
+        _warn_outside(frac, layout)
     out_sky = sky[:, out_sl[0], out_sl[1]]
     meta = dict(INSTRUME="+".join(pointings[0][0].names),
                 NOISERMS=float(np.median(rms)) if noise else 0.0,

@@ -13,7 +13,7 @@ import astropy.units as u
 
 from ..errors import InstrumentError
 from .cube_utils import check_cube, new_cube, cube_values, reference_frequency
-from .grid import model_grid, sky_on_grid
+from .grid import SkyGrid, model_grid, observation_grid, place_model
 from .mapping import ObservedMap, dish_layout, map_options
 from .mosaic import MAX_POINTINGS
 from .single_dish import SingleDish, observe_single_dish
@@ -133,12 +133,21 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
 def _observe_dish_map(spectral, dish, layout, mopts, integration_time, rms, noise, seed, unit,
                       hanning):
     """An on-the-fly dish map: the model on the map's grid (area + guard band), then the
-    beam, noise and unit of :func:`observe_single_dish`."""
-    model_pix = model_grid(spectral).pixel_arcsec
-    pix = mopts.pixel if mopts.pixel is not None else min(model_pix, layout.pixel)
-    sky, _ = sky_on_grid(spectral, pix, layout.grid_center, layout.grid_size, mopts.beyond_box)
-    obs = observe_single_dish(sky, dish, integration_time=integration_time, rms=rms,
+    beam, noise and unit of :func:`observe_single_dish`. The beam is applied on the map
+    grid grown by two beams on each side and the result cut back to the map, so sky beyond
+    the map (a larger model, or a repeated box) spills into its edges as on the sky."""
+    model = model_grid(spectral)
+    pix = mopts.pixel if mopts.pixel is not None else min(model.pixel_arcsec, layout.pixel)
+    grid, zoom, (ox, oy) = observation_grid(model, pix, layout.grid_center, layout.grid_size)
+    fwhm = dish.beam_at(reference_frequency(spectral)).major.to_value(u.arcsec)
+    m = int(np.ceil(2.0 * fwhm / grid.pixel_arcsec))
+    canvas = SkyGrid(grid.nx + 2 * m, grid.ny + 2 * m, grid.pixel_arcsec, grid.x_ref + m,
+                     grid.y_ref + m)
+    big = place_model(spectral, canvas, zoom, (ox + m, oy + m), mopts.beyond_box)
+    obs = observe_single_dish(big, dish, integration_time=integration_time, rms=rms,
                               noise=noise, seed=seed, unit=unit, hanning=hanning)
+    cut = (slice(None), slice(m, m + grid.ny), slice(m, m + grid.nx))
+    sky, obs = big[cut], obs[cut]
     obs = new_cube(obs, cube_values(obs), obs.unit,
                    meta_update={"NPOINT": layout.n_pointings, "MOSAIC": "on-the-fly",
                                 "GUARD": float(layout.guard), "PBCORR": False})
