@@ -84,6 +84,7 @@ SETUP = {
     "integration_time_h": (_NUM, None, "integration time, hours (noise from the radiometer equation)"),
     "rms_k": (_NUM, None, "dish: noise rms per channel in K instead of the radiometer equation"),
     "noise": (bool, True, "add thermal noise"),
+    "n_pol": (int, 2, "polarisations recorded and averaged (1 or 2; noise / sqrt(n_pol))"),
     "seed": (int, 1, "noise seed"),
     "antennas": (str, None, 'array: a built-in layout name or a CSV file'),
     "latitude_deg": (_NUM, None, "array: site latitude, deg"),
@@ -266,6 +267,8 @@ def _check_map_keys(st):
     if st["pointing_pattern"] not in ("hexagonal", "rectangular", "single"):
         raise ConfigError(f"{where}: pointing_pattern = '{st['pointing_pattern']}'; valid: "
                           "hexagonal, rectangular, single")
+    if st["n_pol"] not in (1, 2):
+        raise ConfigError(f"{where}: n_pol = {st['n_pol']}; valid: 1 or 2")
     if st["max_pointings"] < 1:
         raise ConfigError(f"{where}: max_pointings = {st['max_pointings']}; must be >= 1")
     if not 0 < st["primary_beam_cutoff"] < 1:

@@ -26,7 +26,7 @@ def make_instrument(st):
         from radio_beam import Beam
         if st["beam_arcsec"] is None and (st["diameter_m"] is None):
             raise ConfigError(f"setup '{st['name']}' (dish) needs diameter_m or beam_arcsec")
-        kw = {"efficiency": st["efficiency"], "name": st["name"]}
+        kw = {"efficiency": st["efficiency"], "name": st["name"], "n_pol": st["n_pol"]}
         if st["tsys_k"] is not None:
             kw["tsys"] = st["tsys_k"] * u.K
         if st["taper"] is not None:
@@ -41,7 +41,8 @@ def make_instrument(st):
             raise ConfigError(f"setup '{st['name']}' (array) needs '{key}'")
     from .instrument.interferometer import Interferometer  # after the cheap checks
     kw = dict(antennas=st["antennas"], latitude=st["latitude_deg"] * u.deg,
-              efficiency=st["efficiency"], tsys=st["tsys_k"] * u.K, name=st["name"])
+              efficiency=st["efficiency"], tsys=st["tsys_k"] * u.K, name=st["name"],
+              n_pol=st["n_pol"])
     if st["diameter_m"] is not None:
         kw["dish_diameter"] = st["diameter_m"] * u.m
     return Interferometer(**kw)

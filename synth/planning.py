@@ -154,7 +154,7 @@ def _check_numbers(target_snr, percentile, floor):
 def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channel_width=None,
          integration_time=None, field_size=None, declination=None,
          hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s, emission_floor=0.01,
-         n_pol=2, map_center=None, pointing_pattern="hexagonal", pointing_spacing=None,
+         n_pol=None, map_center=None, pointing_pattern="hexagonal", pointing_spacing=None,
          guard_band=None, max_pointings=None, primary_beam=True):
     """Planning estimate for observing one line with one setup.
 
@@ -177,6 +177,8 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
         Area to map (``map_size`` of observe); default the cube's extent.
     declination, hour_angles, sample_interval
         Interferometer track (declination default: the cube's CRVAL2).
+    n_pol : {1, 2}, optional
+        Polarisations; default the setup's own (``n_pol`` of the dish or array, 2).
     map_center, pointing_pattern, pointing_spacing, guard_band, max_pointings, primary_beam
         As for :func:`synth.observe`: the pointings counted are the pointings (or dish map
         positions) that ``observe`` makes with the same options
@@ -200,7 +202,7 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     if max_pointings is not None:
         mkw["max_pointings"] = max_pointings
     if kind == "single dish":
-        beam, lrs, rms_of, time_of = _dish_model(setup, freq)
+        beam, lrs, rms_of, time_of = _dish_model(setup, freq, n_pol)
         layout = _layout(setup, cube, freq, mkw, None)
     else:
         dec = _declination(declination, cube)
@@ -235,15 +237,17 @@ def _kind(setup):
                           "Interferometer (plan each instrument of a combination separately)")
 
 
-def _dish_model(dish, freq):
+def _dish_model(dish, freq, n_pol=None):
     """Single dish: beam, no largest-scale limit, radiometer rms(t) and t(rms) (K)."""
     from .instrument.noise import radiometer_rms, time_for_rms
     if dish.tsys is None:
         raise InstrumentError("setup tsys: the dish has no tsys; give SingleDish(tsys=...)")
     beam = dish.beam_at(freq)
     return (beam, np.nan * u.arcsec,
-            lambda dnu, t: radiometer_rms(dish.tsys, dish.efficiency, dnu, t),
-            lambda dnu, rms: time_for_rms(dish.tsys, dish.efficiency, dnu, rms))
+            lambda dnu, t: radiometer_rms(dish.tsys, dish.efficiency, dnu, t,
+                                          n_pol or dish.n_pol),
+            lambda dnu, rms: time_for_rms(dish.tsys, dish.efficiency, dnu, rms,
+                                          n_pol or dish.n_pol))
 
 
 def _array_model(arr, freq, dec, hour_angles, sample_interval, n_pol):

@@ -200,6 +200,7 @@ CONFIG_CASES = [
     ("pixel-coarser-than-nyquist", _setup(pixel_arcsec=20.0),
      "setup 'arr': pixel_arcsec: 20 arcsec is too coarse"),
     ("fast-removed", _setup(fast=True), ".fast: removed: the approximate Fourier-plane path"),
+    ("n-pol-three", _setup(n_pol=3), "setup 'arr': n_pol = 3; valid: 1 or 2"),
     ("products", _set(["output", "products"], ["movie"]), "products has 'movie'"),
     ("percentile", _set(["analysis"], {"percentile": 120.0}), "percentile must be in 0..100"),
     ("spectra-positions", _set(["analysis"], {"spectra_positions": [[1]]}), "give pixel pairs"),

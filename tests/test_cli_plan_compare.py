@@ -103,7 +103,7 @@ def _direct_plans(path, target_snr, hours):
 def test_plan_cli_matches_plan(conf_path, capsys):
     """One row per tracer x setup; beam, largest scale, rms, target and time per pointing as
     synth.plan gives them on independently synthesized cubes (3 significant digits), and the
-    dish rms equals the radiometer equation sigma = T_sys / (eta sqrt(dnu t)), dnu = nu dv / c
+    dish rms equals the radiometer equation sigma = T_sys / (eta sqrt(2 dnu t)) (two polarisations), dnu = nu dv / c
     (Wilson, Rohlfs & Hüttemeister 2013, Tools of Radio Astronomy, eq. 4.41)."""
     assert main(["plan", str(conf_path), "--target-snr", "4", "--time", "2h"]) == 0
     text = capsys.readouterr().out
@@ -125,7 +125,7 @@ def test_plan_cli_matches_plan(conf_path, capsys):
         if key[1] == "dish":
             nu_hz = p["frequency_ghz"] * 1e9
             dnu = nu_hz * 0.25 / 299792.458
-            assert got["rms"] == pytest.approx(150 / (0.6 * np.sqrt(dnu * 7200)), rel=6e-3)
+            assert got["rms"] == pytest.approx(150 / (0.6 * np.sqrt(2 * dnu * 7200)), rel=6e-3)
         else:
             assert cells[4] != "-" and float(cells[4]) > got["beam"]   # LAS > resolution
 

@@ -79,12 +79,20 @@ def test_measured_rms_matches_requested_rms():
 
 
 def test_measured_rms_matches_radiometer():
-    """rms within 3 % of the radiometer value 4.6077 mK (0.5 km/s channels, 2 h; see above)."""
-    obs = observe(make_cube(), DISH, channel_width=0.5 * KMS, integration_time=2 * u.hr, seed=2)
+    """rms within 3 % of the radiometer value 4.6077 mK for one polarisation (0.5 km/s
+    channels, 2 h; see above), and 1/sqrt(2) of it for the default two (the variance of the
+    mean of two independent polarisations is halved; radiometer equation)."""
+    one = DISH.__class__(**{**DISH.__dict__, "n_pol": 1})
+    obs = observe(make_cube(), one, channel_width=0.5 * KMS, integration_time=2 * u.hr, seed=2)
     values = obs.unmasked_data[:].value
     free = np.concatenate([values[:5], values[-5:]])
     assert obs.meta["NOISERMS"] == pytest.approx(4.6077e-3, rel=1e-4)
     assert np.std(free) == pytest.approx(4.6077e-3, rel=0.03)
+    two = observe(make_cube(), DISH, channel_width=0.5 * KMS, integration_time=2 * u.hr, seed=2)
+    assert DISH.n_pol == 2
+    assert two.meta["NOISERMS"] == pytest.approx(4.6077e-3 / np.sqrt(2), rel=1e-4)
+    free2 = np.concatenate([two.unmasked_data[:5].value, two.unmasked_data[-5:].value])
+    assert np.std(free2) == pytest.approx(4.6077e-3 / np.sqrt(2), rel=0.03)
 
 
 def _acf_fwhm_px(field):
@@ -180,3 +188,12 @@ def test_bad_correlated_noise_inputs(kwargs, match):
 def test_negative_time_in_observe():
     with pytest.raises(InstrumentError, match="integration_time: must be positive"):
         observe(make_cube(nz=4, n=16), DISH, integration_time=-2 * u.hr, seed=1)
+
+
+@pytest.mark.parametrize("n_pol", [0, 3, True, 1.5])
+def test_n_pol_must_be_one_or_two(n_pol):
+    from synth.instrument.single_dish import SingleDish
+    with pytest.raises(InstrumentError, match="n_pol"):
+        SingleDish(diameter=30 * u.m, n_pol=n_pol)
+    with pytest.raises(InstrumentError, match="n_pol"):
+        radiometer_rms(100 * u.K, 1.0, 1 * u.MHz, 1 * u.s, n_pol=n_pol)

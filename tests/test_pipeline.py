@@ -273,7 +273,7 @@ def test_dish_setup_writes_k_and_jy_cubes(tmp_path):
                                rtol=4e-4, atol=1e-7)
     from synth.instrument.noise import radiometer_rms
     dnu = (1 * u.km / u.s / const_c() * freq).to(u.Hz)
-    rms = radiometer_rms(120 * u.K, 0.7, dnu, 2 * u.hr).to_value(u.K)
+    rms = radiometer_rms(120 * u.K, 0.7, dnu, 2 * u.hr, n_pol=2).to_value(u.K)
     entry = summary["setups"]["d30"]["13CO_1-0"]
     assert entry["noise_rms"] == pytest.approx(rms, rel=1e-3)
     edge = np.concatenate([k.unmasked_data[:8].value.ravel(), k.unmasked_data[-8:].value.ravel()])

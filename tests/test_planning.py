@@ -89,13 +89,14 @@ def test_interferometer_rms_worked_example_and_inverse():
 
 def test_single_dish_resolution_and_rms():
     """A 12 m dish with taper 1.13 at 230.54 GHz: FWHM 25.3" (REFERENCES.md, 2nd); the rms
-    for 1 h in 1 MHz follows T_sys / (eta sqrt(dnu t)) (radiometer equation)."""
+    for 1 h in 1 MHz follows T_sys / (eta sqrt(n_pol dnu t)) (radiometer equation, two
+    polarisations by default)."""
     sd = pytest.importorskip("synth.instrument.single_dish", exc_type=ImportError)
     dish = sd.SingleDish(diameter=12 * u.m, efficiency=0.8, tsys=150 * u.K)
     nu = 230.538 * u.GHz
     p = plan(dish, nu, channel_width=1 * u.MHz, integration_time=1 * u.hour)
     assert p.resolution.major.to_value(u.arcsec) == pytest.approx(25.3, rel=5e-3)
-    assert p.rms.to_value(u.K) == pytest.approx(150 / (0.8 * np.sqrt(1e6 * 3600)), rel=1e-9)
+    assert p.rms.to_value(u.K) == pytest.approx(150 / (0.8 * np.sqrt(2 * 1e6 * 3600)), rel=1e-9)
     assert np.isnan(p.largest_scale.value) and p.time_to_target is None
 
 

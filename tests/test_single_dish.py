@@ -216,7 +216,8 @@ def test_observe_records_and_units():
     header = obs.header
     assert header["INSTRUME"] == "thirty" and int(header["NSEED"]) == 1
     assert float(header["CHANWID"]) == pytest.approx(0.5) and "BMAJ" in header
-    assert obs.meta["NOISERMS"] == pytest.approx(0.0046077, rel=1e-4)  # radiometer, see noise
+    # radiometer, two polarisations: 4.6077 mK / sqrt(2) (see test_noise)
+    assert obs.meta["NOISERMS"] == pytest.approx(0.0046077 / np.sqrt(2), rel=1e-4)
     jy = observe(cube, dish, noise=False, unit="Jy/beam", spectral_axis="frequency",
                  guard_band=0 * u.arcsec)
     assert jy.unit == u.Jy / u.beam and jy.spectral_axis.unit == u.GHz

@@ -88,6 +88,8 @@ class Interferometer:
         Primary-beam shape; ``taper`` sets the Gaussian FWHM = taper lambda / D.
     quantization_efficiency, correlator_efficiency : float
         eta_q and eta_c of the radiometer equation (TMS 3rd ed., ch. 6 and 8).
+    n_pol : {1, 2}
+        Polarisations correlated and averaged into Stokes I (default 2).
     """
 
     antennas: object = "ring-24"
@@ -101,6 +103,7 @@ class Interferometer:
     taper: float = 1.13
     quantization_efficiency: float = 0.96
     correlator_efficiency: float = 0.88
+    n_pol: int = 2
     antenna_names: tuple = field(init=False, repr=False)
     positions_m: np.ndarray = field(init=False, repr=False)
     diameters_m: np.ndarray = field(init=False, repr=False)
@@ -124,6 +127,8 @@ class Interferometer:
             v = getattr(self, key)
             if not (isinstance(v, (int, float)) and 0 < v <= 1):
                 raise InstrumentError(f"{key}={v!r} must be a number in (0, 1]")
+        if isinstance(self.n_pol, bool) or self.n_pol not in (1, 2):
+            raise InstrumentError(f"n_pol={self.n_pol!r}; valid: 1 or 2 polarisations")
         if self.pb_shape not in PB_SHAPES:
             raise InstrumentError(f"pb_shape={self.pb_shape!r} is not known; choose one of {PB_SHAPES}")
         tsys = _quantity("tsys", self.tsys, u.K)
@@ -173,7 +178,7 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_shar
         d = arr.diameters_m
         area = np.pi * d**2 / 4
         s = visibility_sigma_jy(arr.tsys.to_value(u.K), area[t.ant1], area[t.ant2],
-                                arr.total_efficiency, dnu_hz, t.sample_time_s)
+                                arr.total_efficiency, dnu_hz, t.sample_time_s, arr.n_pol)
         if integration_time is not None:
             t_tot = np.unique(t.hour_angle_rad).size * t.sample_time_s
             s = s * np.sqrt(t_tot / _quantity("integration_time", integration_time, u.s).value)

@@ -23,7 +23,8 @@ from ..errors import InstrumentError
 from .beam import pixel_kernel
 from .spectral import HANNING_VARIANCE_FACTOR, HANNING_WEIGHTS
 
-__all__ = ["radiometer_rms", "time_for_rms", "correlated_noise", "hanning_noise_factor"]
+__all__ = ["radiometer_rms", "time_for_rms", "correlated_noise", "hanning_noise_factor",
+           "N_POL"]
 
 
 def _positive(value, unit, field, hint):
@@ -53,12 +54,14 @@ def _bandwidth_hz(value):
     return _positive(value, u.Hz, "channel_width_hz", "200 * u.kHz")
 
 
-def radiometer_rms(tsys, efficiency, channel_width_hz, time):
+def radiometer_rms(tsys, efficiency, channel_width_hz, time, n_pol=1):
     """Noise rms per channel on the main-beam temperature scale.
 
-    .. math:: \\sigma_T = T_{sys} / (\\eta \\sqrt{\\Delta\\nu\\, t})
+    .. math:: \\sigma_T = T_{sys} / (\\eta \\sqrt{n_{pol} \\Delta\\nu\\, t})
 
-    (Wilson, Rohlfs & Hüttemeister 2013, eq. 4.41, number from memory.)
+    (Wilson, Rohlfs & Hüttemeister 2013, eq. 4.41, number from memory; averaging ``n_pol``
+    independent polarisation channels of the same total intensity divides the variance by
+    n_pol.)
 
     Parameters
     ----------
@@ -68,6 +71,8 @@ def radiometer_rms(tsys, efficiency, channel_width_hz, time):
     channel_width_hz : Quantity (frequency) or float in Hz
     time : Quantity (time)
         Effective on-source integration time.
+    n_pol : {1, 2}
+        Polarisations averaged (a SingleDish records two by default).
 
     Returns
     -------
@@ -82,16 +87,26 @@ def radiometer_rms(tsys, efficiency, channel_width_hz, time):
     tsys_k = _positive(tsys, u.K, "tsys", "120 * u.K")
     t_s = _positive(time, u.s, "integration_time", "2 * u.hr")
     dnu_hz = _bandwidth_hz(channel_width_hz)
-    return tsys_k / (_efficiency(efficiency) * np.sqrt(dnu_hz * t_s)) * u.K
+    return tsys_k / (_efficiency(efficiency) * np.sqrt(_n_pol(n_pol) * dnu_hz * t_s)) * u.K
 
 
-def time_for_rms(tsys, efficiency, channel_width_hz, rms):
-    """Integration time reaching ``rms`` per channel: t = (T_sys / (eta sigma))^2 / dnu
-    (the radiometer equation solved for t). Returns a Quantity in s."""
+def time_for_rms(tsys, efficiency, channel_width_hz, rms, n_pol=1):
+    """Integration time reaching ``rms`` per channel: t = (T_sys / (eta sigma))^2 /
+    (n_pol dnu) (the radiometer equation solved for t). Returns a Quantity in s."""
     tsys_k = _positive(tsys, u.K, "tsys", "120 * u.K")
     rms_k = _positive(rms, u.K, "rms", "0.05 * u.K")
     dnu_hz = _bandwidth_hz(channel_width_hz)
-    return (tsys_k / (_efficiency(efficiency) * rms_k)) ** 2 / dnu_hz * u.s
+    return (tsys_k / (_efficiency(efficiency) * rms_k)) ** 2 / (_n_pol(n_pol) * dnu_hz) * u.s
+
+
+#: polarisations a receiver can average
+N_POL = (1, 2)
+
+
+def _n_pol(n_pol):
+    if isinstance(n_pol, bool) or n_pol not in N_POL:
+        raise InstrumentError(f"n_pol: {n_pol!r}; valid: 1 or 2 polarisations")
+    return int(n_pol)
 
 
 def hanning_noise_factor():

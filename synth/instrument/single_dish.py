@@ -42,6 +42,9 @@ class SingleDish:
         1.2 strong taper (REFERENCES.md). Allowed range TAPER_RANGE.
     name : str
         Recorded in the output's INSTRUME card.
+    n_pol : {1, 2}
+        Polarisations the receiver records and averages (default 2: the radiometer noise
+        is 1/sqrt(2) of a single polarisation's).
     """
 
     diameter: u.Quantity = None
@@ -50,6 +53,7 @@ class SingleDish:
     beam: Beam = None
     taper: float = 1.13
     name: str = "dish"
+    n_pol: int = 2
 
     def __post_init__(self):
         if (self.diameter is None) == (self.beam is None):
@@ -71,6 +75,8 @@ class SingleDish:
                                   f"1.02 uniform, 1.13 typical), got {self.taper!r}")
         if not isinstance(self.name, str) or not self.name:
             raise InstrumentError(f"name: must be a non-empty string, got {self.name!r}")
+        if isinstance(self.n_pol, bool) or self.n_pol not in (1, 2):
+            raise InstrumentError(f"n_pol: {self.n_pol!r}; valid: 1 or 2 polarisations")
 
     def beam_at(self, freq):
         """The beam at frequency ``freq`` (Quantity): the fixed beam, or taper * lambda / D."""
@@ -110,7 +116,7 @@ def noise_rms_for(cube, dish, beam, *, integration_time=None, rms=None, hanning=
     v, _ = velocity_axis(cube)
     width = abs(v[1] - v[0])
     dnu = channel_width_frequency(width, reference_frequency(cube))
-    sigma = radiometer_rms(dish.tsys, dish.efficiency, dnu, integration_time)
+    sigma = radiometer_rms(dish.tsys, dish.efficiency, dnu, integration_time, dish.n_pol)
     return sigma * hanning_noise_factor() if hanning else sigma
 
 

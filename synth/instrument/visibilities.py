@@ -164,6 +164,7 @@ def _positive(name, q, unit):
 
 
 def _array_factor(arr, n_pol):
+    n_pol = getattr(arr, "n_pol", 2) if n_pol is None else n_pol
     """Point-source noise (Jy) of all baselines combined, for 1 Hz and 1 s: the inverse-variance
     sum of the per-baseline noise (natural weighting)."""
     i, j = np.triu_indices(arr.n_antennas, k=1)
@@ -173,7 +174,7 @@ def _array_factor(arr, n_pol):
     return 1.0 / np.sqrt(np.sum(1.0 / sig**2))
 
 
-def interferometer_rms(arr, channel_width, time, n_pol=2):
+def interferometer_rms(arr, channel_width, time, n_pol=None):
     """Point-source sensitivity of the whole array per channel (natural weighting), in Jy:
 
     sigma_S = 2 k T_sys / (eta_q eta_c eta_a A sqrt(N (N - 1) n_pol dnu t))
@@ -186,7 +187,7 @@ def interferometer_rms(arr, channel_width, time, n_pol=2):
     return _array_factor(arr, n_pol) / np.sqrt(dnu * t) * u.Jy
 
 
-def interferometer_time(arr, channel_width, rms, n_pol=2):
+def interferometer_time(arr, channel_width, rms, n_pol=None):
     """On-source time for point-source rms ``rms`` per channel: the inverse of
     :func:`interferometer_rms` (t proportional to sigma^-2)."""
     dnu = _positive("channel_width", channel_width, u.Hz)
