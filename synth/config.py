@@ -110,6 +110,10 @@ SETUP = {
                           "arcsec (default 1.5 beam FWHM)"),
     "primary_beam_cutoff": (_NUM, 0.2, "array: the corrected map is blank where the relative "
                             "response is below this"),
+    "phase_rms_deg": (_NUM, 0.0, "array: rms of antenna phase errors, deg, drawn per antenna "
+                      "and interval (seeded by seed)"),
+    "phase_interval_s": (_NUM, None, "array: interval of the phase errors, s (default: "
+                         "sample_interval_s)"),
 }
 #: config keys that no longer exist, with what replaced them
 REMOVED_KEYS = {"fast": "removed: the approximate Fourier-plane path was dropped (it measured "
@@ -267,6 +271,10 @@ def _check_map_keys(st):
     if st["pointing_pattern"] not in ("hexagonal", "rectangular", "single"):
         raise ConfigError(f"{where}: pointing_pattern = '{st['pointing_pattern']}'; valid: "
                           "hexagonal, rectangular, single")
+    if not st["phase_rms_deg"] >= 0:
+        raise ConfigError(f"{where}: phase_rms_deg = {st['phase_rms_deg']}; must be >= 0")
+    if st["phase_interval_s"] is not None and not st["phase_interval_s"] > 0:
+        raise ConfigError(f"{where}: phase_interval_s = {st['phase_interval_s']}; must be > 0")
     if st["n_pol"] not in (1, 2):
         raise ConfigError(f"{where}: n_pol = {st['n_pol']}; valid: 1 or 2")
     if st["max_pointings"] < 1:

@@ -83,7 +83,10 @@ def observe_options(st, beyond_box="empty"):
     kw.update(hour_angles=(st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
               sample_interval=st["sample_interval_s"] * u.s, weighting=st["weighting"],
               robust=st["robust"], deconvolve=st["deconvolve"],
-              pb_limit=st["primary_beam_cutoff"], pb_correct=True)
+              pb_limit=st["primary_beam_cutoff"], pb_correct=True,
+              phase_rms=st["phase_rms_deg"] * u.deg)
+    if st["phase_interval_s"] is not None:
+        kw["phase_interval"] = st["phase_interval_s"] * u.s
     return kw
 
 

@@ -201,6 +201,8 @@ CONFIG_CASES = [
      "setup 'arr': pixel_arcsec: 20 arcsec is too coarse"),
     ("fast-removed", _setup(fast=True), ".fast: removed: the approximate Fourier-plane path"),
     ("n-pol-three", _setup(n_pol=3), "setup 'arr': n_pol = 3; valid: 1 or 2"),
+    ("phase-rms-negative", _setup(phase_rms_deg=-5.0),
+     "setup 'arr': phase_rms_deg = -5.0; must be >= 0"),
     ("products", _set(["output", "products"], ["movie"]), "products has 'movie'"),
     ("percentile", _set(["analysis"], {"percentile": 120.0}), "percentile must be in 0..100"),
     ("spectra-positions", _set(["analysis"], {"spectra_positions": [[1]]}), "give pixel pairs"),

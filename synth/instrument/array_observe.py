@@ -12,6 +12,7 @@ dish in the list is feathered in afterwards (:mod:`synth.instrument.combine`).
 """
 
 import warnings
+from dataclasses import replace
 
 import astropy.units as u
 import numpy as np
@@ -23,9 +24,9 @@ from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
 from .imaging import fit_restoring_beam, restore
-from .interferometer import (OBSERVE_OPTIONS, Tracks, _channel_width_hz, _check_options,
-                             _dirty, _pb_images, _psf, _quantity, _seed, assemble_tracks,
-                             new_observed_cube)
+from .interferometer import (OBSERVE_OPTIONS, _channel_width_hz, _check_options, _dirty,
+                             _pb_images, _psf, _quantity, _seed, antenna_phase_gains,
+                             assemble_tracks, new_observed_cube)
 from .mapping import (MapOptions, ObservedMap, array_canvas, array_layout, map_options,
                       pointing_hour_angles, primary_beam_fwhm_arcsec, sub_boxes)
 from .visibilities import (ImageGeometry, check_sampling, cube_frequencies_hz, cube_geometry,
@@ -41,7 +42,8 @@ MAP_KEYS = ("map_size", "map_center", "pixel", "beyond_box", "pointing_pattern",
 OUTSIDE_PB_WARN_FRACTION = 0.05
 
 
-def _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs, integration_time):
+def _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs, integration_time,
+               phase_seed=0):
     """Per pointing: (Tracks, ImageGeometry of its sub-image, (slice y, slice x))."""
     geom0, _, _ = cube_geometry(cube)
     dx = -canvas.pixel_arcsec / ARCSEC_PER_RAD
@@ -49,11 +51,17 @@ def _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs, integra
     dnu = _channel_width_hz(cube, freqs, opts)
     n = layout.n_pointings
     out = []
+    phase = u.Quantity(opts["phase_rms"]).to_value(u.rad)
+    interval = u.Quantity(opts["phase_interval"] if opts["phase_interval"] is not None
+                          else opts["sample_interval"]).to_value(u.s)
     for p, (sy, sx, x0, y0) in enumerate(sub_boxes(canvas, layout, half)):
         east, north = layout.pointings[p]
         dec_p = dec_rad + north / ARCSEC_PER_RAD
         o = dict(opts, hour_angles=pointing_hour_angles(opts, p, n, east, dec_rad))
         tracks = assemble_tracks(arrays, dec_p, o, dnu, integration_time, n_share=n)
+        if phase > 0:          # its own seeded draw, independent of the thermal noise
+            rng = np.random.default_rng([phase_seed, p])
+            tracks = replace(tracks, gains=antenna_phase_gains(tracks, phase, interval, rng))
         geom = ImageGeometry(sx.stop - sx.start, sy.stop - sy.start, dx, dy, x0, y0)
         out.append((tracks, geom, (sy, sx)))
     check_sampling(out[0][1], np.concatenate([t.uvw_m for t, _, _ in out]), freqs.max())
@@ -68,8 +76,7 @@ def _scale_to_rms(pointings, rms, nu, opts):
         w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
                             opts["robust"])
         scale = target / image_noise_jy(w, tracks.sigma_jy)
-        out.append((Tracks(tracks.uvw_m, tracks.sigma_jy * scale, tracks.groups, tracks.names),
-                    geom, box))
+        out.append((replace(tracks, sigma_jy=tracks.sigma_jy * scale), geom, box))
     return out
 
 
@@ -187,7 +194,9 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     ``integration_time`` the on-source time of each pointing (default: the track, shared in
     turn by the pointings); ``sd_scale`` multiplies the single-dish image when feathering;
     ``dish_options`` (integration_time, rms, noise, seed) for a SingleDish instrument in the
-    list. ``rms`` (Jy/beam) scales each pointing's noise to that image rms; ``unit``
+    list. ``phase_rms`` (angle) draws antenna phase errors of that rms per antenna and per
+    ``phase_interval`` (default the sample interval), seeded by ``seed``
+    (:func:`~synth.instrument.interferometer.antenna_phase_gains`). ``rms`` (Jy/beam) scales each pointing's noise to that image rms; ``unit``
     "Jy/beam" or "K". ``seed=None`` draws a seed and records it (NSEED).
 
     Map options (see :func:`synth.instrument.mapping.map_options`): ``map_size``,
@@ -215,7 +224,7 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
                                                               mopts.beyond_box)
     sky = place_model(cube, canvas, zshape, offset, mopts.beyond_box)
     pointings = _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs,
-                           integration_time)
+                           integration_time, phase_seed=seed if seed is not None else 0)
     if opts["rms"] is not None:
         pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
     corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
@@ -231,7 +240,8 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
                 MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
                 PBLIMIT=float(opts["pb_limit"]),
                 NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
-                CLEANIT=int(iters), THEORMS=float(np.median(rms)))
+                CLEANIT=int(iters), THEORMS=float(np.median(rms)),
+                PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
     if dish is not None:
         sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
                                               seed, hanning)

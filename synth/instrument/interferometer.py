@@ -18,18 +18,19 @@ from ..errors import InstrumentError
 from ..sky import C_M_S
 from .arrays import BUILTIN_LAYOUTS, builtin_layout, read_layout_csv
 from .primary_beam import PB_SHAPES, pair_beam
-from .uv import uv_tracks
+from .uv import SIDEREAL_RATE_RAD_S, uv_tracks
 from .visibilities import (add_thermal_noise, cube_frequencies_hz, grid_dirty, predict, visibility_sigma_jy)
 from .weighting import WEIGHTINGS, image_noise_jy
 
 __all__ = ["Interferometer", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
-           "new_observed_cube", "Tracks"]
+           "new_observed_cube", "Tracks", "antenna_phase_gains"]
 
 #: keyword options of observe_interferometric and their defaults
 OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s,
                        weighting="natural", robust=0.5, deconvolve=False, threshold=3.0,
                        niter=5000, gain=0.1, pb_correct=False, pb_limit=0.2,
-                       primary_beam=True, bandwidth=None,
+                       primary_beam=True, bandwidth=None, phase_rms=0 * u.deg,
+                       phase_interval=None,
                        sd_scale=1.0, rms=None, unit="Jy/beam")
 
 
@@ -156,13 +157,19 @@ class Tracks:
     """All arrays' visibility rows: uvw (m), noise per row (Jy) and primary-beam groups.
 
     ``groups`` is a tuple of (row indices, d1_m, d2_m, shape, taper): rows sharing one
-    pair beam.
+    pair beam. ``ant1``/``ant2`` are antenna numbers over all arrays, ``time_s`` the time
+    of each row since the start of the track, ``gains`` an optional complex factor per row
+    (antenna phase errors) applied to the predicted visibilities.
     """
 
     uvw_m: np.ndarray
     sigma_jy: np.ndarray
     groups: tuple
     names: tuple
+    ant1: np.ndarray = None
+    ant2: np.ndarray = None
+    time_s: np.ndarray = None
+    gains: np.ndarray = None
 
 
 def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_share=1):
@@ -172,9 +179,14 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_shar
     integrates 1/n_share of its sample interval (noise x sqrt(n_share)). An
     ``integration_time`` (on-source time of this pointing) overrides it.
     """
-    uvw, sig, gid, table = [], [], [], {}
+    uvw, sig, gid, table, a1, a2, times, offset = [], [], [], {}, [], [], [], 0
+    h_start = u.Quantity(opts["hour_angles"]).to_value(u.rad)[0]
     for arr in arrays:
         t = uv_tracks(arr, dec_rad * u.rad, opts["hour_angles"], opts["sample_interval"])
+        a1.append(t.ant1 + offset)
+        a2.append(t.ant2 + offset)
+        offset += arr.n_antennas
+        times.append((t.hour_angle_rad - h_start) / SIDEREAL_RATE_RAD_S)
         d = arr.diameters_m
         area = np.pi * d**2 / 4
         s = visibility_sigma_jy(arr.tsys.to_value(u.K), area[t.ant1], area[t.ant2],
@@ -198,7 +210,21 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_shar
     gid = np.concatenate(gid)
     groups = tuple((np.nonzero(gid == k)[0],) + key for key, k in table.items())
     return Tracks(np.concatenate(uvw), np.concatenate(sig), groups,
-                  tuple(a.name for a in arrays))
+                  tuple(a.name for a in arrays), np.concatenate(a1), np.concatenate(a2),
+                  np.concatenate(times))
+
+
+def antenna_phase_gains(tracks, phase_rms_rad, interval_s, rng):
+    """Complex gains exp(i (phi_a1 - phi_a2)) per row for antenna phase errors: phi drawn
+    per antenna and per solution interval of ``interval_s`` from a Gaussian of rms
+    ``phase_rms_rad``. A baseline's phase error then has rms sqrt(2) phi, and the
+    visibilities average to exp(-phi^2) of their value (the coherence of Gaussian phase
+    noise of rms sigma is exp(-sigma^2/2); common practice, e.g. Thompson, Moran & Swenson
+    2017, sec. 13.1)."""
+    slot = np.floor(tracks.time_s / interval_s + 1e-9).astype(np.int64)
+    n_ant = int(max(tracks.ant1.max(), tracks.ant2.max())) + 1
+    phi = rng.normal(0.0, phase_rms_rad, size=(n_ant, int(slot.max()) + 1))
+    return np.exp(1j * (phi[tracks.ant1, slot] - phi[tracks.ant2, slot]))
 
 
 def _pb_images(tracks, geom, nu_hz, weights, use_pb):
@@ -225,6 +251,8 @@ def _dirty(sky, tracks, nu_hz, weights, geom, pbs, rng):
         vis = np.empty(tracks.uvw_m.shape[0], dtype=np.complex128)
         for (idx, *_), pb in zip(tracks.groups, pbs):
             vis[idx] = predict(sky * pb, tracks.uvw_m[idx], nu_hz, geom)
+    if tracks.gains is not None:
+        vis = vis * tracks.gains
     if rng is not None:
         vis = add_thermal_noise(vis, tracks.sigma_jy, rng)
     return grid_dirty(vis, tracks.uvw_m, nu_hz, weights, geom)
@@ -241,6 +269,11 @@ def _check_options(opts):
                                   (" and gain in (0, 1]" if key == "gain" else ""))
     if not (isinstance(opts["niter"], (int, np.integer)) and opts["niter"] >= 0):
         raise InstrumentError(f"niter={opts['niter']!r} must be an integer >= 0")
+    phase = _quantity("phase_rms", opts["phase_rms"], u.rad, positive=False)
+    if phase.value < 0:
+        raise InstrumentError(f"phase_rms={opts['phase_rms']!r} must be >= 0")
+    if opts["phase_interval"] is not None:
+        _quantity("phase_interval", opts["phase_interval"], u.s)
 
 
 def _channel_width_hz(cube, freqs, opts):
