@@ -114,6 +114,12 @@ SETUP = {
                       "and interval (seeded by seed)"),
     "phase_interval_s": (_NUM, None, "array: interval of the phase errors, s (default: "
                          "sample_interval_s)"),
+    "zenith_opacity": (_NUM, None, "array: zenith opacity; with receiver_temperature_k, T_sys "
+                       "follows each sample's elevation instead of tsys_k"),
+    "receiver_temperature_k": (_NUM, None, "array: receiver temperature T_rx, K (with "
+                               "zenith_opacity)"),
+    "atmosphere_temperature_k": (_NUM, 270.0, "array: effective temperature of the "
+                                 "atmosphere, K (with zenith_opacity)"),
 }
 #: config keys that no longer exist, with what replaced them
 REMOVED_KEYS = {"fast": "removed: the approximate Fourier-plane path was dropped (it measured "
@@ -275,6 +281,16 @@ def _check_map_keys(st):
         raise ConfigError(f"{where}: phase_rms_deg = {st['phase_rms_deg']}; must be >= 0")
     if st["phase_interval_s"] is not None and not st["phase_interval_s"] > 0:
         raise ConfigError(f"{where}: phase_interval_s = {st['phase_interval_s']}; must be > 0")
+    tau = st["zenith_opacity"]
+    if tau is not None:
+        if not tau > 0:
+            raise ConfigError(f"{where}: zenith_opacity = {tau}; must be > 0")
+        if st["receiver_temperature_k"] is None or not st["receiver_temperature_k"] > 0:
+            raise ConfigError(f"{where}: zenith_opacity needs receiver_temperature_k > 0 "
+                              f"(got {st['receiver_temperature_k']})")
+    if not st["atmosphere_temperature_k"] > 0:
+        raise ConfigError(f"{where}: atmosphere_temperature_k = "
+                          f"{st['atmosphere_temperature_k']}; must be > 0")
     if st["n_pol"] not in (1, 2):
         raise ConfigError(f"{where}: n_pol = {st['n_pol']}; valid: 1 or 2")
     if st["max_pointings"] < 1:

@@ -36,13 +36,20 @@ def make_instrument(st):
         else:
             kw["diameter"] = st["diameter_m"] * u.m
         return SingleDish(**kw)
-    for key in ("antennas", "latitude_deg", "tsys_k"):
+    needed = ("antennas", "latitude_deg") + (() if st.get("zenith_opacity") is not None
+                                             else ("tsys_k",))
+    for key in needed:
         if st[key] is None:
             raise ConfigError(f"setup '{st['name']}' (array) needs '{key}'")
     from .instrument.interferometer import Interferometer  # after the cheap checks
     kw = dict(antennas=st["antennas"], latitude=st["latitude_deg"] * u.deg,
-              efficiency=st["efficiency"], tsys=st["tsys_k"] * u.K, name=st["name"],
-              n_pol=st["n_pol"])
+              efficiency=st["efficiency"], name=st["name"], n_pol=st["n_pol"])
+    if st["tsys_k"] is not None:
+        kw["tsys"] = st["tsys_k"] * u.K
+    if st["zenith_opacity"] is not None:
+        kw.update(zenith_opacity=st["zenith_opacity"],
+                  receiver_temperature=st["receiver_temperature_k"] * u.K,
+                  atmosphere_temperature=st["atmosphere_temperature_k"] * u.K)
     if st["diameter_m"] is not None:
         kw["dish_diameter"] = st["diameter_m"] * u.m
     return Interferometer(**kw)

@@ -256,10 +256,11 @@ def _array_model(arr, freq, dec, hour_angles, sample_interval, n_pol):
     from .instrument.visibilities import interferometer_rms, interferometer_time
     beam = synthesized_beam_estimate(arr, freq, dec, hour_angles, sample_interval)
     lrs = largest_recoverable_scale(arr, freq, dec, hour_angles, sample_interval)
+    tsys = arr.effective_tsys(dec, hour_angles, sample_interval)   # the atmosphere model
     return (beam, lrs.to(u.arcsec),
-            lambda dnu, t: interferometer_rms(arr, dnu, t, n_pol).value * u.Jy / u.beam,
+            lambda dnu, t: interferometer_rms(arr, dnu, t, n_pol, tsys).value * u.Jy / u.beam,
             lambda dnu, rms: interferometer_time(arr, dnu, rms.to_value(u.Jy / u.beam) * u.Jy,
-                                                 n_pol))
+                                                 n_pol, tsys))
 
 
 def _layout(setup, cube, freq, mkw, array_opts, dec_rad=None):

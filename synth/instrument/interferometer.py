@@ -18,7 +18,7 @@ from ..errors import InstrumentError
 from ..sky import C_M_S
 from .arrays import BUILTIN_LAYOUTS, builtin_layout, read_layout_csv
 from .primary_beam import PB_SHAPES, pair_beam
-from .uv import SIDEREAL_RATE_RAD_S, uv_tracks
+from .uv import SIDEREAL_RATE_RAD_S, elevation, uv_tracks
 from .visibilities import (add_thermal_noise, cube_frequencies_hz, grid_dirty, predict, visibility_sigma_jy)
 from .weighting import WEIGHTINGS, image_noise_jy
 
@@ -91,6 +91,11 @@ class Interferometer:
         eta_q and eta_c of the radiometer equation (TMS 3rd ed., ch. 6 and 8).
     n_pol : {1, 2}
         Polarisations correlated and averaged into Stokes I (default 2).
+    zenith_opacity : float, optional
+        With ``receiver_temperature``: T_sys follows the elevation of every sample through a
+        plane-parallel atmosphere (:mod:`synth.instrument.atmosphere`) instead of ``tsys``.
+    receiver_temperature, atmosphere_temperature : Quantity [temperature]
+        T_rx, and the atmosphere's effective temperature (270 K, common practice).
     """
 
     antennas: object = "ring-24"
@@ -105,6 +110,9 @@ class Interferometer:
     quantization_efficiency: float = 0.96
     correlator_efficiency: float = 0.88
     n_pol: int = 2
+    zenith_opacity: float = None
+    receiver_temperature: u.Quantity = None
+    atmosphere_temperature: u.Quantity = 270 * u.K
     antenna_names: tuple = field(init=False, repr=False)
     positions_m: np.ndarray = field(init=False, repr=False)
     diameters_m: np.ndarray = field(init=False, repr=False)
@@ -128,6 +136,16 @@ class Interferometer:
             v = getattr(self, key)
             if not (isinstance(v, (int, float)) and 0 < v <= 1):
                 raise InstrumentError(f"{key}={v!r} must be a number in (0, 1]")
+        if self.zenith_opacity is not None:
+            tau = self.zenith_opacity
+            if isinstance(tau, bool) or not (isinstance(tau, (int, float)) and np.isfinite(tau)
+                                             and tau > 0):
+                raise InstrumentError(f"zenith_opacity={tau!r} must be a number > 0")
+            if self.receiver_temperature is None:
+                raise InstrumentError("zenith_opacity needs receiver_temperature (T_rx, e.g. "
+                                      "50 * u.K): T_sys then follows the elevation")
+            _quantity("receiver_temperature", self.receiver_temperature, u.K)
+            _quantity("atmosphere_temperature", self.atmosphere_temperature, u.K)
         if isinstance(self.n_pol, bool) or self.n_pol not in (1, 2):
             raise InstrumentError(f"n_pol={self.n_pol!r}; valid: 1 or 2 polarisations")
         if self.pb_shape not in PB_SHAPES:
@@ -145,6 +163,26 @@ class Interferometer:
     @property
     def n_antennas(self):
         return self.positions_m.shape[0]
+
+    def tsys_at(self, elevation_rad):
+        """T_sys in K at each elevation: ``tsys`` without an atmosphere model, else
+        [T_rx + T_atm (1 - e^-tau0 A)] e^(tau0 A) (:mod:`synth.instrument.atmosphere`)."""
+        if self.zenith_opacity is None:
+            return np.full(np.shape(elevation_rad), self.tsys.to_value(u.K))
+        from .atmosphere import system_temperature
+        return system_temperature(u.Quantity(self.receiver_temperature).to_value(u.K),
+                                  self.zenith_opacity, elevation_rad,
+                                  u.Quantity(self.atmosphere_temperature).to_value(u.K))
+
+    def effective_tsys(self, declination, hour_angles, sample_interval):
+        """The T_sys (K) whose constant value gives the same naturally weighted point-source
+        noise as the track: [mean over samples of T_sys^-2]^(-1/2)."""
+        from .uv import elevation
+        t = uv_tracks(self, declination, hour_angles, sample_interval)
+        h = np.unique(t.hour_angle_rad)
+        el = elevation(h, u.Quantity(declination).to_value(u.rad),
+                       self.latitude.to_value(u.rad))
+        return float(np.mean(self.tsys_at(el) ** -2.0) ** -0.5)
 
     @property
     def total_efficiency(self):
@@ -189,7 +227,8 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_shar
         times.append((t.hour_angle_rad - h_start) / SIDEREAL_RATE_RAD_S)
         d = arr.diameters_m
         area = np.pi * d**2 / 4
-        s = visibility_sigma_jy(arr.tsys.to_value(u.K), area[t.ant1], area[t.ant2],
+        el = elevation(t.hour_angle_rad, dec_rad, arr.latitude.to_value(u.rad))
+        s = visibility_sigma_jy(arr.tsys_at(el), area[t.ant1], area[t.ant2],
                                 arr.total_efficiency, dnu_hz, t.sample_time_s, arr.n_pol)
         if integration_time is not None:
             t_tot = np.unique(t.hour_angle_rad).size * t.sample_time_s

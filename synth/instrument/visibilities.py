@@ -163,18 +163,19 @@ def _positive(name, q, unit):
     return v
 
 
-def _array_factor(arr, n_pol):
-    n_pol = getattr(arr, "n_pol", 2) if n_pol is None else n_pol
+def _array_factor(arr, n_pol, tsys_k=None):
     """Point-source noise (Jy) of all baselines combined, for 1 Hz and 1 s: the inverse-variance
-    sum of the per-baseline noise (natural weighting)."""
+    sum of the per-baseline noise (natural weighting), at ``tsys_k`` (default the array's)."""
+    n_pol = getattr(arr, "n_pol", 2) if n_pol is None else n_pol
+    tsys_k = arr.tsys.to_value(u.K) if tsys_k is None else float(tsys_k)
     i, j = np.triu_indices(arr.n_antennas, k=1)
     area = np.pi * arr.diameters_m**2 / 4
-    sig = visibility_sigma_jy(arr.tsys.to_value(u.K), area[i], area[j], arr.total_efficiency,
+    sig = visibility_sigma_jy(tsys_k, area[i], area[j], arr.total_efficiency,
                               1.0, 1.0, n_pol)
     return 1.0 / np.sqrt(np.sum(1.0 / sig**2))
 
 
-def interferometer_rms(arr, channel_width, time, n_pol=None):
+def interferometer_rms(arr, channel_width, time, n_pol=None, tsys_k=None):
     """Point-source sensitivity of the whole array per channel (natural weighting), in Jy:
 
     sigma_S = 2 k T_sys / (eta_q eta_c eta_a A sqrt(N (N - 1) n_pol dnu t))
@@ -184,15 +185,15 @@ def interferometer_rms(arr, channel_width, time, n_pol=None):
     """
     dnu = _positive("channel_width", channel_width, u.Hz)
     t = _positive("time", time, u.s)
-    return _array_factor(arr, n_pol) / np.sqrt(dnu * t) * u.Jy
+    return _array_factor(arr, n_pol, tsys_k) / np.sqrt(dnu * t) * u.Jy
 
 
-def interferometer_time(arr, channel_width, rms, n_pol=None):
+def interferometer_time(arr, channel_width, rms, n_pol=None, tsys_k=None):
     """On-source time for point-source rms ``rms`` per channel: the inverse of
     :func:`interferometer_rms` (t proportional to sigma^-2)."""
     dnu = _positive("channel_width", channel_width, u.Hz)
     s = _positive("rms", rms, u.Jy)
-    return (_array_factor(arr, n_pol) / s) ** 2 / dnu * u.s
+    return (_array_factor(arr, n_pol, tsys_k) / s) ** 2 / dnu * u.s
 
 
 def cube_geometry(cube):
