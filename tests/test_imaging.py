@@ -139,8 +139,7 @@ def test_robust_limits_tend_to_natural_and_uniform():
     for r, ref in ((5.0, nat), (-5.0, uni)):
         ratio = imaging_weights(t.uvw_m, 230e9, sig, geom, "robust", robust=r) / ref
         assert np.ptp(ratio) / ratio.mean() < 1e-3
-    mid = imaging_weights(t.uvw_m, 230e9, sig, geom, "robust", robust=0.0) / nat
-    assert np.ptp(mid) / mid.mean() > 0.1
+    # intermediate R: test_briggs_weights_against_the_formula_on_a_known_uv_density
 
 
 def test_uniform_weights_fill_each_cell_equally():
