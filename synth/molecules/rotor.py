@@ -8,7 +8,8 @@ Spectroscopy, ch. 1 and eq. 1-25 (memory)):
     A_{J -> J-1} = 64 pi^4 nu^3 mu^2 J / (3 h c^3 (2J + 1))
                  = 1.16397e-11 nu_GHz^3 mu_D^2 J / (2J + 1)  s^-1.
 
-Hyperfine structure (N2H+, HCN, C17O) is averaged: one line per J.
+Hyperfine structure (N2H+, HCN, C17O) is averaged in the levels: one line per J (the
+transfer can split HCN 1-0 and N2H+ 1-0 into components, :mod:`synth.molecules.hyperfine`).
 
 The sextic term H matters for the light, fast rotors: for CO it moves 10-9 by 90 kHz and
 20-19 by 3 MHz. B, D (and H where the frequencies determine it) are least-squares fits to
