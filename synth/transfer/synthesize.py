@@ -198,7 +198,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     n_cubes = 1 + ("tau" in products)
     plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
                       in_flight=getattr(executor or SerialExecutor(), "in_flight", 1),
-                      extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes)
+                      extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes,
+                      extra_per_cell=0 if hfs is None else 24 * len(hfs.fractions))
     job = _Job(line, float(abundance), t_ex, grid, v_sys,
                float(radiation_temperature(line.freq_hz, t_bg_k)), "tau" in products,
                "column" in products, line_of_sight if on_disk else "z", hfs)
