@@ -64,6 +64,8 @@ TRACER = {
     "ortho_para_ratio": (_NUM, None, "LVG: fixed H2 ortho/para ratio (default thermal)"),
     "accuracy": (_NUM, None, "LVG: table accuracy in T_R (default 0.01)"),
     "max_escape_length_pc": (_NUM, None, "LVG: cap on the Sobolev length, pc (default box size)"),
+    "hyperfine": (bool, None, "split the line into its hyperfine components (default: where "
+                              "data exist, HCN 1-0 and N2H+ 1-0); false keeps it averaged"),
     "name": (str, None, "label used in file names (default species_transition)"),
 }
 OUTPUT = {

@@ -166,7 +166,8 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
     view_los = los if lazy is not None else "z"
     if vrange is None:
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
-                                      line_of_sight=view_los).value for ln in lines]
+                                      line_of_sight=view_los, hyperfine=tr.get("hyperfine")).value
+                  for tr, ln in zip(conf["tracer"], lines)]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
         from .preflight import check_cube_size  # the band is known only now
         n_chan = int(np.ceil((vrange[1] - vrange[0]).to_value(u.km / u.s) / chan["width_kms"]))
@@ -192,7 +193,7 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             t_bg=sky["background_k"] * u.K,
             t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
             excitation_options=_lvg_options(tr), products=products, progress=progress,
-            memory=budget, executor=executor)
+            memory=budget, executor=executor, hyperfine=tr.get("hyperfine"))
 
 
 def _budget_beside(snap, memory, tr):

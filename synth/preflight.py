@@ -92,6 +92,11 @@ def _line(tr, i):
     from .pipeline import _lvg_options
     _lvg_options(tr)
     _check_tracer_values(tr, where)
+    from .molecules.hyperfine import with_hyperfine
+    try:
+        with_hyperfine(line, tr.get("hyperfine"))
+    except SynthError as exc:
+        raise type(exc)(f"{where}.{exc}") from None
     if tr["excitation"] == "lvg":
         try:
             line.collision_molecule()  # LVG needs collision rates: found now, not after work

@@ -9,7 +9,7 @@ from synth.excitation.escape import (GEOMETRIES, TAU_MIN, escape_probability,
 
 mpmath = pytest.importorskip("mpmath")
 
-# Check values of REFERENCES.md (computed from the closed forms of Osterbrock's uniform
+# Check values (computed from the closed forms of Osterbrock's uniform
 # sphere, the LVG form of Castor 1970 and the slab of de Jong, Boland & Dalgarno 1980).
 CHECK = {
     0.1: {"sphere": 0.96348, "lvg": 0.95163, "slab": 0.86394},
@@ -21,7 +21,7 @@ CHECK = {
 @pytest.mark.parametrize("tau", sorted(CHECK))
 @pytest.mark.parametrize("geometry", GEOMETRIES)
 def test_check_values(tau, geometry):
-    """Tabulated check values (REFERENCES.md, 'Escape probabilities'), 5 digits."""
+    """Tabulated check values (computed from the closed forms above), 5 digits."""
     assert float(escape_probability(tau, geometry)) == pytest.approx(CHECK[tau][geometry],
                                                                      abs=6e-6)
 
@@ -57,7 +57,7 @@ def test_stable_against_high_precision(geometry):
 @pytest.mark.parametrize("geometry, thin, thick", [
     ("lvg", 0.5, 1.0), ("sphere", 3.0 / 8.0, 1.5), ("slab", 1.5, 1.0 / 3.0)])
 def test_limits(geometry, thin, thick):
-    """Thin limit 1 - a tau and thick limit b / tau (REFERENCES.md table: LVG 1 - tau/2, 1/tau;
+    """Thin limit 1 - a tau and thick limit b / tau (closed forms: LVG 1 - tau/2, 1/tau;
     sphere 1 - 3 tau/8, 1.5/tau; slab 1 - 3 tau/2, 1/(3 tau))."""
     assert float(escape_probability(0.0, geometry)) == 1.0
     t = 1e-7

@@ -25,7 +25,7 @@ def test_carried_file_is_the_astroquery_file_unchanged():
 
 
 def test_counts_of_the_co_file():
-    """Counts stated in REFERENCES.md for astroquery's co.txt (read): 41 levels, 40 lines,
+    """Counts of astroquery's co.txt (Schöier et al. 2005; read): 41 levels, 40 lines,
     partners pH2 and oH2 (codes 2, 3), 25 temperatures from 2 to 3000 K, 40 transitions each."""
     mol = read_leiden(astroquery_co_file())
     assert (mol.name, mol.n_levels, mol.n_lines) == ("CO", 41, 40)

@@ -105,7 +105,7 @@ def test_co_critical_density(co):
     """CO 1-0: A_ul / sum of downward coefficients at 20 K is 'of order 2e3 cm^-3' (common
     practice); exactly A / k_10(pH2, 20 K) = 7.203e-8 / 3.249e-11 = 2217 cm^-3 from the file
     (Schöier et al. 2005 database; rates Yang et al. 2010), and 9.0e2 cm^-3 at 10 K over all
-    j != u with para-H2 (REFERENCES.md, computed)."""
+    j != u with para-H2 (computed from the file)."""
     nc = critical_density(co, 20 * u.K, ortho_para_ratio=0.0)
     assert nc[0].to_value(CM3) == pytest.approx(7.203e-8 / 3.249e-11, rel=1e-6)
     assert 1e3 < critical_density(co, 20 * u.K)[0].to_value(CM3) < 4e3
@@ -129,7 +129,7 @@ def _leiden_file(path, name, mass, levels, lines, rates, temps):
 
 
 @pytest.mark.parametrize("name, b_cm, a10, k10, k21, k20, shirley", [
-    # B (cm^-1) from REFERENCES.md (B0 44594 and 44316 MHz); A_10 REFERENCES.md; invented
+    # B (cm^-1) from B0 44594 and 44316 MHz (module rotor); A_10 of the built-in rotors; invented
     # rate coefficients of the usual magnitude; Shirley 2015 (PASP 127, 299) table values at
     # 10 K from memory, low confidence: HCO+ 6.8e4, HCN 4.7e5 cm^-3.
     ("HCO+", 1.4875, 4.187e-5, 2.6e-10, 3.4e-10, 1.1e-10, 6.8e4),

@@ -115,7 +115,7 @@ def _uv_sampling(n, pix, seed=3):
 def test_recovery_through_known_uv_coverage_matches_visibility_formula():
     """A Gaussian source of FWHM theta through a known uv sampling S and a round restoring
     beam: per-scale recovery equals sum S |V|^2 |B|^2 / sum |V|^2 |B|^2 over each annulus,
-    V(q) = exp(-(pi theta q)^2 / (4 ln 2)) (analytic visibility of a Gaussian; REFERENCES.md /
+    V(q) = exp(-(pi theta q)^2 / (4 ln 2)) (analytic visibility of a Gaussian;
     TMS ch. 4), within 2 %."""
     theta, fwhm_b = 12.0, 5.0
     beam = Beam(fwhm_b * u.arcsec)
@@ -299,3 +299,25 @@ def test_excess_recovery_is_explained_in_the_notes():
     assert len(notes) == 1 and "1.69 at" in notes[0]
     assert not any(n.startswith("recovered power") for n in assess(_cube(ideal),
                                                                    _cube(ideal)).notes)
+
+
+@pytest.mark.parametrize("use_response", [False, True])
+def test_flux_inside_half_power_circle_ring_geometry(use_response):
+    """The half-power circle of a Gaussian primary beam has radius FWHM / 2 (exp(-4 ln 2 r^2 /
+    FWHM^2) = 1/2 at r = FWHM/2; common practice): a thin ring of flux 1" inside it (r = 19")
+    counts, one 1" outside (r = 21") does not, for a 40" beam around the map centre (the
+    WCS reference pixel, (n - 1)/2). Observed: half the inner ring, no outer ring -> the
+    fraction inside is exactly 1/2 while the total is (A / 2) / (A + B), A, B the ring fluxes
+    counted here; given as the response map (>= 1/2) or as the beam FWHM: 1e-12."""
+    y, x = np.mgrid[:N, :N]
+    r = np.hypot(x - (N - 1) / 2, y - (N - 1) / 2) * PIX
+    inner = ((r > 18.5) & (r <= 19.5)).astype(float)
+    outer = ((r > 20.5) & (r <= 21.5)).astype(float)
+    ideal = PROFILE[:, None, None] * (inner + 2 * outer)
+    obs = PROFILE[:, None, None] * 0.5 * inner
+    kw = (dict(response=np.exp(-4 * np.log(2) * r**2 / 40.0**2)) if use_response
+          else dict(primary_beam=40 * u.arcsec))
+    m = assess(_cube(ideal), _cube(obs), noise=0.01 * u.K, **kw)
+    a, b = inner.sum(), 2 * outer.sum()
+    assert m.flux_fraction == pytest.approx(0.5 * a / (a + b), rel=1e-12)
+    assert m.flux_fraction_pb == pytest.approx(0.5, rel=1e-12)

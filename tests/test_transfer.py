@@ -292,3 +292,68 @@ def test_run_summary_reports_velocity_resolution(tmp_path):
     assert entry["emitting_cells"] == ref["emitting_cells"] == 1000
     assert entry["underresolved_fraction"] == pytest.approx(ref["underresolved_fraction"])
     assert 0.0 < entry["underresolved_emission_fraction"] < 1.0
+
+
+def test_tau_cube_line_centre_of_uniform_lte_slab():
+    """Line-centre optical depth of a uniform static LTE slab, tau_0 = c^2 A_ul N_u
+    (e^{h nu/kT} - 1) phi(nu_0) / (8 pi nu^2), phi(nu_0) = 1 / (sqrt(2 pi) sigma_nu),
+    sigma_nu = nu sigma_v / c (Mangum & Shirley 2015, PASP 127, 266, eq. 29 with a Gaussian
+    profile), sigma_v^2 = kT/m + sigma_turb^2 with m(12C16O) = 27.995 u (from memory). The
+    centre channel (width 0.02 sigma) holds the channel mean of the Gaussian, tau_0 times
+    [Phi(w/2) - Phi(-w/2)] / (w phi(0)) with w in dispersions (scipy ndtr), within 0.5 %."""
+    t, n, x, nz, cell, turb = 20.0, 1e3, 2e-5, 20, 0.01, 0.1
+    snap = uniform((1, 1, nz), n, t, cell_pc=cell, sigma_turb_kms=turb)
+    sigma_v = np.sqrt(K * t / (27.995 * const.u.cgs.value) + (turb * 1e5) ** 2)   # cm/s
+    width = 0.02 * sigma_v / 1e5                                                   # km/s
+    res = synthesize_products(snap, CO10, x, distance=1 * u.kpc,
+                              channel_width=width * u.km / u.s,
+                              velocity_range=(-width / 2, width / 2) * u.km / u.s,
+                              products=("tau",))
+    assert res.tau.shape[0] == 1
+    nu, a = CO10.freq_hz, CO10.a_ul_s
+    n_u = n * x * nz * cell * u.pc.to(u.cm) * boltzmann_upper_fraction(CO10, t)
+    sigma_nu = nu * sigma_v / C
+    tau0 = C**2 * a * n_u * np.expm1(H * nu / (K * t)) / (8 * np.pi * nu**2
+                                                           * np.sqrt(2 * np.pi) * sigma_nu)
+    w = 0.02
+    mean_factor = (ndtr(w / 2) - ndtr(-w / 2)) / (w / np.sqrt(2 * np.pi))
+    assert 0.5 < tau0 < 5.0
+    assert res.tau.unmasked_data[0, 0, 0].value == pytest.approx(tau0 * mean_factor, rel=5e-3)
+
+
+def test_tau_cube_sobolev_plateau():
+    """Uniform LTE medium in a Hubble flow v = K r: on the flat part of the spectrum the total
+    optical depth is the Sobolev value tau_S = (c^3 A / (8 pi nu^3 K)) n_u (e^{h nu/kT} - 1)
+    (Sobolev 1960; Castor 1970, MNRAS 149, 111), here set to 2, within 1 %."""
+    t, cell_pc = 20.0, 0.01
+    dv_cell = 0.05                                              # km/s per cell, < thermal
+    nz = 200
+    vz = dv_cell * (np.arange(nz) - (nz - 1) / 2)
+    grad_s = dv_cell * 1e5 / (cell_pc * u.pc.to(u.cm))
+    nu, a = CO10.freq_hz, CO10.a_ul_s
+    n_u = 2.0 * grad_s / (C**3 * a / (8 * np.pi * nu**3) * np.expm1(H * nu / (K * t)))
+    snap = uniform((1, 1, nz), n_u / boltzmann_upper_fraction(CO10, t) / 1e-4, t,
+                   vz_kms=np.broadcast_to(vz, (1, 1, nz)), cell_pc=cell_pc)
+    res = synthesize_products(snap, CO10, 1e-4, distance=1 * u.kpc,
+                              channel_width=0.05 * u.km / u.s,
+                              velocity_range=(-2, 2) * u.km / u.s, products=("tau",))
+    tau_s = C**3 * a / (8 * np.pi * nu**3 * grad_s) * n_u * np.expm1(H * nu / (K * t))
+    np.testing.assert_allclose(res.tau.unmasked_data[:, 0, 0].value, tau_s, rtol=0.01)
+
+
+def test_column_map_is_the_sum_of_n_dz():
+    """Column density N = X ∫ n(z) dz (definition): a density rising linearly with depth,
+    n(z) = n_0 (1 + z / L), gives X n_0 L 3/2 over a depth L (exact for the cell-midpoint sum
+    of a linear profile), and a map that scales with n_0 across the sky, within 1e-6."""
+    nz, cell_pc, x = 16, 0.02, 1e-8
+    zc = (np.arange(nz) + 0.5) / nz
+    n0 = np.array([[100.0, 300.0], [1000.0, 20.0], [5.0, 7.0]])[:, :, None]   # (x, y)
+    n = n0 * (1 + zc)[None, None, :]
+    snap = synth.Snapshot(n_h2=n * u.cm**-3, t_kin=np.full(n.shape, 15.0) * u.K,
+                          velocity=np.zeros((3,) + n.shape) * u.km / u.s, cell_size=cell_pc * u.pc)
+    res = synthesize_products(snap, CO10, x, distance=1 * u.kpc, channel_width=0.2 * u.km / u.s,
+                              velocity_range=(-1, 1) * u.km / u.s, products=("column",))
+    depth = nz * cell_pc * u.pc.to(u.cm)
+    ref = x * n0[:, :, 0] * depth * 1.5                       # (x, y)
+    assert res.column.unit == u.cm**-2 and res.column.shape == (2, 3)   # (y, x)
+    np.testing.assert_allclose(res.column.value, ref.T, rtol=1e-6)

@@ -18,6 +18,7 @@ from ..excitation.product import EXCITATION_METHODS, Excitation
 from ..parallel import DaskExecutor, SerialExecutor
 from ..snapshot.core import Snapshot
 from ..snapshot.lazy import SnapshotFile
+from ..molecules.hyperfine import with_hyperfine
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
 from ..excitation.gradient import FWHM_PER_SIGMA
 from .kernel import N_SIGMA, transfer_columns
@@ -71,8 +72,10 @@ def excite_snapshot(snapshot, line, abundance, excitation="lte", t_ex=None, opti
     return lvg_excitation(snapshot, line, abundance, **options)
 
 
-def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z"):
-    """(low, high) km/s covering every cell's centroid +- N_SIGMA dispersions.
+def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z", hyperfine=None):
+    """(low, high) km/s covering every cell's centroid +- N_SIGMA dispersions (and, for a
+    line split into hyperfine components, ``hyperfine`` as in :func:`synthesize_products`,
+    every component's offset).
 
     ``snapshot`` is a Snapshot already seen along its line of sight, or a SnapshotFile (read
     slab by slab along ``line_of_sight``).
@@ -87,7 +90,10 @@ def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z"):
     else:
         lo, hi, sig = _extremes(snapshot, line)
     pad = N_SIGMA * sig
-    return (lo + systemic_kms - pad, hi + systemic_kms + pad) * u.km / u.s
+    hfs = with_hyperfine(line, hyperfine)
+    off = (0.0, 0.0) if hfs is None else (min(hfs.offsets_kms), max(hfs.offsets_kms))
+    return (lo + systemic_kms - pad + min(0.0, off[0]),
+            hi + systemic_kms + pad + max(0.0, off[1])) * u.km / u.s
 
 
 def _extremes(snap, line):
@@ -127,6 +133,10 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
         A fixed LTE excitation temperature instead of T_kin.
     excitation_options : dict, optional
         Options of the LVG solver (:func:`synth.excitation.lvg.lvg_excitation`).
+    hyperfine : bool, optional
+        None (default): a line with hyperfine data (HCN 1-0, N2H+ 1-0; see
+        :mod:`synth.molecules.hyperfine`) is split into its components; False: averaged;
+        True: split, and an error for a line without data.
     progress : bool
         Show a progress bar over sky tiles.
 
@@ -149,8 +159,12 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
                         channel_width, velocity_range=None, line_of_sight="z",
                         systemic_velocity=0.0 * u.km / u.s, position=None, t_bg=T_CMB_K * u.K,
                         t_ex=None, excitation_options=None, products=(), progress=False,
-                        memory=None, executor=None):
+                        memory=None, executor=None, hyperfine=None):
     """Like :func:`synthesize`, also returning ``products`` ("tau", "column") and diagnostics.
+
+    ``hyperfine``: None (default) splits a line with hyperfine data
+    (:mod:`synth.molecules.hyperfine`) into its components, False keeps it averaged (one
+    Gaussian per cell), True requires the data (a ConfigError names the key otherwise).
 
     ``snapshot`` may also be a :class:`synth.snapshot.lazy.SnapshotFile` (read tile by tile);
     ``memory`` caps what the stage allocates (bytes or "8GB"; see
@@ -169,9 +183,10 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     else:
         snap = snapshot if line_of_sight == "z" else snapshot.view(line_of_sight)
         shape = snap.shape
+    hfs = with_hyperfine(line, hyperfine)
     if velocity_range is None:
         velocity_range = auto_velocity_range(snapshot if on_disk else snap, line, v_sys,
-                                             line_of_sight=line_of_sight)
+                                             line_of_sight=line_of_sight, hyperfine=hyperfine)
     grid = channel_grid(channel_width, velocity_range)
     exc = None
     if excitation != "lte" or excitation_options:
@@ -183,10 +198,11 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     n_cubes = 1 + ("tau" in products)
     plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
                       in_flight=getattr(executor or SerialExecutor(), "in_flight", 1),
-                      extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes)
+                      extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes,
+                      extra_per_cell=0 if hfs is None else 24 * len(hfs.fractions))
     job = _Job(line, float(abundance), t_ex, grid, v_sys,
                float(radiation_temperature(line.freq_hz, t_bg_k)), "tau" in products,
-               "column" in products, line_of_sight if on_disk else "z")
+               "column" in products, line_of_sight if on_disk else "z", hfs)
     executor = executor or SerialExecutor()
     with _worker_source(snapshot if on_disk else snap, exc, executor) as source:
         data, tau, col, counts = _integrate(source, exc, plan, job, executor, progress)
@@ -194,7 +210,7 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     cell_cm = snapshot.block(0, 1, line_of_sight).cell_size_cm if on_disk else snap.cell_size_cm
     pixel_deg = np.degrees(cell_cm / dist_cm)
     wcs = sky_wcs(nx, ny, pixel_deg, grid, line.freq_hz, position)
-    meta = {"BUNIT": "K", "LINE": str(line), "EXCIT": excitation,
+    meta = {"BUNIT": "K", "LINE": str(line), "EXCIT": excitation, "HYPERFIN": hfs is not None,
             "ABUND": float(abundance), "DISTPC": dist_cm / u.pc.to(u.cm),
             "LOS": str(line_of_sight), "TBG": t_bg_k}
     cube = _cube(data, wcs, meta, "K")
@@ -243,6 +259,7 @@ class _Job:
     want_tau: bool
     want_column: bool
     line_of_sight: str
+    hyperfine: object = None
 
     def __call__(self, source, x0, x1, exc_block, numba_threads=None):
         if numba_threads:  # one thread per dask worker process (threads_per_worker=1)
@@ -255,7 +272,7 @@ class _Job:
             exc_block = lte_excitation(block, self.line, self.abundance, t_ex=self.t_ex)
         out, tau, counts = transfer_tile(block, self.line, exc_block, slice(0, x1 - x0),
                                          self.grid, self.v_sys_kms, self.j_bg, self.want_tau,
-                                         want_resolution=True)
+                                         want_resolution=True, hyperfine=self.hyperfine)
         col = None
         if self.want_column:
             x_ab = block.abundance_for(self.line.species, self.abundance)
@@ -345,11 +362,16 @@ def _integrate(source, exc, plan, job, executor, progress):
 
 
 def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=False,
-                  want_resolution=False):
+                  want_resolution=False, hyperfine=None):
     """The block-level kernel: columns x in ``x_slice`` (all y, z) -> (ncol, nch) spectra.
 
     Returns (spectra, tau or None), and with ``want_resolution`` also the
-    :func:`resolution_counts` of the block."""
+    :func:`resolution_counts` of the block. ``hyperfine`` (a
+    :class:`synth.molecules.hyperfine.HyperfineComponents` or None) splits each cell's
+    opacity into the components, shifted in velocity, sharing the cell's source function:
+    each cell becomes consecutive layers, one per component, with opacity s_k tau_int. As the
+    layers share S, the formal solution through them, I e^{-sum tau_k} + S (1 - e^{-sum
+    tau_k}), is exactly that of the cell with the summed profile."""
     nx, ny, nz = snap.shape
     n = x_slice.stop - x_slice.start
     shape = (n * ny, nz)
@@ -365,16 +387,29 @@ def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=Fals
                     + np.square(sig_turb)) * 1e-5
     out = np.empty((n * ny, grid.n), dtype=np.float32)
     tau_out = np.empty((n * ny, grid.n) if want_tau else (0, 0), dtype=np.float32)
-    transfer_columns(tau_int.reshape(shape), src, v0,
-                     sigma.astype(np.float32).reshape(shape),
-                     delta.astype(np.float32).reshape(shape),
-                     float(grid.start_kms), float(grid.width_kms), int(grid.n), j_bg,
+    cols = (tau_int.reshape(shape), src, v0, sigma.astype(np.float32).reshape(shape),
+            delta.astype(np.float32).reshape(shape))
+    if hyperfine is not None:
+        cols = _split_components(*cols, hyperfine)
+    transfer_columns(*cols, float(grid.start_kms), float(grid.width_kms), int(grid.n), j_bg,
                      out, tau_out)
     if want_resolution:
         counts = resolution_counts(tau_int.reshape(shape), src, delta.reshape(shape),
                                    sigma.reshape(shape), j_bg)
         return out, (tau_out if want_tau else None), counts
     return out, (tau_out if want_tau else None)
+
+
+def _split_components(tau_int, src, v0, sigma, delta, hyperfine):
+    """(ncol, nz) cell arrays -> (ncol, nz m): each cell followed by its m components."""
+    m = len(hyperfine.fractions)
+    frac = np.asarray(hyperfine.fractions, dtype=np.float32)
+    off = np.asarray(hyperfine.offsets_kms, dtype=np.float32)
+    ncol, nz = tau_int.shape
+    tau = (tau_int[:, :, None] * frac).reshape(ncol, nz * m)
+    vel = (v0[:, :, None] + off).reshape(ncol, nz * m)
+    return (np.ascontiguousarray(tau), np.repeat(src, m, axis=1), np.ascontiguousarray(vel),
+            np.repeat(sigma, m, axis=1), np.repeat(delta, m, axis=1))
 
 
 def resolution_counts(tau_int, src, delta, sigma, j_bg):

@@ -59,11 +59,12 @@ class TilePlan:
         return self.fixed_bytes + self.tile_bytes
 
 
-def _row_bytes(ny, nz, n_channels, n_cubes):
-    return ny * nz * BYTES_PER_CELL + ny * n_channels * 4 * (n_cubes + 1)
+def _row_bytes(ny, nz, n_channels, n_cubes, extra_per_cell=0):
+    return ny * nz * (BYTES_PER_CELL + int(extra_per_cell)) + ny * n_channels * 4 * (n_cubes + 1)
 
 
-def plan_tiles(shape, n_channels, memory=None, n_cubes=2, in_flight=1, extra_fixed=0):
+def plan_tiles(shape, n_channels, memory=None, n_cubes=2, in_flight=1, extra_fixed=0,
+               extra_per_cell=0):
     """Choose the tile size.
 
     Parameters
@@ -74,10 +75,13 @@ def plan_tiles(shape, n_channels, memory=None, n_cubes=2, in_flight=1, extra_fix
         Budget in bytes for everything the stage allocates: the ``n_cubes`` output cubes
         (float32), ``extra_fixed`` bytes (e.g. a full-grid LVG excitation), and ``in_flight``
         tiles at once (one per worker). Without a budget, tiles of ~1 M cells.
+    extra_per_cell : int
+        Bytes per cell held beyond BYTES_PER_CELL (a line split into m hyperfine components
+        holds its kernel inputs m times).
     """
     nx, ny, nz = shape
     fixed = n_cubes * n_channels * ny * nx * 4 + int(extra_fixed)
-    row = _row_bytes(ny, nz, n_channels, n_cubes)
+    row = _row_bytes(ny, nz, n_channels, n_cubes, extra_per_cell)
     if memory is None:
         rows = max(1, min(nx, DEFAULT_TILE_CELLS // max(1, ny * nz)))
         return TilePlan(tuple(shape), n_channels, rows, fixed, rows * row * in_flight)
