@@ -168,7 +168,8 @@ def test_cli_bad_input_exit_2_one_line(tmp_path, capsys):
 
 
 def test_cli_lines_lists_co(capsys):
-    """`synth lines CO` prints CO 1-0 at 115.2712 GHz (Leiden-format CO file, REFERENCES.md)."""
+    """`synth lines CO` prints CO 1-0 at 115.2712 GHz (Leiden-format CO file,
+    Schöier et al. 2005)."""
     assert cli.main(["lines", "CO"]) == 0
     out = capsys.readouterr().out
     assert "115.27" in out and "1-0" in out

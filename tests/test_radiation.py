@@ -27,7 +27,7 @@ def test_constants_are_astropy_codata():
 
 def test_radiation_temperature_reference_values():
     """J(T) for CO 1-0: J(2.725 K) = 0.83628 K, J(10 K) = 7.48767 K, J(20 K) = 17.36128 K
-    (REFERENCES.md, computed from J = (h nu/k)/(e^{h nu/kT} - 1), Mangum & Shirley 2015 eq. 24)."""
+    (computed from J = (h nu/k)/(e^{h nu/kT} - 1), Mangum & Shirley 2015 eq. 24)."""
     nu = 115.2712018e9
     got = radiation_temperature(nu, np.array([2.725, 10.0, 20.0]))
     np.testing.assert_allclose(got, [0.83628, 7.48767, 17.36128], rtol=2e-5)

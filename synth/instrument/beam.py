@@ -5,7 +5,7 @@ A single dish's main beam is modelled as an elliptical Gaussian (radio-beam's ``
 a diameter D at wavelength lambda its FWHM is ``taper * lambda / D``: 1.02 for a uniformly
 illuminated circular aperture, about 1.13 for the edge taper of typical radio telescopes, up
 to ~1.2 for strong tapers (Goldsmith 1998, Quasioptical Systems, ch. 6; Wilson, Rohlfs &
-Hüttemeister 2013, sect. 6.1, from memory; see REFERENCES.md).
+Hüttemeister 2013, sect. 6.1, from memory; see docs/references.md).
 
 The beam solid angle of a Gaussian is Omega = pi theta_maj theta_min / (4 ln 2) (radio-beam's
 ``Beam.sr``). Brightness temperature and flux density per beam are related by the
