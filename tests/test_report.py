@@ -256,7 +256,9 @@ def test_report_renders_in_chromium(small_run, tmp_path):
     n_img = int(re.search(r'data-images="(\d+)"', body.group(0)).group(1))
     n_ok = int(re.search(r'data-loaded="(\d+)"', body.group(0)).group(1))
     n_png = sum(p.endswith(".png") for p in os.listdir(out))
-    assert n_img == n_ok == n_png == 15
+    # per tracer: mom0, spectra, recovery; per tracer x setup: moments, spectra; uv of the
+    # array; a layout per setup: 2 x 3 + 2 x 2 x 2 + 1 + 2
+    assert n_img == n_ok == n_png == 17
     shot = tmp_path / "shot.png"
     with tempfile.TemporaryDirectory() as prof:
         _chromium(["--window-size=1200,1800", f"--screenshot={shot}",
