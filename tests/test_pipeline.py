@@ -84,7 +84,7 @@ def test_run_config_writes_products(conf_file, tmp_path):
 
 
 def test_same_config_same_bytes(conf_file, tmp_path):
-    """Same config, same bytes (DESIGN.md, randomness)."""
+    """Same config, same bytes (DEVELOPERS.md: every random draw takes a seed)."""
     synth.run_config(str(conf_file), str(tmp_path / "a"), progress=False)
     synth.run_config(str(conf_file), str(tmp_path / "b"), progress=False)
     a = fits.getdata(tmp_path / "a" / "13CO_1-0_ideal.fits")

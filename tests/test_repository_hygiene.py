@@ -9,12 +9,14 @@ Rule (DEVELOPERS.md, "Conventions worth repeating"): no tracked file may contain
   ``/dev/null``, ``/usr/bin/...``, ``/usr/bin/env``) are allowed; so are URLs (a path after
   ``://`` or after a host name is not a path of this machine) and units such as ``km/s``;
 - a reference to a file outside the repository: a relative path that climbs into a sibling
-  folder (``../shared``) or the name of the check-value notes that were never part of the
-  repository (their content is ``docs/references.md``).
+  folder (``../shared``), or a Markdown file named in text (``NOTES.md``) that is not a tracked
+  file of the repository (the check-value notes once cited that way are now
+  ``docs/references.md``).
 
 Tests write to pytest's ``tmp_path``, never to a fixed folder, so they need no exception.
 """
 
+import os
 import re
 import subprocess
 from pathlib import Path
@@ -85,6 +87,26 @@ def test_no_tracked_file_points_outside_the_repository():
         if found:
             bad[name] = sorted(set(found))
     assert not bad, f"paths or references outside the repository: {bad}"
+
+
+MD_NAME = re.compile(r"[\w./-]*\b\w+\.md\b")
+
+
+def test_markdown_files_named_in_text_exist():
+    """Every ``*.md`` named in a tracked text file is a tracked file (matched by its name,
+    since docs name each other relative to their own folder)."""
+    tracked = _tracked_files()
+    names = {os.path.basename(n) for n in tracked if n.endswith(".md")}
+    bad = {}
+    for name in tracked:
+        path = ROOT / name
+        if name in PENDING or name == SELF or not path.is_file():
+            continue
+        text = path.read_bytes().decode("latin-1")
+        missing = {m for m in MD_NAME.findall(text) if os.path.basename(m) not in names}
+        if missing:
+            bad[name] = sorted(missing)
+    assert not bad, f"Markdown files named but not in the repository: {bad}"
 
 
 def test_pending_files_still_exist():
