@@ -113,3 +113,21 @@ def test_pending_files_still_exist():
     """An exception for a file that is gone is stale: drop it from PENDING."""
     tracked = set(_tracked_files())
     assert PENDING <= tracked, sorted(PENDING - tracked)
+
+
+def test_plain_install_covers_the_readme_examples():
+    """`pip install .` (core dependencies) brings what the README's examples use: --workers
+    needs distributed, `synth compare` reproject; every optional module names an extra that
+    exists, or is a core dependency."""
+    import tomllib
+    from synth._optional import OPTIONAL
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]
+    core = {re.split(r"[<>=\[ ]", d, maxsplit=1)[0] for d in project["dependencies"]}
+    readme = (ROOT / "README.md").read_text()
+    assert "--workers" in readme and "synth compare" in readme
+    assert {"distributed", "reproject"} <= core
+    for module, (extra, _) in OPTIONAL.items():
+        if extra is None:
+            assert module in core, module
+        else:
+            assert extra in project["optional-dependencies"], (module, extra)
