@@ -193,7 +193,7 @@ def test_compare_cli_matches_compare(two_cubes, tmp_path, capsys):
     printed = {}
     for line in text.splitlines():
         cells = line.split()
-        if len(cells) == 4 and cells[0] in ref.stats["obs"].as_dict():
+        if len(cells) >= 4 and cells[0] in ref.stats["obs"].as_dict():
             printed[cells[0]] = [float(c) if c != "-" else np.nan for c in cells[1:3]]
     stats = {n: ref.stats[n].as_dict() for n in ("obs", "model")}
     assert set(printed) == set(stats["obs"])

@@ -53,17 +53,65 @@ def comparison_json(comparison):
                       for n in comparison.names}}
 
 
+def statistic_units(stats):
+    """Unit of each statistic of :meth:`StructureStats.as_dict` as text ("none" for a pure
+    number: slopes, log-normal parameters, skewness, kurtosis): moment-map means and widths carry the map's unit, shape statistics none."""
+    mom = stats.moments
+    units = {"mom0": mom.mom0.unit, "mom1": mom.mom1.unit, "mom2": mom.mom2.unit}
+    out = {}
+    for key in stats.as_dict():
+        name, _, what = key.partition("_")
+        if key == "flux":
+            out[key] = f"{_unit_text(mom.mom0.unit)} pixel"   # the moment-0 map summed
+        elif name in units and what in ("mean", "std"):
+            out[key] = _unit_text(units[name])
+        else:
+            out[key] = "none"
+    return out
+
+
+def _unit_text(unit):
+    text = unit.to_string()
+    return {"K km / s": "K km/s", "km / s": "km/s", "km2 / s2": "(km/s)^2",
+            "Jy km / (beam s)": "Jy/beam km/s"}.get(text, text)
+
+
+#: why a value can be missing ("-" in the table), per statistic
+_MISSING = {
+    "slope": "slope not fitted: the matched map is too small for a scale range (scales from "
+             "max(3 pixels, 2 beams) to a third of the map; docs/analysis.md)",
+    "moment": "fewer than 4 finite pixels in that moment map",
+    "ratio": "ratio undefined: the first cube's value is 0 or missing",
+}
+
+
 def comparison_text(comparison):
-    """The matching steps and the side-by-side statistics table, as terminal text."""
+    """The matching steps and the side-by-side statistics table (with units), as terminal
+    text; every "-" in it is explained under the table."""
     a, b = comparison.names
     t = comparison.table()
-    rows = [(str(r["statistic"]), _g(r[a]), _g(r[b]), _g(r["ratio"])) for r in t]
-    head = ("statistic", a, b, f"{b} / {a}")
-    widths = [max(len(head[i]), *(len(r[i]) for r in rows)) for i in range(4)]
-    fmt = "{:<%d}  {:>%d}  {:>%d}  {:>%d}" % tuple(widths)
+    units = statistic_units(comparison.stats[a])
+    rows = [(str(r["statistic"]), _g(r[a]), _g(r[b]), _g(r["ratio"]),
+             units.get(str(r["statistic"]), "")) for r in t]
+    head = ("statistic", a, b, f"{b} / {a}", "unit")
+    widths = [max(len(head[i]), *(len(r[i]) for r in rows)) for i in range(5)]
+    fmt = "{:<%d}  {:>%d}  {:>%d}  {:>%d}  {:<%d}" % tuple(widths)
     lines = ["matching steps:"] + [f"  {i + 1}. {s}" for i, s in enumerate(comparison.steps)]
-    lines += ["", fmt.format(*head), fmt.format(*("-" * w for w in widths))]
-    return "\n".join(lines + [fmt.format(*r) for r in rows])
+    lines += ["", fmt.format(*head).rstrip(), fmt.format(*("-" * w for w in widths))]
+    lines += [fmt.format(*r).rstrip() for r in rows]
+    notes = []
+    for stat, va, vb, ratio, _ in rows:
+        if "-" in (va, vb):
+            why = _MISSING["slope" if stat.startswith("slope") else "moment"]
+        elif ratio == "-":
+            why = _MISSING["ratio"]
+        else:
+            continue
+        if why not in notes:
+            notes.append(why)
+    if notes:
+        lines += [""] + [f"-: {n}" for n in notes]
+    return "\n".join(lines)
 
 
 def _g(v):
