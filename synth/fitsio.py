@@ -177,7 +177,7 @@ def write_json(obj, path):
 
 
 def write_text(text, path):
-    with atomic_path(path) as tmp, open(tmp, "w") as fh:
+    with atomic_path(path) as tmp, open(tmp, "w", encoding="utf-8") as fh:
         fh.write(text)
     return path
 

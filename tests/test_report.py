@@ -295,3 +295,25 @@ def test_plan_csv_has_one_unit_per_column(small_run):
 def test_duration_text(seconds, text):
     from synth.planning import duration_text
     assert duration_text(seconds) == text
+
+
+@pytest.mark.parametrize("raw, typeset", [
+    ("HCO+ 1-0", "HCO⁺ 1–0"), ("13CO 1-0", "¹³CO 1–0"), ("C18O 2-1", "C¹⁸O 2–1"),
+    ("N2H+ 1-0", "N₂H⁺ 1–0"), ("H13CO+ 1-0", "H¹³CO⁺ 1–0"), ("CS 2-1", "CS 2–1"),
+    ("cube line", "cube line")])
+def test_typeset_line(raw, typeset):
+    """Mass numbers up, atom counts down, charge up, an en dash between the levels."""
+    from synth.report.html import typeset_line
+    assert typeset_line(raw) == typeset
+
+
+def test_report_headings_show_the_typeset_line(small_run):
+    """Section headings name the line as typeset (HCO⁺ 1–0), not the file-safe tracer name
+    (HCOp_1-0); the file names keep the file-safe form."""
+    out, _ = small_run
+    page = (out / "report.html").read_text(encoding="utf-8")
+    heads = re.findall(r"<h[34]>(.*?)</h[34]>", page)
+    assert "HCO⁺ 1–0" in heads and "¹³CO 1–0" in heads
+    assert "HCO⁺ 1–0 with array" in heads
+    assert not [h for h in heads if "HCOp" in h or "_1-0" in h]
+    assert (out / "HCOp_1-0_ideal.fits").exists()
