@@ -54,8 +54,9 @@ def comparison_json(comparison):
 
 
 def statistic_units(stats):
-    """Unit of each statistic of :meth:`StructureStats.as_dict` as text ("none" for a pure
-    number: slopes, log-normal parameters, skewness, kurtosis): moment-map means and widths carry the map's unit, shape statistics none."""
+    """Unit of each statistic of :meth:`StructureStats.as_dict` as text: moment-map means
+    and widths carry the map's unit; slopes, log-normal parameters, skewness and kurtosis are
+    pure numbers ("none")."""
     mom = stats.moments
     units = {"mom0": mom.mom0.unit, "mom1": mom.mom1.unit, "mom2": mom.mom2.unit}
     out = {}
@@ -126,12 +127,18 @@ def _moment0_figure(comparison):
     axes = fig.subplots(1, 2)
     maps = {n: comparison.stats[n].moments.mom0 for n in comparison.names}
     top = max(float(np.nanmax(m.value)) for m in maps.values())
+    from ..analysis.matching import pixel_scale_arcsec
+    from ..analysis.plots import _beam_ellipse, _extent, _unit_label
     for ax, (name, m) in zip(axes, maps.items()):
-        im = ax.imshow(m.value, origin="lower", cmap="viridis", vmin=0, vmax=top)
+        extent = _extent(m.shape, float(pixel_scale_arcsec(comparison.matched[name])))
+        im = ax.imshow(m.value, origin="lower", cmap="viridis", vmin=0, vmax=top,
+                       extent=extent, interpolation="nearest")
         ax.set_title(f"{name}: moment 0 (matched)", fontsize=9)
-        ax.set_xticks([])
-        ax.set_yticks([])
-        fig.colorbar(im, ax=ax, shrink=0.8, label=m.unit.to_string())
+        ax.set_xlabel("RA offset (arcsec)", fontsize=8)
+        ax.set_ylabel("Dec offset (arcsec)", fontsize=8)
+        if comparison.beam is not None:
+            _beam_ellipse(ax, comparison.beam, extent, "white")
+        fig.colorbar(im, ax=ax, shrink=0.8, label=_unit_label(m.unit))
     return fig
 
 

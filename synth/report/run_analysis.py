@@ -112,6 +112,7 @@ def _ideal_spectra_figure(cube, positions, title):
     for ax, (x, y) in zip(axes, positions):
         ax.step(v, cube.unmasked_data[:, y, x].value, where="mid", label="ideal (K)")
         ax.set_title(f"pixel ({x}, {y})", fontsize=9)
+        ax.set_ylabel("T_B (K)", fontsize=8)
         ax.legend(fontsize=7)
     axes[-1].set_xlabel("radio velocity (km/s)")
     fig.suptitle(title, fontsize=10)
@@ -141,12 +142,17 @@ def _reference_as_cube(ideal, observed):
 def _observation_figures(tname, sname, ideal, obs, m, positions, tmp):
     from ..analysis.plots import moment_figure, spectra_figure
     base = run_path(tmp, f"{tname}_{sname}")
-    out = {"moments": _save(moment_figure(m, title=f"{tname} with {sname}"),
+    from .html import typeset_line
+    line = typeset_line(ideal.meta.get("LINE") or ideal.meta.get("line") or tname)
+    out = {"moments": _save(moment_figure(m, title=f"{line} with {sname}", observed=obs),
                             f"{base}_moments.png")}
     ref = _reference_as_cube(ideal, obs).with_spectral_unit(u.km / u.s,
                                                             velocity_convention="radio")
     obs_v = obs.with_spectral_unit(u.km / u.s, velocity_convention="radio")
-    out["spectra"] = _save(spectra_figure(ref, obs_v, positions), f"{base}_spectra.png")
+    out["spectra"] = _save(spectra_figure(ref, obs_v, positions,
+                                          title=f"{line} with {sname}: spectra, "
+                                                "reference and observed"),
+                           f"{base}_spectra.png")
     if os.path.exists(f"{base}_mom0.png"):
         out["mom0"] = os.path.basename(f"{base}_mom0.png")
     return out
