@@ -48,8 +48,8 @@ SKY = {
     "background_k": (_NUM, 2.725, "background temperature, K (the CMB); also the field LVG populations see"),
     "beyond_box": (str, "empty", 'sky outside the model box: "empty" (an isolated cloud) or '
                    '"repeat" (a periodic simulation box tiles the sky)'),
-    "object": (str, None, 'name in the OBJECT card of every FITS file (default: "demo cloud", '
-               "or the snapshot file's name without its extension)"),
+    "object": (str, None, ('name in the OBJECT card of every FITS file (default: "demo cloud", '
+                           "or the snapshot file's name without its extension)")),
 }
 CHANNELS = {
     "width_kms": (_NUM, REQUIRED, "channel width of the ideal cube, km/s"),
