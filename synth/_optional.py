@@ -10,11 +10,12 @@ from .errors import MissingDependencyError
 
 __all__ = ["OPTIONAL", "require", "available"]
 
-#: module name -> (pip extra that installs it, what it is used for)
+#: module name -> (pip extra that installs it, what it is used for); None: a core dependency
+#: (``pip install synth`` installs it; the message still says how to get it back)
 OPTIONAL = {
     "yt": ("yt", "reading simulation snapshots through yt"),
-    "distributed": ("cluster", "running on a dask.distributed cluster"),
-    "reproject": ("compare", "regridding one cube onto another in `synth compare`"),
+    "distributed": (None, "running on a dask.distributed cluster"),
+    "reproject": (None, "regridding one cube onto another in `synth compare`"),
     "zarr": ("zarr", "reading snapshots stored as zarr"),
 }
 

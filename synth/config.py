@@ -17,7 +17,8 @@ import warnings
 from .errors import ConfigError, SynthWarning
 from .rundir import check_name
 
-__all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS", "REMOVED_KEYS"]
+__all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS", "REMOVED_KEYS",
+           "object_name"]
 
 # key -> (types, default, description); default None = optional, REQUIRED = must be given
 REQUIRED = object()
@@ -47,6 +48,8 @@ SKY = {
     "background_k": (_NUM, 2.725, "background temperature, K (the CMB); also the field LVG populations see"),
     "beyond_box": (str, "empty", 'sky outside the model box: "empty" (an isolated cloud) or '
                    '"repeat" (a periodic simulation box tiles the sky)'),
+    "object": (str, None, ('name in the OBJECT card of every FITS file (default: "demo cloud", '
+                           "or the snapshot file's name without its extension)")),
 }
 CHANNELS = {
     "width_kms": (_NUM, REQUIRED, "channel width of the ideal cube, km/s"),
@@ -399,6 +402,18 @@ def _check_analysis(an):
                 and all(isinstance(v, int) and not isinstance(v, bool) for v in pos)):
             raise ConfigError(f"[analysis].spectra_positions has {pos!r}; give pixel pairs "
                               "[x, y] of integers, e.g. [[10, 12], [30, 5]]")
+
+
+def object_name(conf):
+    """The OBJECT card of a run's FITS files: ``[sky] object``, else "demo cloud" for the demo,
+    else the snapshot file's name without folder and extension."""
+    name = conf["sky"].get("object")
+    if name:
+        return name
+    src = conf["cloud"]["source"]
+    if src == "demo":
+        return "demo cloud"
+    return os.path.splitext(os.path.basename(os.path.normpath(src)))[0] or "model cloud"
 
 
 def load_config(path):

@@ -3,6 +3,17 @@
 Every file is written to a temporary name in the destination folder and renamed into place,
 so an interrupted run leaves no half-written file. Every FITS header records the package
 version (``SYNTHVER``) and the hash of the configuration that made it (``CONFHASH``).
+
+Header conventions (every cube and map a run writes; docs/guide.md, "FITS headers"):
+
+- the spectral axis is radio velocity (VRAD) in SI units, ``CUNIT3 = 'm s-1'`` (the FITS
+  standard's unit; Greisen et al. 2006, A&A 446, 747), whatever unit the cube had in memory;
+- ``BTYPE`` says what the values are: ``Intensity`` (K or Jy/beam), ``Optical depth``,
+  ``Column density`` or ``Noise``; ``BUNIT`` their unit; ``NOISERMS`` is in ``BUNIT``;
+- the beam is in ``BMAJ``/``BMIN``/``BPA`` (deg) only; FITS logicals are T/F, counts and
+  seeds are integers;
+- ``ORIGIN = 'synth'``; ``OBJECT``, ``TELESCOP``, ``LINE``, ``EXCIT``, ``ABUND`` come from the
+  caller (``extra``).
 """
 
 import hashlib
@@ -50,6 +61,7 @@ def atomic_path(path):
 
 
 def _provenance(header, conf_hash, extra):
+    header["ORIGIN"] = ("synth", "program that wrote this file")
     header["SYNTHVER"] = (__version__, "synth version that wrote this file")
     if conf_hash:
         header["CONFHASH"] = (conf_hash, "sha256[:16] of the run configuration")
@@ -66,7 +78,68 @@ def _provenance(header, conf_hash, extra):
     for key in _LOGICAL_CARDS:   # ... and the FITS logicals
         if key in header and isinstance(header[key], str) and header[key] in ("True", "False"):
             header[key] = header[key] == "True"
+    _standard_cards(header)
     return header
+
+
+#: BTYPE by the unit of the values, where the caller gave none
+_BTYPE_BY_UNIT = (("K", "Intensity"), ("Jy/beam", "Intensity"), ("cm-2", "Column density"))
+
+#: Cards whose value is a length of velocity in km/s (given in the comment)
+_KMS_CARDS = {"CHANWID": "[km/s] channel width"}
+
+
+def _standard_cards(header):
+    """One convention for every file: SI spectral axis, BTYPE, the beam only as BMAJ/BMIN/BPA,
+    no leftover comments of in-memory unit changes, NOISERMS in BUNIT."""
+    from astropy import units as u
+    for key in ("BEAM",):                       # the beam is BMAJ/BMIN/BPA only
+        while key in header:
+            del header[key]
+    if "COMMENT" in header:                     # spectral-cube's "Original Unit=..." notes
+        keep = [c for c in header["COMMENT"] if not str(c).startswith("Original ")]
+        del header["COMMENT"]
+        for c in keep:
+            header["COMMENT"] = c
+    naxis = header.get("NAXIS", 0)
+    for i in range(1, naxis + 1):
+        unit = header.get(f"CUNIT{i}")
+        if not unit:
+            continue
+        try:
+            parsed = u.Unit(unit)
+        except ValueError:
+            continue
+        if parsed.is_equivalent(u.m / u.s):
+            scale = parsed.to(u.m / u.s)
+            for key in (f"CDELT{i}", f"CRVAL{i}", f"CD{i}_{i}"):
+                if key in header and scale != 1.0:
+                    header[key] = header[key] * scale
+            header[f"CUNIT{i}"] = ("m s-1", "Units of coordinate increment and value")
+            for key, what in ((f"CDELT{i}", "increment"), (f"CRVAL{i}", "value at CRPIX")):
+                if key in header:
+                    header.comments[key] = f"[m s-1] radio velocity {what}"
+    bunit = str(header.get("BUNIT", "")).strip()
+    if "BTYPE" not in header and bunit:
+        try:
+            parsed = u.Unit(bunit)
+        except ValueError:
+            parsed = None
+        for name, btype in _BTYPE_BY_UNIT:
+            if parsed is not None and parsed == u.Unit(name):
+                header["BTYPE"] = btype
+    for key, comment in _KMS_CARDS.items():
+        if key in header:
+            header.comments[key] = comment
+    if "NOISERMS" in header and "NOISEUNI" in header and bunit:
+        try:
+            same = u.Unit(str(header["NOISEUNI"])) == u.Unit(bunit)
+        except ValueError:
+            same = False
+        if not same:
+            raise OutputError(f"NOISERMS is in {header['NOISEUNI']} but the data in {bunit}; "
+                              "convert the cube with synth.instrument.beam.to_unit")
+        header.comments["NOISERMS"] = "rms noise per channel, in BUNIT"
 
 
 #: Header cards written by the instrument stages that hold numbers, integers, logicals.
@@ -104,7 +177,7 @@ def write_json(obj, path):
 
 
 def write_text(text, path):
-    with atomic_path(path) as tmp, open(tmp, "w") as fh:
+    with atomic_path(path) as tmp, open(tmp, "w", encoding="utf-8") as fh:
         fh.write(text)
     return path
 

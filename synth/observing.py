@@ -12,6 +12,7 @@ import numpy as np
 import astropy.units as u
 
 from .errors import ConfigError
+from .config import object_name
 from .fitsio import write_cube
 from .rundir import run_path
 
@@ -185,7 +186,8 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
                 kw["dish_options"] = _dish_options(setups[dish[0]])
         omap = observe(cube, inst, with_maps=True, **kw)
         _write_observation(omap, run_path(tmp, f"{tname}_{sname}"), chash,
-                           {"SETUP": sname, "TRACER": tname})
+                           dict(_model_cards(cube), OBJECT=object_name(conf), TELESCOP=sname,
+                                SETUP=sname, TRACER=tname))
         entry = _obs_summary(omap.cube)
         entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
                      pixel_arcsec=float(abs(omap.cube.wcs.wcs.cdelt[0]) * 3600),
@@ -196,6 +198,16 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
         _uv_figures(setups, instruments, ideal, tmp)
         _layout_figures(setups, observed, tmp)
     return summary, observed
+
+
+#: cards of the ideal cube that every observation of it repeats (the line, its excitation
+#: and abundance, the geometry)
+MODEL_CARDS = ("LINE", "EXCIT", "ABUND", "DISTPC", "LOS", "TBG")
+
+
+def _model_cards(cube):
+    meta = {str(k).upper(): v for k, v in cube.meta.items()}
+    return {k: meta[k] for k in MODEL_CARDS if k in meta}
 
 
 def _write_observation(omap, base, chash, extra):
@@ -212,8 +224,8 @@ def _write_observation(omap, base, chash, extra):
         flat = to_unit(omap.uncorrected, "Jy/beam")
         write_cube(flat, f"{base}_flat_jyb.fits", chash, extra)
         hdr = obs.wcs.celestial.to_header()
-        hdr["BUNIT"] = omap.sensitivity.unit.to_string()
-        hdr["BTYPE"] = "noise"
+        hdr["BUNIT"] = omap.sensitivity.unit.to_string("fits")
+        hdr["BTYPE"] = "Noise"
         hdr["COMMENT"] = "theoretical noise per channel of the corrected map (middle channel)"
         write_image(np.where(np.isfinite(omap.sensitivity.value), omap.sensitivity.value,
                              np.nan), hdr, f"{base}_sensitivity.fits", chash, extra)

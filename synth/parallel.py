@@ -1,6 +1,6 @@
 """Where tile jobs run: in this process, or as dask tasks on a dask.distributed cluster.
 
-One block-level job function is mapped either way (STYLE.md, item 10), so the serial, chunked
+One block-level job function is mapped either way (DEVELOPERS.md, "Adding a stage"), so the serial, chunked
 and cluster paths give the same cubes. A lost worker's tasks are re-run by the scheduler
 (dask.distributed reschedules the tasks of a worker that dies, up to
 ``distributed.scheduler.allowed-failures`` times); a task that still fails stops the run with

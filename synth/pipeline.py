@@ -251,14 +251,19 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
 def _write_tracer(tmp, tr, line, res, conf, chash):
     name = tr["name"]
     cube = res.cube
-    extra = {"LINE": str(line), "EXCIT": tr["excitation"], "ABUND": tr["abundance"]}
-    write_cube(cube, run_path(tmp, f"{name}_ideal.fits"), chash, extra)
+    from .config import object_name
+    extra = {"OBJECT": object_name(conf), "LINE": str(line), "EXCIT": tr["excitation"],
+             "ABUND": tr["abundance"]}
+    write_cube(cube, run_path(tmp, f"{name}_ideal.fits"), chash,
+               dict(extra, BTYPE="Intensity"))
     if "tau" in conf["output"]["products"]:
-        write_cube(res.tau, run_path(tmp, f"{name}_tau.fits"), chash, extra)
+        write_cube(res.tau, run_path(tmp, f"{name}_tau.fits"), chash,
+                   dict(extra, BTYPE="Optical depth"))
     if res.column is not None:
         hdr = cube.wcs.celestial.to_header()
         hdr["BUNIT"] = "cm-2"
-        write_image(res.column.value, hdr, run_path(tmp, f"{name}_column.fits"), chash, extra)
+        write_image(res.column.value, hdr, run_path(tmp, f"{name}_column.fits"), chash,
+                    dict(extra, BTYPE="Column density"))
     data = cube.unmasked_data[:].value
     dv = abs(cube.spectral_axis[1] - cube.spectral_axis[0]).to_value(u.km / u.s)
     mom0 = data.sum(axis=0) * dv

@@ -16,7 +16,8 @@ import astropy.units as u
 from .errors import InstrumentError
 from .sky import C_KMS
 
-__all__ = ["Plan", "plan", "plan_rows", "plan_table", "hex_pointings", "DISCLAIMER"]
+__all__ = ["Plan", "plan", "plan_rows", "plan_table", "hex_pointings", "duration_text",
+           "DISCLAIMER"]
 
 #: printed with every planning table
 DISCLAIMER = ("Estimates only: the observatory's own official tools and policies decide a "
@@ -48,7 +49,10 @@ class Plan:
     layout: object = None          # the MapLayout (pointings) observe makes, or None
 
     def as_row(self):
-        """Plain values for tables, CSV and JSON."""
+        """Plain values for tables, CSV and JSON: one unit per column, named in the key
+        (``_ghz``, ``_arcsec``, ``_kms``, times ``_s`` in seconds), except ``rms`` and
+        ``target``, whose unit (K for a dish, Jy/beam for an array) is in
+        ``brightness_unit``."""
         def val(q, unit):
             return None if q is None else float(u.Quantity(q).to_value(unit))
         unit = "K" if self.kind == "single dish" else "Jy/beam"
@@ -58,11 +62,25 @@ class Plan:
                 "beam_minor_arcsec": val(self.resolution.minor, u.arcsec),
                 "largest_scale_arcsec": val(self.largest_scale, u.arcsec),
                 "channel_width_kms": val(self.channel_width, u.km / u.s),
-                f"rms_{unit}": val(self.rms, u.Unit(unit)),
-                f"target_{unit}": val(self.target_brightness, u.Unit(unit)),
+                "rms": val(self.rms, u.Unit(unit)),
+                "target": val(self.target_brightness, u.Unit(unit)),
+                "brightness_unit": unit,
                 "target_snr": self.target_snr, "percentile": self.percentile,
-                "time_per_pointing_h": val(self.time_to_target, u.hour),
-                "n_pointings": self.n_pointings, "total_time_h": val(self.total_time, u.hour)}
+                "time_per_pointing_s": val(self.time_to_target, u.s),
+                "n_pointings": self.n_pointings, "total_time_s": val(self.total_time, u.s)}
+
+
+def duration_text(seconds):
+    """A time for people: seconds below a minute, minutes below an hour, else hours (3
+    significant digits); "-" for None or a non-finite value."""
+    if seconds is None or not np.isfinite(seconds):
+        return "-"
+    seconds = float(seconds)
+    if abs(seconds) < 60:
+        return f"{seconds:.3g} s"
+    if abs(seconds) < 3600:
+        return f"{seconds / 60:.3g} min"
+    return f"{seconds / 3600:.3g} h"
 
 
 def _frequency(line, cube):
@@ -296,15 +314,17 @@ def plan_table(plans):
     cols = [("setup", "setup", "{}"), ("line", "line", "{}"), ("GHz", "frequency_ghz", "{:.3f}"),
             ("beam\"", "beam_major_arcsec", "{:.3g}"), ("LAS\"", "largest_scale_arcsec", "{:.3g}"),
             ("dv km/s", "channel_width_kms", "{:.3g}"), ("target", "target", "{:.3g}"),
-            ("S/N", "target_snr", "{:g}"), ("t/point h", "time_per_pointing_h", "{:.3g}"),
-            ("N point", "n_pointings", "{}"), ("total h", "total_time_h", "{:.3g}")]
+            ("S/N", "target_snr", "{:g}"), ("time/pointing", "time_per_pointing_s", duration_text),
+            ("N point", "n_pointings", "{}"), ("total time", "total_time_s", duration_text)]
     lines = []
     for row in plan_rows(plans):
-        unit = "K" if row["kind"] == "single dish" else "Jy/beam"
-        row = dict(row, target=row.get(f"target_{unit}"))
+        unit = row["brightness_unit"]
         cells = []
         for _, key, fmt in cols:
             v = row.get(key)
+            if callable(fmt):
+                cells.append(fmt(v))
+                continue
             cells.append("-" if v is None or (isinstance(v, float) and np.isnan(v))
                          else fmt.format(v) + (f" {unit}" if key == "target" else ""))
         lines.append(cells)

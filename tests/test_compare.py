@@ -153,3 +153,19 @@ def test_map_few_beams_across_gives_nan_slope_not_error():
     assert c.stats["x"].lognormal_sigma == pytest.approx(c.stats["y"].lognormal_sigma, rel=1e-12)
     with pytest.raises(InstrumentError, match="leaves .* bins"):
         compare(a, a, scale_range=(20.0, 22.0))
+
+
+def test_comparison_text_gives_units_and_explains_missing_values():
+    """The printed table names each statistic's unit (moment 0 in K km/s, moment 1 in km/s,
+    moment 2 in (km/s)^2, shape statistics "none") and explains a slope shown as "-"."""
+    from synth.report.comparison import comparison_text
+    small = _make(64, 0.8, 0.25, 6, Beam(14 * u.arcsec))
+    text = comparison_text(compare(small, small, names=("x", "y")))
+    rows = {line.split()[0]: line.split() for line in text.splitlines() if line.strip()}
+    assert rows["slope"][1:3] == ["-", "-"]
+    assert "-: slope not fitted: the matched map is too small" in text
+    assert " ".join(rows["mom0_mean"][4:]) == "K km/s"
+    assert rows["mom1_std"][4:] == ["km/s"] and rows["mom2_mean"][4:] == ["(km/s)^2"]
+    assert rows["mom0_skew"][4:] == ["none"]
+    big = _make(48, 2.0, 0.25, 10, Beam(6 * u.arcsec))
+    assert "not fitted" not in comparison_text(compare(big, big, names=("x", "y")))

@@ -77,8 +77,7 @@ def test_point_at_phase_centre_peak_equals_flux():
 @pytest.mark.parametrize("fwhm_pix", [3.0, 10.0])
 def test_gaussian_dirty_peak_matches_analytic_visibilities(fwhm_pix):
     """Natural weighting, no noise: peak = sum_k w_k S exp(-pi^2 theta^2 |u_k|^2 / (4 ln 2))
-    / sum_k w_k (analytic visibility of a Gaussian, Bracewell 2000, The Fourier Transform and
-    its Applications, ch. 6) within 1 %."""
+    / sum_k w_k (analytic visibility of a Gaussian; docs/references.md) within 1 %."""
     arr = Interferometer("ring-24")
     obs = observe_interferometric(make_cube(gaussian_sky(128, fwhm_pix, 2.0)), arr, noise=False,
                                   primary_beam=False, sample_interval=300 * u.s)
@@ -154,8 +153,8 @@ def test_uniform_weights_fill_each_cell_equally():
 
 
 def test_primary_beam_widths():
-    """Gaussian FWHM 1.13 lambda/D: 12 m at 230.54 GHz -> 25.3" (1.13 lambda/D common practice
-    for a tapered dish, the figure computed from it); Airy half
+    """Gaussian FWHM 1.13 lambda/D: 12 m at 230.54 GHz -> 25.3" (Wilson, Rohlfs &
+    Hüttemeister 2013 sect. 6.1, memory); Airy half
     power at 2 J1(x)/x = 1/sqrt(2) (Born & Wolf 1999, HPBW 1.029 lambda/D, scipy root)."""
     from scipy.special import j1
     hp = np.rad2deg(half_power_radius_rad(230.54e9, 12.0)) * 3600 * 2

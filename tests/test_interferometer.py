@@ -68,7 +68,8 @@ def test_pb_correction_recovers_offset_point_flux():
 
 def test_kelvin_output_uses_beam_rj_factor():
     """unit='K' multiplies Jy/beam by the restoring beam's Rayleigh-Jeans factor (radio-beam
-    jtok; 1.2221e6 / (nu_GHz^2 theta_maj theta_min) K per Jy/beam, common practice)."""
+    jtok; 1.2221e6 / (nu_GHz^2 theta_maj theta_min) K per Jy/beam,
+    computed from the Rayleigh-Jeans law, Wilson et al. 2013 eqs. 8.16, 8.19)."""
     cube = _point_cube()
     arr = Interferometer("ring-24")
     jy = observe_interferometric(cube, arr, noise=False, **KW)

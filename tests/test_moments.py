@@ -49,7 +49,7 @@ def test_moments_match_spectral_cube(dv_ms):
 
 def test_moments_of_gaussian_lines_are_analytic():
     """Noiseless Gaussian lines: M0 = sqrt(2 pi) sigma T_pk, M1 = line centre, M2 = sigma^2
-    (line area of a Gaussian), within 1e-3 where the line is bright."""
+    (line area of a Gaussian, analytic), within 1e-3 where the line is bright."""
     cube, v, centre, sigma, amp = _line_cube(60.0, nv=120)
     m = moment_maps(cube, noise=0 * u.K, mask=np.ones(cube.shape, bool))
     bright = amp > 0.5

@@ -15,7 +15,7 @@ from synth.instrument.noise import (correlated_noise, hanning_noise_factor, radi
 from synth.instrument.observe import observe
 from synth.instrument.single_dish import SingleDish
 
-NU0_HZ = 115.2712018e9  # CO 1-0 (Leiden CO file, Schöier et al. 2005; read)
+NU0_HZ = 115.2712018e9  # CO 1-0 (Schöier et al. 2005, read)
 KMS = u.km / u.s
 PIX_ARCSEC = 3.0
 

@@ -84,7 +84,7 @@ def test_run_config_writes_products(conf_file, tmp_path):
 
 
 def test_same_config_same_bytes(conf_file, tmp_path):
-    """Same config, same bytes (DESIGN.md, randomness)."""
+    """Same config, same bytes (DEVELOPERS.md: every random draw takes a seed)."""
     synth.run_config(str(conf_file), str(tmp_path / "a"), progress=False)
     synth.run_config(str(conf_file), str(tmp_path / "b"), progress=False)
     a = fits.getdata(tmp_path / "a" / "13CO_1-0_ideal.fits")
@@ -168,8 +168,8 @@ def test_cli_bad_input_exit_2_one_line(tmp_path, capsys):
 
 
 def test_cli_lines_lists_co(capsys):
-    """`synth lines CO` prints CO 1-0 at 115.2712 GHz (Leiden-format CO file, Schöier et al.
-    2005)."""
+    """`synth lines CO` prints CO 1-0 at 115.2712 GHz (Leiden-format CO file,
+    Schöier et al. 2005)."""
     assert cli.main(["lines", "CO"]) == 0
     out = capsys.readouterr().out
     assert "115.27" in out and "1-0" in out

@@ -65,7 +65,8 @@ def test_interferometer_planned_time_gives_planned_noise():
 
 def test_interferometer_rms_worked_example_and_inverse():
     """Point-source rms for T_sys 100 K, D 12 m, eta_a 0.7, N 43, 1 MHz, 60 s, eta_q 0.96,
-    eta_c 0.88, 2 pol = 8.9 mJy (computed from TMS ch. 6) within 1 %; the
+    eta_c 0.88, 2 pol = 8.9 mJy (computed from Thompson, Moran & Swenson 2017 eq. 6.62)
+    within 1 %; the
     planned time reproduces target / S/N through the forward formula to 1e-9; the largest
     scale is 0.6 lambda / B_min (Wilner & Welch 1994) from the shortest projected baseline."""
     pytest.importorskip("synth.instrument.interferometer", exc_type=ImportError)
@@ -88,9 +89,10 @@ def test_interferometer_rms_worked_example_and_inverse():
 
 
 def test_single_dish_resolution_and_rms():
-    """A 12 m dish with taper 1.13 at 230.54 GHz: FWHM 25.3" (1.13 lambda/D, common
-    practice); the rms for 1 h in 1 MHz follows T_sys / (eta sqrt(n_pol dnu t)) (radiometer
-    equation, two polarisations by default)."""
+    """A 12 m dish with taper 1.13 at 230.54 GHz: FWHM 25.3" (Wilson, Rohlfs &
+    Hüttemeister 2013 sect. 6.1, memory; arcseconds computed); the rms for 1 h in 1 MHz
+    follows T_sys / (eta sqrt(n_pol dnu t)) (radiometer equation, two polarisations by
+    default)."""
     sd = pytest.importorskip("synth.instrument.single_dish", exc_type=ImportError)
     dish = sd.SingleDish(diameter=12 * u.m, efficiency=0.8, tsys=150 * u.K)
     nu = 230.538 * u.GHz
@@ -164,8 +166,8 @@ def test_needs_channel_width_without_cube():
 
 
 def test_plan_accepts_a_line():
-    """A Line gives the frequency (CO 1-0 at 115.2712018 GHz, the Leiden CO file, Schöier et
-    al. 2005) and the label."""
+    """A Line gives the frequency (CO 1-0 at 115.2712018 GHz, Schöier et al. 2005) and the
+    label."""
     registry = pytest.importorskip("synth.molecules.registry", exc_type=ImportError)
     p = plan(_dish(), registry.Line("CO", "1-0"), channel_width=0.2 * u.km / u.s)
     assert p.frequency.to_value(u.GHz) == pytest.approx(115.2712018, rel=1e-8)

@@ -31,8 +31,8 @@ def test_slope_does_not_depend_on_pixel_scale():
 
 def test_gaussian_image_power_matches_analytic_transform():
     """The power spectrum of a Gaussian of FWHM theta is |V|^2 with
-    V(k) = exp(-(pi theta k)^2 / (4 ln 2)) (Fourier transform of a Gaussian;
-    Bracewell 2000, ch. 6): each annulus equals the analytic |V|^2 averaged over its FFT
+    V(k) = exp(-(pi theta k)^2 / (4 ln 2)) (analytic Fourier transform of a Gaussian;
+    docs/references.md): each annulus equals the analytic |V|^2 averaged over its FFT
     cells, within 1 %."""
     n, theta = 128, 10.0
     y, x = np.mgrid[:n, :n] - n / 2

@@ -136,7 +136,7 @@ def test_summary_and_plan_files(small_run):
     rows = _csv_rows(out / "plan.csv")
     assert len(rows) == 4 == len(summary["analysis"]["plan"])
     for r, s in zip(rows, summary["analysis"]["plan"]):
-        assert float(r["time_per_pointing_h"]) == pytest.approx(s["time_per_pointing_h"],
+        assert float(r["time_per_pointing_s"]) == pytest.approx(s["time_per_pointing_s"],
                                                                  rel=1e-12)
     text = (out / "plan.txt").read_text()
     assert text.strip().endswith(synth.planning.DISCLAIMER)
@@ -256,6 +256,8 @@ def test_report_renders_in_chromium(small_run, tmp_path):
     n_img = int(re.search(r'data-images="(\d+)"', body.group(0)).group(1))
     n_ok = int(re.search(r'data-loaded="(\d+)"', body.group(0)).group(1))
     n_png = sum(p.endswith(".png") for p in os.listdir(out))
+    # per tracer: mom0, spectra, recovery; per tracer x setup: moments, spectra; uv of the
+    # array; a layout per setup: 2 x 3 + 2 x 2 x 2 + 1 + 2
     assert n_img == n_ok == n_png == 17
     shot = tmp_path / "shot.png"
     with tempfile.TemporaryDirectory() as prof:
@@ -266,3 +268,52 @@ def test_report_renders_in_chromium(small_run, tmp_path):
     assert img.shape[:2] == (1800, 1200)
     dark = (img.mean(axis=2) < 0.5).mean()      # text, tables and figures
     assert 0.01 < dark < 0.6 and float(img.std()) > 0.05
+
+
+def test_plan_csv_has_one_unit_per_column(small_run):
+    """plan.csv: no per-unit column pairs and no line column repeating the tracer; rms and
+    target filled on every row with their unit in brightness_unit (K for the dish, Jy/beam
+    for the array); times in seconds (1 h and 2 h of the config; total = pointings x time
+    per pointing); plan.txt shows times in s, min or h."""
+    out, _ = small_run
+    rows = _csv_rows(out / "plan.csv")
+    header = list(rows[0])
+    assert "line" not in header and not [h for h in header if h.endswith(("_K", "_Jy/beam"))]
+    assert not [h for h in header if h.endswith("_h")]
+    for r in rows:
+        assert r["brightness_unit"] == {"dish": "K", "array": "Jy/beam"}[r["setup"]]
+        assert float(r["rms"]) > 0 and float(r["target"]) > 0
+        assert float(r["integration_time_s"]) == {"dish": 3600.0, "array": 7200.0}[r["setup"]]
+        assert float(r["total_time_s"]) == pytest.approx(
+            int(r["n_pointings"]) * float(r["time_per_pointing_s"]), rel=1e-12)
+    text = (out / "plan.txt").read_text()
+    assert re.search(r"\s1 h\s", text) and re.search(r"\s2 h\s", text)
+
+
+@pytest.mark.parametrize("seconds, text", [(42.0, "42 s"), (150.0, "2.5 min"), (5400.0, "1.5 h"),
+                                           (7200.0, "2 h"), (None, "-"), (float("nan"), "-")])
+def test_duration_text(seconds, text):
+    from synth.planning import duration_text
+    assert duration_text(seconds) == text
+
+
+@pytest.mark.parametrize("raw, typeset", [
+    ("HCO+ 1-0", "HCO⁺ 1–0"), ("13CO 1-0", "¹³CO 1–0"), ("C18O 2-1", "C¹⁸O 2–1"),
+    ("N2H+ 1-0", "N₂H⁺ 1–0"), ("H13CO+ 1-0", "H¹³CO⁺ 1–0"), ("CS 2-1", "CS 2–1"),
+    ("cube line", "cube line")])
+def test_typeset_line(raw, typeset):
+    """Mass numbers up, atom counts down, charge up, an en dash between the levels."""
+    from synth.report.html import typeset_line
+    assert typeset_line(raw) == typeset
+
+
+def test_report_headings_show_the_typeset_line(small_run):
+    """Section headings name the line as typeset (HCO⁺ 1–0), not the file-safe tracer name
+    (HCOp_1-0); the file names keep the file-safe form."""
+    out, _ = small_run
+    page = (out / "report.html").read_text(encoding="utf-8")
+    heads = re.findall(r"<h[34]>(.*?)</h[34]>", page)
+    assert "HCO⁺ 1–0" in heads and "¹³CO 1–0" in heads
+    assert "HCO⁺ 1–0 with array" in heads
+    assert not [h for h in heads if "HCOp" in h or "_1-0" in h]
+    assert (out / "HCOp_1-0_ideal.fits").exists()

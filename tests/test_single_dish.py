@@ -16,7 +16,7 @@ from synth.instrument.beam import (convolve_beam, dish_beam, jy_per_beam_to_k,
 from synth.instrument.observe import observe
 from synth.instrument.single_dish import SingleDish
 
-NU0_HZ = 115.2712018e9  # CO 1-0 (Leiden CO file, Schöier et al. 2005; read)
+NU0_HZ = 115.2712018e9  # CO 1-0 (Schöier et al. 2005, read)
 KMS = u.km / u.s
 FWHM_TO_SIGMA = 1 / np.sqrt(8 * np.log(2))
 
@@ -51,7 +51,7 @@ def jy_per_k_pixel(nu_hz, pix_arcsec):
 
 def test_dish_beam_fwhm_from_diameter():
     """FWHM = taper lambda / D: 12 m at 230.54 GHz is 22.8" (1.02) / 25.3" (1.13)
-    (Goldsmith 1998, Quasioptical Systems, ch. 6; from memory)."""
+    (Born & Wolf 1999 / Wilson, Rohlfs & Hüttemeister 2013 sect. 6.1, memory)."""
     nu = 230.538 * u.GHz
     assert dish_beam(12 * u.m, nu, 1.02).major.to_value(u.arcsec) == pytest.approx(22.8, abs=0.05)
     assert dish_beam(12 * u.m, nu, 1.13).major.to_value(u.arcsec) == pytest.approx(25.3, abs=0.05)
@@ -68,7 +68,8 @@ def test_fixed_beam_is_used_at_every_frequency():
 
 
 def test_beam_solid_angle():
-    """Omega = pi theta_maj theta_min / (4 ln 2) (radio-beam FWHM_TO_AREA)."""
+    """Omega = pi theta_maj theta_min / (4 ln 2) (radio-beam FWHM_TO_AREA; the integral of a
+    Gaussian)."""
     beam = Beam(major=12 * u.arcsec, minor=7 * u.arcsec, pa=10 * u.deg)
     expected = np.pi * (12 * u.arcsec) * (7 * u.arcsec) / (4 * np.log(2))
     assert beam.sr.to_value(u.sr) == pytest.approx(expected.to_value(u.sr), rel=1e-12)
@@ -130,7 +131,7 @@ def test_point_source_peak_in_jy_per_beam_equals_its_flux():
 def test_k_to_jy_per_beam_matches_astropy_and_common_formula():
     """T[K] = 1.222e3 I[mJy/beam] / (nu[GHz]^2 theta_maj["] theta_min["]) (common practice)
     and astropy brightness_temperature; 1" at 115.2712018 GHz: 1 Jy/beam = 91.97554 K
-    (computed)."""
+    (computed from the Rayleigh-Jeans law, Wilson et al. 2013 eqs. 8.16, 8.19)."""
     beam = Beam(major=1 * u.arcsec, minor=1 * u.arcsec)
     one_jy = make_cube(np.ones((1, 3, 3)), unit=u.Jy / u.beam).with_beam(
         beam, raise_error_jybm=False)

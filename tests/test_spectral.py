@@ -14,7 +14,7 @@ from synth.instrument.spectral import (HANNING_WEIGHTS, channel_width_frequency,
                                        channel_width_velocity, hanning_smooth,
                                        resample_spectral, to_spectral_axis, velocity_axis)
 
-NU0_HZ = 115.2712018e9  # CO 1-0 (Leiden CO file, Schöier et al. 2005; read)
+NU0_HZ = 115.2712018e9  # CO 1-0 (Schöier et al. 2005, read)
 KMS = u.km / u.s
 
 

@@ -116,7 +116,7 @@ def test_recovery_through_known_uv_coverage_matches_visibility_formula():
     """A Gaussian source of FWHM theta through a known uv sampling S and a round restoring
     beam: per-scale recovery equals sum S |V|^2 |B|^2 / sum |V|^2 |B|^2 over each annulus,
     V(q) = exp(-(pi theta q)^2 / (4 ln 2)) (analytic visibility of a Gaussian;
-    TMS ch. 4), within 2 %."""
+    Thompson, Moran & Swenson 2017 ch. 4), within 2 %."""
     theta, fwhm_b = 12.0, 5.0
     beam = Beam(fwhm_b * u.arcsec)
     s = _uv_sampling(N, PIX)

@@ -122,8 +122,9 @@ def test_bad_track_options(kw, match):
 
 
 def test_interferometer_rms_worked_example():
-    """Worked example (TMS 3rd ed. eq. 6.62, computed): T_sys 100 K, D 12 m, eta_a 0.7,
-    N 43, 1 MHz, 60 s, eta_q 0.96, eta_c 0.88, 2 polarisations -> 8.9 mJy (8.87 computed)."""
+    """Worked example computed from Thompson, Moran & Swenson 2017 (3rd ed.) eq. 6.62:
+    T_sys 100 K, D 12 m, eta_a 0.7, N 43, 1 MHz, 60 s, eta_q 0.96, eta_c 0.88,
+    2 polarisations -> 8.9 mJy (8.87 computed)."""
     enu = np.column_stack([np.arange(43) * 20.0, np.zeros(43), np.zeros(43)])
     arr = Interferometer(enu, tsys=100 * u.K, efficiency=0.7)
     rms = interferometer_rms(arr, 1 * u.MHz, 60 * u.s)

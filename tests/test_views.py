@@ -51,7 +51,7 @@ def test_axis_views_are_proper_rotations(los):
 @pytest.mark.parametrize("los, expected", [
     ("z", 3.0), ("-z", -3.0), ("x", 1.0), ("-x", -1.0), ("y", 2.0), ("-y", -2.0)])
 def test_uniform_flow_radial_velocity(los, expected):
-    """v = (1, 2, 3) km/s seen along +-axis: radial velocity = +-component (DESIGN.md sign)."""
+    """v = (1, 2, 3) km/s seen along +-axis: radial velocity = +-component (docs/guide.md sign convention)."""
     v = view(make_snapshot(velocity=(1.0, 2.0, 3.0)), los)
     np.testing.assert_allclose(v.velocity_cms[2] / 1e5, expected, rtol=1e-12)
 

@@ -1,13 +1,55 @@
 """Figures for the analysis products (matplotlib, no pyplot state, no display needed).
 
 Every helper returns a ``matplotlib.figure.Figure`` and, given ``path``, also writes a PNG.
+
+Conventions (docs/report.md): maps are drawn in offset arcsec from the map centre (east to
+the left) with the beam as an ellipse in the lower left corner; moment 1 of an observed cube
+is blank where its moment 0 is below ``MOM1_NSIGMA`` (3) times the moment-0 noise; a moment-0
+map with negative bowls (an interferometer's; a pixel below -``BOWL_NSIGMA`` (5) sigma) is
+drawn with a diverging colour map on limits symmetric about zero; spectra carry a title and a y-axis label; log axes label ticks at
+1, 2 and 5 times powers of ten, so that even a short range shows more than one label.
 """
 
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.patches import Ellipse
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 __all__ = ["moment_figure", "recovery_figure", "fidelity_figure", "structure_figure",
-           "spectra_figure"]
+           "spectra_figure", "line_moment0", "masked_moment1", "readable_log_axis",
+           "MOM1_NSIGMA", "BOWL_NSIGMA"]
+
+#: moment 1 of an observed cube is shown where moment 0 >= MOM1_NSIGMA x its noise
+MOM1_NSIGMA = 3.0
+#: a moment-0 map whose lowest pixel is below -BOWL_NSIGMA x its noise has negative bowls
+#: (drawn on a diverging colour map, limits symmetric about zero); noise alone rarely
+#: reaches 5 sigma over a map of 10^4 pixels
+BOWL_NSIGMA = 5.0
+
+
+def line_moment0(data, line_channels, channel_kms, noise):
+    """Integrated intensity over the line's channels with no signal mask, so that negative
+    bowls stay visible, and its noise: rms per channel x channel width x sqrt(number of
+    channels) (independent channels). Blank (NaN) voxels count as 0; a pixel blank in every
+    channel stays NaN. Returns (map, sigma) in the data's unit x km/s."""
+    sel = np.asarray(data, dtype=float)[np.asarray(line_channels, dtype=bool)]
+    mom0 = np.nansum(sel, axis=0) * float(channel_kms)
+    mom0[~np.isfinite(sel).any(axis=0)] = np.nan
+    return mom0, float(noise) * float(channel_kms) * np.sqrt(max(sel.shape[0], 1))
+
+
+def masked_moment1(mom1, mom0, sigma0, nsigma=MOM1_NSIGMA):
+    """Moment 1 (plain array) with NaN where moment 0 < nsigma x sigma0 (or is NaN)."""
+    out = np.array(mom1, dtype=float)
+    out[~(np.asarray(mom0) >= nsigma * sigma0)] = np.nan
+    return out
+
+
+def readable_log_axis(axis):
+    """Ticks at 1, 2 and 5 x 10^n, labelled in plain numbers (no minor labels)."""
+    axis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+    axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+    axis.set_minor_formatter(NullFormatter())
 
 
 def _finish(fig, path, dpi=100):
@@ -16,29 +58,97 @@ def _finish(fig, path, dpi=100):
     return fig
 
 
-def _panel(fig, ax, image, title, cmap, vmin=None, vmax=None, label=""):
-    im = ax.imshow(image, origin="lower", cmap=cmap, vmin=vmin, vmax=vmax)
+def _panel(fig, ax, image, title, cmap, vmin=None, vmax=None, label="", extent=None,
+           beam=None):
+    im = ax.imshow(image, origin="lower", cmap=cmap, vmin=vmin, vmax=vmax, extent=extent,
+                   interpolation="nearest")
     ax.set_title(title, fontsize=9)
-    ax.set_xticks([])
-    ax.set_yticks([])
+    if extent is None:
+        ax.set_xlabel("x (pixels)", fontsize=8)
+        ax.set_ylabel("y (pixels)", fontsize=8)
+    else:
+        ax.set_xlabel("RA offset (arcsec)", fontsize=8)
+        ax.set_ylabel("Dec offset (arcsec)", fontsize=8)
+        if beam is not None:
+            _beam_ellipse(ax, beam, extent, "white" if cmap == "viridis" else "black")
+    ax.tick_params(labelsize=7)
     fig.colorbar(im, ax=ax, shrink=0.8, label=label)
+    return im
 
 
-def moment_figure(survival, path=None, title=""):
-    """Ideal (beam-convolved) and observed moment maps 0 and 1, side by side."""
+def _beam_ellipse(ax, beam, extent, colour):
+    """The beam (FWHM, PA east of north) in the lower left corner of a map drawn with
+    ``extent`` in offset arcsec, east to the left."""
+    major = float(beam.major.to_value("arcsec"))
+    minor = float(beam.minor.to_value("arcsec"))
+    pa = float(beam.pa.to_value("deg"))
+    left, right, bottom, top = extent
+    pad = 0.6 * major + 0.03 * abs(top - bottom)
+    centre = (left - pad if left > right else left + pad, bottom + pad)
+    # x grows to the east (to the left on the page): PA east of north is -PA in data angle
+    ax.add_patch(Ellipse(centre, width=minor, height=major, angle=-pa, facecolor="none",
+                         edgecolor=colour, lw=1.2, label="beam"))
+
+
+def _unit_label(unit):
+    text = unit.to_string()
+    return {"K km / s": "K km/s", "Jy km / (beam s)": "Jy/beam km/s"}.get(text, text)
+
+
+def _extent(shape, pixel_arcsec):
+    if pixel_arcsec is None:
+        return None
+    ny, nx = shape
+    half_x, half_y = nx * pixel_arcsec / 2, ny * pixel_arcsec / 2
+    return [half_x, -half_x, -half_y, half_y]
+
+
+def moment_figure(survival, path=None, title="", observed=None):
+    """Ideal (beam-convolved) and observed moment maps 0 and 1, side by side.
+
+    With ``observed`` (the observed cube given to ``assess``) the maps are drawn in offset
+    arcsec with the beam, the observed moment 0 is the integrated intensity over the line's
+    channels (those where the reference emits) with no signal mask (:func:`line_moment0`),
+    and the observed moment 1 is blank where that moment 0 < MOM1_NSIGMA x its noise
+    (:func:`masked_moment1`). A moment-0 map with negative bowls (a pixel below
+    -BOWL_NSIGMA x its noise; without ``observed``, any negative pixel) is drawn on a
+    diverging colour map with limits symmetric about zero (both moment-0 panels on one
+    scale).
+    """
     mi, mo = survival.ideal_moments, survival.observed_moments
-    fig = Figure(figsize=(8, 7))  # a fixed layout: constrained layout costs 2x the drawing
-    axes = fig.subplots(2, 2, gridspec_kw=dict(left=0.02, right=0.93, bottom=0.02,
-                                               top=0.9 if title else 0.95, wspace=0.3,
-                                               hspace=0.15))
+    fig = Figure(figsize=(8.4, 7.4))  # a fixed layout: constrained layout costs 2x the drawing
+    axes = fig.subplots(2, 2, gridspec_kw=dict(left=0.09, right=0.95, bottom=0.07,
+                                               top=0.9 if title else 0.94, wspace=0.45,
+                                               hspace=0.35))
+    extent, beam, sigma0 = None, survival.beam, 0.0
+    obs0, obs1 = np.asarray(mo.mom0.value), mo.mom1.value
+    title0, title1 = "observed moment 0", "observed moment 1"
+    if observed is not None:
+        from .matching import channel_width_ms, pixel_scale_arcsec
+        extent = _extent(mi.mom0.shape, float(pixel_scale_arcsec(observed)))
+        data = observed.unmasked_data[:].to_value(survival.noise.unit)   # blanks stay NaN
+        line = np.asarray(mi.mask).any(axis=(1, 2))
+        obs0, sigma0 = line_moment0(data, line, channel_width_ms(observed) / 1e3,
+                                    survival.noise.value)
+        obs1 = masked_moment1(mo.mom1.value, obs0, sigma0)
+        title0 = "observed moment 0 (line channels, no mask)"
+        title1 = f"observed moment 1 (moment 0 >= {MOM1_NSIGMA:g} sigma)"
     top = np.nanmax(mi.mom0.value) if np.isfinite(np.nanmax(mi.mom0.value)) else None
-    unit0 = mi.mom0.unit.to_string()
-    _panel(fig, axes[0, 0], mi.mom0.value, "ideal moment 0", "viridis", 0, top, unit0)
-    _panel(fig, axes[0, 1], mo.mom0.value, "observed moment 0", "viridis", 0, top, unit0)
+    low = np.nanmin(obs0) if np.isfinite(obs0).any() else 0.0
+    unit0 = _unit_label(mi.mom0.unit)
+    if low < -BOWL_NSIGMA * sigma0:   # negative bowls: a diverging map, symmetric limits
+        peak = max(abs(low), top or 0.0, float(np.nanmax(obs0)))
+        cmap0, lo0, hi0 = "RdBu_r", -peak, peak
+    else:
+        cmap0, lo0, hi0 = "viridis", 0, top
+    _panel(fig, axes[0, 0], mi.mom0.value, "ideal moment 0", cmap0, lo0, hi0, unit0, extent,
+           beam)
+    _panel(fig, axes[0, 1], obs0, title0, cmap0, lo0, hi0, unit0, extent, beam)
     v = np.concatenate([mi.mom1.value[np.isfinite(mi.mom1.value)], [0.0]])
     lo, hi = np.percentile(v, [2, 98])
-    _panel(fig, axes[1, 0], mi.mom1.value, "ideal moment 1", "RdBu_r", lo, hi, "km/s")
-    _panel(fig, axes[1, 1], mo.mom1.value, "observed moment 1", "RdBu_r", lo, hi, "km/s")
+    _panel(fig, axes[1, 0], mi.mom1.value, "ideal moment 1", "RdBu_r", lo, hi, "km/s", extent,
+           beam)
+    _panel(fig, axes[1, 1], obs1, title1, "RdBu_r", lo, hi, "km/s", extent, beam)
     if title:
         fig.suptitle(title)
     return _finish(fig, path)
@@ -62,9 +172,7 @@ def recovery_figure(survivals, path=None, title="Recovered fraction of power per
             ax.axvline(half, color=line.get_color(), ls=":", lw=1)
     ax.axhline(0.5, color="0.5", lw=0.8)
     ax.set_xscale("log")
-    from matplotlib.ticker import NullFormatter, ScalarFormatter
-    ax.xaxis.set_major_formatter(ScalarFormatter())
-    ax.xaxis.set_minor_formatter(NullFormatter())
+    readable_log_axis(ax.xaxis)
     ax.set_xlabel("angular scale 1/k (arcsec; scales >= each restoring beam)")
     ax.axhline(1.0, color="0.7", lw=0.8, ls="--")
     ax.set_ylabel("recovered power (cross-power, noise-unbiased)")
@@ -106,26 +214,41 @@ def structure_figure(comparison, path=None):
         a1.axvspan(1 / hi, 1 / lo, color="0.9")
     a1.set_xlabel("k (1/arcsec)")
     a1.set_ylabel("power of moment 0")
+    readable_log_axis(a1.xaxis)
+    readable_log_axis(a1.yaxis)
     a1.legend(fontsize=8)
     a2.set_xlabel("ln(W / <W>)")
     a2.set_ylabel("probability density")
     a2.set_yscale("log")
+    readable_log_axis(a2.yaxis)
     a2.legend(fontsize=8)
     return _finish(fig, path)
 
 
-def spectra_figure(ideal, observed, positions, path=None):
-    """Spectra of two cubes at pixel positions [(x, y), ...] (same sky grid)."""
-    height = 2.2 * len(positions) + 0.5
+def spectra_figure(ideal, observed, positions, path=None, title="Spectra: ideal and observed"):
+    """Spectra of two cubes at pixel positions [(x, y), ...] (same sky grid), with a title
+    and the brightness unit on the y axis."""
+    height = 2.2 * len(positions) + 0.8
     fig = Figure(figsize=(6.5, height))
     axes = np.atleast_1d(fig.subplots(len(positions), 1, sharex=True, gridspec_kw=dict(
-        left=0.1, right=0.97, bottom=0.55 / height, top=1 - 0.3 / height, hspace=0.3)))
+        left=0.13, right=0.97, bottom=0.55 / height, top=1 - 0.6 / height, hspace=0.35)))
     for ax, (x, y) in zip(axes, positions):
         for cube, label in ((ideal, "ideal"), (observed, "observed")):
             v = cube.spectral_axis
             ax.step(v.value, cube.unmasked_data[:, y, x].value, where="mid",
                     label=f"{label} ({cube.unit.to_string()})")
         ax.set_title(f"pixel ({x}, {y})", fontsize=9)
+        ax.set_ylabel(_brightness_label(observed.unit), fontsize=8)
         ax.legend(fontsize=7)
-    axes[-1].set_xlabel(f"spectral axis ({ideal.spectral_axis.unit.to_string()})")
+    spec = ideal.spectral_axis.unit
+    axes[-1].set_xlabel("radio velocity (km/s)" if spec.to_string() == "km / s"
+                        else f"spectral axis ({spec.to_string()})")
+    fig.suptitle(title, fontsize=10)
     return _finish(fig, path)
+
+
+def _brightness_label(unit):
+    text = unit.to_string()
+    if text == "K":
+        return "T_B (K)"
+    return f"intensity ({'Jy/beam' if text == 'Jy / beam' else text})"

@@ -5,7 +5,7 @@ A single dish's main beam is modelled as an elliptical Gaussian (radio-beam's ``
 a diameter D at wavelength lambda its FWHM is ``taper * lambda / D``: 1.02 for a uniformly
 illuminated circular aperture, about 1.13 for the edge taper of typical radio telescopes, up
 to ~1.2 for strong tapers (Goldsmith 1998, Quasioptical Systems, ch. 6; Wilson, Rohlfs &
-Hüttemeister 2013, sect. 6.1, from memory).
+Hüttemeister 2013, sect. 6.1, from memory; see docs/references.md).
 
 The beam solid angle of a Gaussian is Omega = pi theta_maj theta_min / (4 ln 2) (radio-beam's
 ``Beam.sr``). Brightness temperature and flux density per beam are related by the
@@ -145,24 +145,41 @@ def _cube_beam(cube, beam):
     return beam
 
 
+def _noise_in(cube, beam, unit):
+    """The cube's NOISERMS / NOISEUNI meta expressed in ``unit`` ("K" or "Jy/beam"), at the
+    median channel frequency (the convention of the observing steps); {} without them."""
+    meta = {k.upper(): v for k, v in cube.meta.items()}
+    if "NOISERMS" not in meta or "NOISEUNI" not in meta:
+        return {}
+    have = unit_name(meta["NOISEUNI"])
+    rms = float(meta["NOISERMS"])
+    if have != unit:
+        factor = float(jy_per_k(beam, np.median(sky_frequencies(cube).to_value(u.Hz))))
+        rms = rms * factor if unit == "Jy/beam" else rms / factor
+    return {"NOISERMS": rms, "NOISEUNI": unit}
+
+
 def k_to_jy_per_beam(cube, beam=None):
-    """Convert a K cube to Jy/beam (per channel at its sky frequency); attaches the beam."""
+    """Convert a K cube to Jy/beam (per channel at its sky frequency); attaches the beam.
+    A NOISERMS card in the meta follows the unit (NOISEUNI)."""
     beam = _cube_beam(cube, beam)
     if brightness_kind(cube) == "Jy/beam":
         return cube
     factor = jy_per_k(beam, sky_frequencies(cube))[:, None, None]
     data = cube_values(cube, allow_blank=True) * cube.unit.to(u.K) * factor
-    return new_cube(cube, data, u.Jy / u.beam, beam=beam)
+    return new_cube(cube, data, u.Jy / u.beam, beam=beam,
+                    meta_update=_noise_in(cube, beam, "Jy/beam"))
 
 
 def jy_per_beam_to_k(cube, beam=None):
-    """Convert a Jy/beam cube to K (per channel at its sky frequency)."""
+    """Convert a Jy/beam cube to K (per channel at its sky frequency). A NOISERMS card in the
+    meta follows the unit (NOISEUNI)."""
     beam = _cube_beam(cube, beam)
     if brightness_kind(cube) == "K":
         return cube
     factor = jy_per_k(beam, sky_frequencies(cube))[:, None, None]
     data = cube_values(cube, allow_blank=True) * cube.unit.to(u.Jy / u.beam) / factor
-    return new_cube(cube, data, u.K, beam=beam)
+    return new_cube(cube, data, u.K, beam=beam, meta_update=_noise_in(cube, beam, "K"))
 
 
 def unit_name(unit):

@@ -39,7 +39,7 @@ class SingleDish:
         A fixed beam used at every frequency instead of the diameter.
     taper : float
         FWHM in units of lambda / D: 1.02 uniform illumination, ~1.13 typical taper,
-        1.2 strong taper (Goldsmith 1998, ch. 6; from memory). Allowed range TAPER_RANGE.
+        1.2 strong taper (Goldsmith 1998, ch. 6; docs/references.md). Allowed range TAPER_RANGE.
     name : str
         Recorded in the output's INSTRUME card.
     n_pol : {1, 2}

@@ -53,17 +53,66 @@ def comparison_json(comparison):
                       for n in comparison.names}}
 
 
+def statistic_units(stats):
+    """Unit of each statistic of :meth:`StructureStats.as_dict` as text: moment-map means
+    and widths carry the map's unit; slopes, log-normal parameters, skewness and kurtosis are
+    pure numbers ("none")."""
+    mom = stats.moments
+    units = {"mom0": mom.mom0.unit, "mom1": mom.mom1.unit, "mom2": mom.mom2.unit}
+    out = {}
+    for key in stats.as_dict():
+        name, _, what = key.partition("_")
+        if key == "flux":
+            out[key] = f"{_unit_text(mom.mom0.unit)} pixel"   # the moment-0 map summed
+        elif name in units and what in ("mean", "std"):
+            out[key] = _unit_text(units[name])
+        else:
+            out[key] = "none"
+    return out
+
+
+def _unit_text(unit):
+    text = unit.to_string()
+    return {"K km / s": "K km/s", "km / s": "km/s", "km2 / s2": "(km/s)^2",
+            "Jy km / (beam s)": "Jy/beam km/s"}.get(text, text)
+
+
+#: why a value can be missing ("-" in the table), per statistic
+_MISSING = {
+    "slope": "slope not fitted: the matched map is too small for a scale range (scales from "
+             "max(3 pixels, 2 beams) to a third of the map; docs/analysis.md)",
+    "moment": "fewer than 4 finite pixels in that moment map",
+    "ratio": "ratio undefined: the first cube's value is 0 or missing",
+}
+
+
 def comparison_text(comparison):
-    """The matching steps and the side-by-side statistics table, as terminal text."""
+    """The matching steps and the side-by-side statistics table (with units), as terminal
+    text; every "-" in it is explained under the table."""
     a, b = comparison.names
     t = comparison.table()
-    rows = [(str(r["statistic"]), _g(r[a]), _g(r[b]), _g(r["ratio"])) for r in t]
-    head = ("statistic", a, b, f"{b} / {a}")
-    widths = [max(len(head[i]), *(len(r[i]) for r in rows)) for i in range(4)]
-    fmt = "{:<%d}  {:>%d}  {:>%d}  {:>%d}" % tuple(widths)
+    units = statistic_units(comparison.stats[a])
+    rows = [(str(r["statistic"]), _g(r[a]), _g(r[b]), _g(r["ratio"]),
+             units.get(str(r["statistic"]), "")) for r in t]
+    head = ("statistic", a, b, f"{b} / {a}", "unit")
+    widths = [max(len(head[i]), *(len(r[i]) for r in rows)) for i in range(5)]
+    fmt = "{:<%d}  {:>%d}  {:>%d}  {:>%d}  {:<%d}" % tuple(widths)
     lines = ["matching steps:"] + [f"  {i + 1}. {s}" for i, s in enumerate(comparison.steps)]
-    lines += ["", fmt.format(*head), fmt.format(*("-" * w for w in widths))]
-    return "\n".join(lines + [fmt.format(*r) for r in rows])
+    lines += ["", fmt.format(*head).rstrip(), fmt.format(*("-" * w for w in widths))]
+    lines += [fmt.format(*r).rstrip() for r in rows]
+    notes = []
+    for stat, va, vb, ratio, _ in rows:
+        if "-" in (va, vb):
+            why = _MISSING["slope" if stat.startswith("slope") else "moment"]
+        elif ratio == "-":
+            why = _MISSING["ratio"]
+        else:
+            continue
+        if why not in notes:
+            notes.append(why)
+    if notes:
+        lines += [""] + [f"-: {n}" for n in notes]
+    return "\n".join(lines)
 
 
 def _g(v):
@@ -78,12 +127,18 @@ def _moment0_figure(comparison):
     axes = fig.subplots(1, 2)
     maps = {n: comparison.stats[n].moments.mom0 for n in comparison.names}
     top = max(float(np.nanmax(m.value)) for m in maps.values())
+    from ..analysis.matching import pixel_scale_arcsec
+    from ..analysis.plots import _beam_ellipse, _extent, _unit_label
     for ax, (name, m) in zip(axes, maps.items()):
-        im = ax.imshow(m.value, origin="lower", cmap="viridis", vmin=0, vmax=top)
+        extent = _extent(m.shape, float(pixel_scale_arcsec(comparison.matched[name])))
+        im = ax.imshow(m.value, origin="lower", cmap="viridis", vmin=0, vmax=top,
+                       extent=extent, interpolation="nearest")
         ax.set_title(f"{name}: moment 0 (matched)", fontsize=9)
-        ax.set_xticks([])
-        ax.set_yticks([])
-        fig.colorbar(im, ax=ax, shrink=0.8, label=m.unit.to_string())
+        ax.set_xlabel("RA offset (arcsec)", fontsize=8)
+        ax.set_ylabel("Dec offset (arcsec)", fontsize=8)
+        if comparison.beam is not None:
+            _beam_ellipse(ax, comparison.beam, extent, "white")
+        fig.colorbar(im, ax=ax, shrink=0.8, label=_unit_label(m.unit))
     return fig
 
 

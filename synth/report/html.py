@@ -12,12 +12,13 @@ import html
 import json
 import os
 import platform
+import re
 import sys
 
 from ..fitsio import write_text
 from .run_analysis import PLAN_COLUMNS, SURVIVAL_COLUMNS, cell_text, plan_cells
 
-__all__ = ["write_report", "report_html", "REPORT_NAME"]
+__all__ = ["write_report", "report_html", "REPORT_NAME", "typeset_line"]
 
 #: file name of the page inside the run folder
 REPORT_NAME = "report.html"
@@ -86,10 +87,39 @@ def _fmt(v, fmt="{:.4g}"):
     return fmt.format(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else str(v)
 
 
+_SUPER = str.maketrans("0123456789+-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁺⁻")
+_SUB = str.maketrans("0123456789", "₀₁₂₃₄₅₆₇₈₉")
+
+
+def typeset_line(line):
+    """A line as astronomers write it: "HCO+ 1-0" -> "HCO⁺ 1–0", "13CO 1-0" -> "¹³CO 1–0",
+    "C18O" -> "C¹⁸O", "N2H+" -> "N₂H⁺". In the species a run of two or more digits is a mass
+    number (superscript), a single digit a count of atoms (subscript), a trailing charge a
+    superscript; the transition's hyphen becomes an en dash. Text without a species and a
+    transition is returned unchanged."""
+    parts = str(line).split(" ", 1)
+    if len(parts) != 2 or not re.fullmatch(r"[A-Za-z0-9]+[+-]?", parts[0]):
+        return str(line)
+    species, transition = parts
+    charge = ""
+    if species[-1] in "+-":
+        species, charge = species[:-1], species[-1].translate(_SUPER)
+    species = re.sub(r"\d+", lambda m: m.group(0).translate(_SUPER if len(m.group(0)) > 1
+                                                             else _SUB), species)
+    transition = re.sub(r"(?<=\d)-(?=\d)", "–", transition)
+    return f"{species}{charge} {transition}"
+
+
+def _line_of(s, tname):
+    """The typeset line of a tracer of the run (its name if the summary has no line)."""
+    line = (s.get("tracers") or {}).get(tname, {}).get("line")
+    return typeset_line(line) if line else tname
+
+
 def _job(page, s):
     an = s.get("analysis") or {}
     page.add('<h2 id="job">Job</h2>')
-    rows = [(name, t.get("line"), t.get("excitation"), _fmt(t.get("abundance")),
+    rows = [(name, _line_of(s, name), t.get("excitation"), _fmt(t.get("abundance")),
              _fmt(t.get("frequency_ghz"), "{:.4f}"), _fmt(t.get("peak_tb_k")),
              _fmt(t.get("peak_integrated_k_kms")), _fmt(t.get("tau_max")))
             for name, t in s.get("tracers", {}).items()]
@@ -126,13 +156,14 @@ def _tracers(page, s):
     for tname, t in an.get("tracers", {}).items():
         figs = t.get("figures", {})
         pos = ", ".join(f"({x}, {y})" for x, y in t.get("spectra_positions", []))
-        page.add(f"<h3>{_e(tname)}</h3><div class=\"row\">"
+        line = _line_of(s, tname)
+        page.add(f"<h3>{_e(line)}</h3><div class=\"row\">"
                  + page.img(figs.get("mom0"), f"{tname}: ideal integrated intensity")
                  + page.img(figs.get("spectra"), f"{tname}: ideal spectra at pixels {pos}")
                  + "</div>")
         for sname, o in t.get("setups", {}).items():
             of = o.get("figures", {})
-            page.add(f"<h4>{_e(tname)} with {_e(sname)}</h4><div class=\"row\">"
+            page.add(f"<h4>{_e(line)} with {_e(sname)}</h4><div class=\"row\">"
                      + page.img(of.get("mom0"), f"{tname} with {sname}: ideal vs observed "
                                 "integrated intensity (each in its own unit)")
                      + page.img(of.get("moments"), f"{tname} with {sname}: moments 0 and 1, "

@@ -18,6 +18,7 @@ import astropy.units as u
 from ..errors import ConfigError, InstrumentError
 from ..fitsio import atomic_path, write_json, write_text
 from ..rundir import csv_cell, run_path
+from ..planning import duration_text
 
 __all__ = ["run_analysis", "analysis_settings", "assess_observation", "plan_config",
            "spectra_positions", "rows_csv", "survival_text", "cell_text", "SURVIVAL_COLUMNS",
@@ -111,6 +112,7 @@ def _ideal_spectra_figure(cube, positions, title):
     for ax, (x, y) in zip(axes, positions):
         ax.step(v, cube.unmasked_data[:, y, x].value, where="mid", label="ideal (K)")
         ax.set_title(f"pixel ({x}, {y})", fontsize=9)
+        ax.set_ylabel("T_B (K)", fontsize=8)
         ax.legend(fontsize=7)
     axes[-1].set_xlabel("radio velocity (km/s)")
     fig.suptitle(title, fontsize=10)
@@ -140,12 +142,17 @@ def _reference_as_cube(ideal, observed):
 def _observation_figures(tname, sname, ideal, obs, m, positions, tmp):
     from ..analysis.plots import moment_figure, spectra_figure
     base = run_path(tmp, f"{tname}_{sname}")
-    out = {"moments": _save(moment_figure(m, title=f"{tname} with {sname}"),
+    from .html import typeset_line
+    line = typeset_line(ideal.meta.get("LINE") or ideal.meta.get("line") or tname)
+    out = {"moments": _save(moment_figure(m, title=f"{line} with {sname}", observed=obs),
                             f"{base}_moments.png")}
     ref = _reference_as_cube(ideal, obs).with_spectral_unit(u.km / u.s,
                                                             velocity_convention="radio")
     obs_v = obs.with_spectral_unit(u.km / u.s, velocity_convention="radio")
-    out["spectra"] = _save(spectra_figure(ref, obs_v, positions), f"{base}_spectra.png")
+    out["spectra"] = _save(spectra_figure(ref, obs_v, positions,
+                                          title=f"{line} with {sname}: spectra, "
+                                                "reference and observed"),
+                           f"{base}_spectra.png")
     if os.path.exists(f"{base}_mom0.png"):
         out["mom0"] = os.path.basename(f"{base}_mom0.png")
     return out
@@ -197,7 +204,10 @@ def plan_config(conf, ideal, settings=None):
                 skipped.append({"setup": st["name"], "tracer": tname, "reason": str(exc)})
                 continue
             plans.append(p)
-            rows.append({"tracer": tname, **p.as_row(), "time_h": hours})
+            row = p.as_row()
+            del row["line"]      # the tracer names the line (summary.json: tracers)
+            rows.append({"tracer": tname, **row,
+                         "integration_time_s": None if hours is None else hours * 3600.0})
     return plans, rows, skipped
 
 
@@ -312,6 +322,8 @@ SURVIVAL_COLUMNS = (("tracer", "tracer", "{}"), ("setup", "setup", "{}"),
 def cell_text(row, key, fmt):
     """One table cell: "-" for a missing or non-finite value; a lower limit gets ">"."""
     v = row.get(key)
+    if callable(fmt):
+        return fmt(v)
     if v is None or (isinstance(v, float) and not np.isfinite(v)):
         return "-"
     text = fmt.format(v)
@@ -331,22 +343,25 @@ def survival_text(rows):
 
 
 #: planning columns shown in the terminal, plan.txt and the report (key, heading, format);
-#: "rms" and "target" are in K for a dish, Jy/beam for an array
+#: "rms" and "target" are in ``brightness_unit`` (K for a dish, Jy/beam for an array); times
+#: are seconds in the rows and shown in s, min or h by their size
 PLAN_COLUMNS = (("tracer", "tracer", "{}"), ("setup", "setup", "{}"),
                 ("frequency_ghz", "GHz", "{:.3f}"), ("beam_major_arcsec", "beam\"", "{:.3g}"),
                 ("largest_scale_arcsec", "LAS\"", "{:.3g}"),
-                ("channel_width_kms", "dv km/s", "{:.3g}"), ("time_h", "time h", "{:.3g}"),
+                ("channel_width_kms", "dv km/s", "{:.3g}"),
+                ("integration_time_s", "time", duration_text),
                 ("rms", "rms(time)", "{:.3g}"), ("target", "target", "{:.3g}"),
-                ("target_snr", "S/N", "{:g}"), ("time_per_pointing_h", "h/pointing", "{:.3g}"),
-                ("n_pointings", "pointings", "{}"), ("total_time_h", "total h", "{:.3g}"))
+                ("target_snr", "S/N", "{:g}"),
+                ("time_per_pointing_s", "time/pointing", duration_text),
+                ("n_pointings", "pointings", "{}"), ("total_time_s", "total time", duration_text))
 
 
 def plan_cells(rows):
     """The planning rows as table cells (strings, noise and targets with their unit)."""
     cells = []
     for r in rows:
-        unit = "K" if r.get("kind") == "single dish" else "Jy/beam"
-        r = dict(r, rms=r.get(f"rms_{unit}"), target=r.get(f"target_{unit}"))
+        unit = r.get("brightness_unit") or ("K" if r.get("kind") == "single dish"
+                                            else "Jy/beam")
         cells.append([cell_text(r, k, f) + (f" {unit}" if k in ("rms", "target")
                                             and r.get(k) is not None else "")
                       for k, _, f in PLAN_COLUMNS])

@@ -1,6 +1,6 @@
 """The Snapshot product: a 3-D grid of H2 density, kinetic temperature and velocity.
 
-Geometry (DESIGN.md): arrays are indexed ``[x, y, z]``; velocity has shape ``(3, nx, ny, nz)``.
+Geometry (docs/guide.md, "Conventions"): arrays are indexed ``[x, y, z]``; velocity has shape ``(3, nx, ny, nz)``.
 For the default line of sight ``"z"`` the observer looks along +z, the cell at z index 0 is
 nearest, and the radial velocity is +v_z (positive = receding). Sky pixel (i, j) is the
 snapshot column (x=i, y=j). Other lines of sight are views (see :mod:`synth.snapshot.views`).

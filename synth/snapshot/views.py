@@ -1,8 +1,8 @@
 """Views of a snapshot along another axis or after an arbitrary rotation.
 
 A view is a new :class:`~synth.snapshot.core.Snapshot` whose +z axis is the line of sight,
-so that the transfer always integrates along +z of the returned snapshot (DESIGN.md: the
-observer looks along +z, z index 0 is nearest, radial velocity = +v_z).
+so that the transfer always integrates along +z of the returned snapshot (docs/guide.md,
+"Conventions": the observer looks along +z, z index 0 is nearest, radial velocity = +v_z).
 
 Every view is a proper rotation (right-handed frame, never a mirror image). A view is
 described by the matrix ``R`` whose rows are the new unit vectors (x', y', z') written in the

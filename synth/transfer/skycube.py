@@ -3,7 +3,7 @@
 Pixel angle = cell size / distance (small-angle). The map centre (between the middle
 pixels for even sizes) sits at the source position (RA, Dec); RA---SIN / DEC--SIN
 projection with RA increasing to the left (CDELT1 < 0), a radio-velocity spectral axis
-(VRAD, m/s, LSRK) with RESTFRQ, BUNIT K (DESIGN.md, "Output").
+(VRAD, m/s, LSRK) with RESTFRQ, BUNIT K (docs/guide.md, "FITS headers").
 """
 
 from dataclasses import dataclass

@@ -149,8 +149,8 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
 
     Notes
     -----
-    T_B is the Rayleigh-Jeans-equivalent intensity minus J(T_bg) (DESIGN.md). See
-    :mod:`synth.transfer.kernel` for the profile and formal-solution equations.
+    T_B is the Rayleigh-Jeans-equivalent intensity minus J(T_bg) (docs/guide.md, "What T_B
+    means"). See :mod:`synth.transfer.kernel` for the profile and formal-solution equations.
     """
     return synthesize_products(snapshot, line, abundance, excitation, **kw).cube
 
