@@ -140,9 +140,9 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     corrected = np.empty((freqs.size, ny, nx))
     response = np.empty((freqs.size, ny, nx))
     rms, iters, outside, total = [], 0, 0.0, 0.0
+    data = np.asarray(sky.unmasked_data[:].value)          # finite: place_model made it
     for c, nu in enumerate(freqs):
-        plane = np.nan_to_num(np.asarray(sky.filled_data[c].value)) \
-            * jy_per_pixel_factor(sky, nu, canvas_geom)
+        plane = data[c] * jy_per_pixel_factor(sky, nu, canvas_geom)
         img, den, s_ref, k = _image_channel(plane, pointings, nu, opts, beam, rng, plane.shape)
         resp = s_ref * np.sqrt(den)
         outside += np.abs(plane[resp < 0.5]).sum()
@@ -253,15 +253,19 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
 
 
 def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps):
-    valid = response >= opts["pb_limit"]
-    flat = corrected * response
-    corr = np.where(valid, corrected, np.nan)
     unit = opts["unit"]
-    c_cube = new_observed_cube(out_sky, corr, dict(meta, PBCORR=True), beam, unit=unit)
-    f_cube = new_observed_cube(out_sky, flat, dict(meta, PBCORR=False), beam, unit=unit)
-    chosen = c_cube if opts["pb_correct"] else f_cube
+
+    def corrected_cube():
+        corr = np.where(response >= opts["pb_limit"], corrected, np.nan)
+        return new_observed_cube(out_sky, corr, dict(meta, PBCORR=True), beam, unit=unit)
+
+    def flat_cube():
+        return new_observed_cube(out_sky, corrected * response, dict(meta, PBCORR=False),
+                                 beam, unit=unit)
     if not with_maps:
-        return chosen
+        return corrected_cube() if opts["pb_correct"] else flat_cube()
+    c_cube, f_cube = corrected_cube(), flat_cube()
+    chosen = c_cube if opts["pb_correct"] else f_cube
     mid = corrected.shape[0] // 2
     with np.errstate(divide="ignore"):
         sens = np.where(response[mid] > 0, rms[mid] / response[mid], np.inf)

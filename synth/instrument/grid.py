@@ -170,7 +170,7 @@ def fourier_zoom(planes, my, mx, shift=None):
     if shift is None:
         shift = (0.5 * (ny / my - 1.0), 0.5 * (nx / mx - 1.0))
     if (my, mx) == (ny, nx) and shift == (0.0, 0.0):
-        return planes.copy()
+        return planes
     out = np.empty((nv, my, mx))
     ry = _phase_ramp(ny, shift[0])[:, None]
     rx = _phase_ramp(nx, shift[1])[None, :]
@@ -212,15 +212,17 @@ def _place(zoomed, grid, offset, beyond_box):
     """The zoomed model (v, my, mx) on ``grid`` (v, ny, nx): zoomed index = grid index - offset."""
     nv, my, mx = zoomed.shape
     ox, oy = offset
+    if (ox, oy) == (0, 0) and (grid.ny, grid.nx) == (my, mx):
+        return zoomed
     jx = np.arange(grid.nx) - ox
     jy = np.arange(grid.ny) - oy
     if beyond_box == "repeat":
         return zoomed[:, (jy % my)[:, None], (jx % mx)[None, :]]
     out = np.zeros((nv, grid.ny, grid.nx))
-    okx, oky = (jx >= 0) & (jx < mx), (jy >= 0) & (jy < my)
-    if okx.any() and oky.any():
-        out[:, np.nonzero(oky)[0][:, None], np.nonzero(okx)[0][None, :]] = \
-            zoomed[:, jy[oky][:, None], jx[okx][None, :]]
+    gx0, gx1 = max(0, ox), min(grid.nx, ox + mx)        # the overlap, as plain slices
+    gy0, gy1 = max(0, oy), min(grid.ny, oy + my)
+    if gx1 > gx0 and gy1 > gy0:
+        out[:, gy0:gy1, gx0:gx1] = zoomed[:, gy0 - oy:gy1 - oy, gx0 - ox:gx1 - ox]
     return out
 
 
