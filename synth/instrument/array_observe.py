@@ -141,8 +141,9 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     response = np.empty((freqs.size, ny, nx))
     rms, iters, outside, total = [], 0, 0.0, 0.0
     data = np.asarray(sky.unmasked_data[:].value)          # finite: place_model made it
+    to_jy = np.broadcast_to(jy_per_pixel_factor(sky, freqs, canvas_geom), freqs.shape)
     for c, nu in enumerate(freqs):
-        plane = data[c] * jy_per_pixel_factor(sky, nu, canvas_geom)
+        plane = data[c] * to_jy[c]
         img, den, s_ref, k = _image_channel(plane, pointings, nu, opts, beam, rng, plane.shape)
         resp = s_ref * np.sqrt(den)
         outside += np.abs(plane[resp < 0.5]).sum()
@@ -259,11 +260,11 @@ def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_
         corr = np.where(response >= opts["pb_limit"], corrected, np.nan)
         return new_observed_cube(out_sky, corr, dict(meta, PBCORR=True), beam, unit=unit)
 
-    def flat_cube():
-        return new_observed_cube(out_sky, corrected * response, dict(meta, PBCORR=False),
-                                 beam, unit=unit)
+    def flat_cube(inplace=False):
+        flat = np.multiply(corrected, response, out=corrected if inplace else None)
+        return new_observed_cube(out_sky, flat, dict(meta, PBCORR=False), beam, unit=unit)
     if not with_maps:
-        return corrected_cube() if opts["pb_correct"] else flat_cube()
+        return corrected_cube() if opts["pb_correct"] else flat_cube(inplace=True)
     c_cube, f_cube = corrected_cube(), flat_cube()
     chosen = c_cube if opts["pb_correct"] else f_cube
     mid = corrected.shape[0] // 2

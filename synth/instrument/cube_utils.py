@@ -97,7 +97,8 @@ def new_cube(template, data, unit, *, wcs=None, beam=None, meta_update=None):
     meta = {k: v for k, v in template.meta.items() if k not in _NOT_COPIED}
     meta.update(meta_update or {})
     wcs = (template.wcs if wcs is None else wcs).deepcopy()
-    cube = SpectralCube(np.asarray(data) * u.Unit(unit), wcs, meta=meta)
+    # the data become the cube's own (no copy): callers hand over fresh arrays
+    cube = SpectralCube(u.Quantity(np.asarray(data), u.Unit(unit), copy=False), wcs, meta=meta)
     if beam is None:
         beam = getattr(template, "_beam", None)
     return cube if beam is None else cube.with_beam(beam, raise_error_jybm=False)

@@ -346,7 +346,8 @@ def new_observed_cube(template, data, meta, beam, unit="Jy/beam"):
         data = data * beam.jtok(freqs * u.Hz).value[:, None, None]
         meta["NOISEUNI"] = "K"
         meta["NOISERMS"] = meta["NOISERMS"] * float(beam.jtok(np.median(freqs) * u.Hz).value)
-    cube = SpectralCube(data=data * u.Unit("K" if unit == "K" else "Jy/beam"),
+    cube = SpectralCube(data=u.Quantity(data, u.Unit("K" if unit == "K" else "Jy/beam"),
+                                        copy=False),
                         wcs=template.wcs.deepcopy(), meta=meta)
     return cube.with_beam(beam, raise_error_jybm=False)
 

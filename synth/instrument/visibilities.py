@@ -34,6 +34,10 @@ K_B_SI = k_B.si.value
 JY_SI = 1e-26
 
 
+#: the last uvw array handed to the gridder, with its sign-flipped copy (identity-checked)
+_UVW_CACHE = {}
+
+
 @dataclass(frozen=True)
 class ImageGeometry:
     """Pixel grid of a SIN-projected image relative to its phase centre.
@@ -71,10 +75,17 @@ class ImageGeometry:
                     center_y=ay * (npy // 2 - self.y0), epsilon=EPSILON, nthreads=NTHREADS)
 
     def ducc_uvw(self, uvw_m):
-        """uvw with u, v signs flipped to match the gridder's pixel axes."""
+        """uvw with u, v signs flipped to match the gridder's pixel axes. The last result is
+        kept for the same array (every channel of a pointing uses the same uvw)."""
+        signs = (np.sign(self.dx_rad), np.sign(self.dy_rad))
+        last = _UVW_CACHE.get("last")
+        if last is not None and last[0] is uvw_m and last[1] == signs:
+            return last[2]
         out = np.array(uvw_m, dtype=np.float64, order="C")
-        out[:, 0] *= np.sign(self.dx_rad)
-        out[:, 1] *= np.sign(self.dy_rad)
+        out[:, 0] *= signs[0]
+        out[:, 1] *= signs[1]
+        out.setflags(write=False)
+        _UVW_CACHE["last"] = (uvw_m, signs, out)
         return out
 
     def max_uv_wl(self):
