@@ -121,8 +121,10 @@ def _channel(channel_width, cube, freq):
 def _field(field_size, cube):
     from .analysis.matching import pixel_scale_arcsec
     if field_size is not None:
-        q = u.Quantity(field_size).to(u.arcsec)
-        return (q, q) if q.isscalar else (q[0], q[1])
+        q = np.atleast_1d(u.Quantity(field_size).to(u.arcsec))
+        if q.size not in (1, 2):
+            raise InstrumentError(f"field_size: {field_size!r}; give one or two angles")
+        return (q[0], q[-1])
     if cube is None:
         return None
     pix = pixel_scale_arcsec(cube)

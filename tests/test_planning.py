@@ -172,3 +172,14 @@ def test_plan_accepts_a_line():
     p = plan(_dish(), registry.Line("CO", "1-0"), channel_width=0.2 * u.km / u.s)
     assert p.frequency.to_value(u.GHz) == pytest.approx(115.2712018, rel=1e-8)
     assert p.line == "CO 1-0"
+
+
+def test_field_size_one_value_in_a_list():
+    """A map size given as a one-element list (as a config's single number becomes) is a
+    square field: the same pointings as the plain number."""
+    from synth.instrument.interferometer import Interferometer
+    arr = Interferometer("compact-16")
+    kw = dict(channel_width=0.5 * u.km / u.s, declination=-30 * u.deg)
+    a = plan(arr, 230.538 * u.GHz, field_size=[60] * u.arcsec, **kw)
+    b = plan(arr, 230.538 * u.GHz, field_size=60 * u.arcsec, **kw)
+    assert a.n_pointings == b.n_pointings > 1

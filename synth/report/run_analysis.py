@@ -201,7 +201,9 @@ def plan_config(conf, ideal, settings=None):
                          integration_time=None if hours is None else hours * u.hr,
                          emission_floor=float(settings["emission_floor"]), **kw)
             except InstrumentError as exc:
-                skipped.append({"setup": st["name"], "tracer": tname, "reason": str(exc)})
+                from ..observing import _config_message   # config keys, not API names
+                skipped.append({"setup": st["name"], "tracer": tname,
+                                "reason": _config_message(str(exc), "")})
                 continue
             plans.append(p)
             row = p.as_row()
