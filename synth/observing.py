@@ -143,19 +143,18 @@ def check_setups(conf, lines, sky_size_arcsec):
 
 
 #: what a layout error names, and the [[setup]] key that sets it
-_LAYOUT_KEYS = (("map size", "map_size_arcsec"), ("map centre offset", "map_offset_arcsec"),
-                ("pointing spacing", "pointing_spacing_arcsec"), ("pixel size", "pixel_arcsec"),
-                ("guard band", "guard_band_arcsec"), ("pointing pattern", "pointing_pattern"),
-                ("the mosaic needs", "max_pointings"))
+_LAYOUT_KEYS = (("map_size", "map_size_arcsec"), ("map_center", "map_offset_arcsec"),
+                ("pointing_spacing", "pointing_spacing_arcsec"), ("pixel", "pixel_arcsec"),
+                ("guard_band", "guard_band_arcsec"), ("pointing_pattern", "pointing_pattern"),
+                ("max_pointings", "max_pointings"))
 
 
 def _config_message(msg, where):
     """A layout error in config terms: "setup 'name': <config key>: ..."."""
     body = msg[len(where):] if msg.startswith(where) else msg
     for label, key in _LAYOUT_KEYS:
-        if body.startswith(label):
-            body = f"{key}: {body}" if label == "the mosaic needs" else \
-                f"{key}:{body[len(label) + 1:]}"
+        if body.startswith(label + ":"):
+            body = f"{key}:{body[len(label) + 1:]}"
             break
     return where + body
 

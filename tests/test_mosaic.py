@@ -276,11 +276,11 @@ def test_feathering_a_mosaic_keeps_the_dish_flux():
 # --- bad input -------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("kw, match", [
-    (dict(map_size=0.5 * u.arcsec), r"map size: 0\.5 arcsec is smaller than one beam"),
+    (dict(map_size=0.5 * u.arcsec), r"^map_size: 0\.5 arcsec is smaller than one beam"),
     (dict(pointing_spacing=40 * u.arcsec, map_size=60 * u.arcsec),
-     r"pointing spacing: 40 arcsec is larger than the primary beam \(25\.\d+ arcsec FWHM\)"),
+     r"^pointing_spacing: 40 arcsec is larger than the primary beam \(25\.\d+ arcsec FWHM\)"),
     (dict(map_size=300 * u.arcsec, max_pointings=50),
-     r"the mosaic needs \d+ pointings, more than the limit of 50"),
+     r"^max_pointings: the mosaic needs \d+ pointings, more than the limit of 50"),
     (dict(pointing_pattern="spiral"), "pointing_pattern"),
     (dict(pixel=5 * u.arcsec), "too coarse"),
 ])

@@ -171,7 +171,7 @@ def array_layout(cube, arrays, opts, mopts, dec_rad, freqs_hz, where="", model_s
     center, size = _model_box(cube) if cube is not None else ((0.0, 0.0), model_size)
     if mopts.pixel is not None and mopts.pixel > 0.5 * beam_fwhm:
         raise InstrumentError(
-            f"{where}pixel size: {mopts.pixel:.4g} arcsec is too coarse for the longest "
+            f"{where}pixel: {mopts.pixel:.4g} arcsec is too coarse for the longest "
             f"baseline ({b_max:.0f} m at {np.max(freqs_hz) / 1e9:.3f} GHz): the pixel must be "
             f"<= {0.5 * beam_fwhm:.4g} arcsec (Nyquist)")
     # without a primary beam (an idealisation for tests) one pointing sees everything

@@ -162,36 +162,36 @@ def map_layout(kind, *, model_center, model_size, field_fwhm, beam_fwhm, spacing
         Prefix of error messages (e.g. "setup 'wide': ").
     """
     from .grid import PIXELS_PER_BEAM
-    size = _pair(map_size, "map size", where)
-    center = _pair(map_center, "map centre offset", where) or tuple(model_center)
+    size = _pair(map_size, "map_size", where)
+    center = _pair(map_center, "map_center", where) or tuple(model_center)
     explicit = size is not None
     size = size or tuple(model_size)
     if min(size) <= 0:
-        raise InstrumentError(f"{where}map size: {size}; must be > 0 arcsec")
+        raise InstrumentError(f"{where}map_size: {size}; must be > 0 arcsec")
     if explicit and min(size) < beam_fwhm:
-        raise InstrumentError(f"{where}map size: {min(size):.4g} arcsec is smaller than one beam "
+        raise InstrumentError(f"{where}map_size: {min(size):.4g} arcsec is smaller than one beam "
                               f"({beam_fwhm:.4g} arcsec); map at least one beam")
     if kind == "array" and pattern not in POINTING_PATTERNS:
-        raise InstrumentError(f"{where}pointing pattern: {pattern!r} is not one of "
+        raise InstrumentError(f"{where}pointing_pattern: {pattern!r} is not one of "
                               f"{', '.join(POINTING_PATTERNS)}")
     step = spacing_default if spacing is None else float(spacing)
     if not (np.isfinite(step) and step > 0):
-        raise InstrumentError(f"{where}pointing spacing: {spacing!r}; must be > 0 arcsec")
+        raise InstrumentError(f"{where}pointing_spacing: {spacing!r}; must be > 0 arcsec")
     if step > field_fwhm:
-        raise InstrumentError(f"{where}pointing spacing: {step:.4g} arcsec is larger than the "
+        raise InstrumentError(f"{where}pointing_spacing: {step:.4g} arcsec is larger than the "
                               f"{'beam' if kind == 'dish' else 'primary beam'} "
                               f"({field_fwhm:.4g} arcsec FWHM); the map would have gaps")
     if pixel is None:
         pixel = beam_fwhm / PIXELS_PER_BEAM
     elif not (np.isfinite(pixel) and pixel > 0):
-        raise InstrumentError(f"{where}pixel size: {pixel!r}; must be > 0 arcsec")
+        raise InstrumentError(f"{where}pixel: {pixel!r}; must be > 0 arcsec")
     elif pixel > beam_fwhm / 2.0:
-        raise InstrumentError(f"{where}pixel size: {pixel:.4g} arcsec does not sample the beam "
+        raise InstrumentError(f"{where}pixel: {pixel:.4g} arcsec does not sample the beam "
                               f"({beam_fwhm:.4g} arcsec FWHM); use <= {beam_fwhm / 2:.4g}")
     if kind == "dish":
         guard = GUARD_BEAMS * beam_fwhm if guard_band is None else float(guard_band)
         if not (np.isfinite(guard) and guard >= 0):
-            raise InstrumentError(f"{where}guard band: {guard_band!r}; must be >= 0 arcsec")
+            raise InstrumentError(f"{where}guard_band: {guard_band!r}; must be >= 0 arcsec")
         grid = (size[0] + 2 * guard, size[1] + 2 * guard)
         offs = pointing_offsets(grid[0], grid[1], step, "rectangular")
         single, pat = False, "rectangular"
@@ -207,8 +207,8 @@ def map_layout(kind, *, model_center, model_size, field_fwhm, beam_fwhm, spacing
             grid = (size[0] + 2 * MARGIN_PB * field_fwhm, size[1] + 2 * MARGIN_PB * field_fwhm)
     if kind == "array" and offs.shape[0] > max_pointings:
         raise InstrumentError(
-            f"{where}the mosaic needs {offs.shape[0]} pointings, more than the limit of "
-            f"{max_pointings}; map a smaller area, or raise the pointing limit")
+            f"{where}max_pointings: the mosaic needs {offs.shape[0]} pointings, more than the "
+            f"limit of {max_pointings}; map a smaller area, or raise max_pointings")
     pointings = offs + np.asarray(center)[None, :]
     return MapLayout(kind=kind, center=center, size=size, pointings=pointings, spacing=step,
                      pattern=pat, grid_center=center, grid_size=grid, guard=guard,
