@@ -14,7 +14,6 @@ import tempfile
 import warnings
 
 import numpy as np
-import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 

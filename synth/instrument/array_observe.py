@@ -27,7 +27,7 @@ from .imaging import fit_restoring_beam, restore
 from .interferometer import (OBSERVE_OPTIONS, _channel_width_hz, _check_options, _dirty,
                              _pb_images, _psf, _quantity, _seed, antenna_phase_gains,
                              assemble_tracks, new_observed_cube)
-from .mapping import (MapOptions, ObservedMap, array_canvas, array_layout, map_options,
+from .mapping import (ObservedMap, array_canvas, array_layout, map_options,
                       pointing_hour_angles, primary_beam_fwhm_arcsec, sub_boxes)
 from .visibilities import (ImageGeometry, check_sampling, cube_frequencies_hz, cube_geometry,
                            jy_per_pixel_factor)
@@ -277,5 +277,3 @@ def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_
                        sensitivity=sens * u.Unit(unit), response=response[mid], sky=out_sky,
                        layout=layout)
 
-
-__all__ += ["MapOptions"]

@@ -1,11 +1,10 @@
-"""The Interferometer instrument and the interferometric observation of a sky cube.
+"""The Interferometer instrument and the visibility-level pieces of an observation.
 
-``observe_interferometric`` streams over channels: for each channel it multiplies the sky
-(Jy/pixel) by the primary beam of each dish pair, predicts visibilities with ducc0's
-gridder, adds radiometer noise, weights, grids the dirty image and, if asked, deconvolves
-with Högbom CLEAN and restores with a Gaussian fitted to the PSF main lobe. Several arrays
-are imaged jointly (their visibilities concatenated); a single dish in the list is feathered
-in afterwards (see :mod:`synth.instrument.combine`).
+:class:`Interferometer` (antennas, site, efficiencies, T_sys or an atmosphere model,
+polarisations); :func:`assemble_tracks` (every array's uv tracks toward a pointing with the
+radiometer noise of each row); antenna phase errors; prediction, dirty image and PSF of one
+pointing; the observed cube. The channel and pointing loop, mosaics and feathering are in
+:mod:`synth.instrument.array_observe` (``observe_interferometric`` here is its entry point).
 """
 
 from dataclasses import dataclass, field

@@ -25,12 +25,13 @@ import astropy.units as u
 
 from ..errors import InstrumentError
 from ..sky import ARCSEC_PER_RAD, C_M_S
-from .grid import BEYOND_BOX, SkyGrid, model_grid, observation_grid, place_model
+from .grid import BEYOND_BOX, SkyGrid, model_grid, observation_grid
 from .uv import SIDEREAL_RATE_RAD_S
 from .mosaic import MAX_POINTINGS, POINTING_PATTERNS, map_layout, nyquist_spacing_arcsec
 
 __all__ = ["MapOptions", "map_options", "ObservedMap", "array_layout", "dish_layout",
-           "array_canvas", "SUBIMAGE_RADIUS_PB"]
+           "array_canvas", "output_grid", "sub_boxes", "pointing_hour_angles",
+           "primary_beam_fwhm_arcsec", "longest_baseline_m", "SUBIMAGE_RADIUS_PB"]
 
 #: each pointing is imaged out to this many primary-beam FWHM from its centre
 #: (a Gaussian primary beam is 8e-4 there)
@@ -248,7 +249,3 @@ def pointing_hour_angles(opts, p, n, east_arcsec, dec_rad):
     shift = (p / n) * dt * SIDEREAL_RATE_RAD_S - d_ra
     return (ha + shift) * u.rad
 
-
-def sky_canvas(cube, canvas, zshape, offset, beyond_box):
-    """The model cube zoomed and placed on the canvas (original unit)."""
-    return place_model(cube, canvas, zshape, offset, beyond_box)

@@ -15,7 +15,6 @@ Run: python tests/bench/bench_mosaic.py [--quick]
 import argparse
 import json
 import os
-import resource
 import subprocess
 import sys
 import tempfile
