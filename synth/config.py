@@ -119,6 +119,8 @@ SETUP = {
                       "and interval (seeded by seed)"),
     "phase_interval_s": (_NUM, None, "array: interval of the phase errors, s (default: "
                          "sample_interval_s)"),
+    "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
+                           "random-group UVFITS file per pointing"),
     "zenith_opacity": (_NUM, None, "array: zenith opacity; with receiver_temperature_k, T_sys "
                        "follows each sample's elevation instead of tsys_k"),
     "receiver_temperature_k": (_NUM, None, "array: receiver temperature T_rx, K (with "
@@ -286,6 +288,9 @@ def _check_map_keys(st):
         raise ConfigError(f"{where}: phase_rms_deg = {st['phase_rms_deg']}; must be >= 0")
     if st["phase_interval_s"] is not None and not st["phase_interval_s"] > 0:
         raise ConfigError(f"{where}: phase_interval_s = {st['phase_interval_s']}; must be > 0")
+    if st["write_visibilities"] and st["kind"] != "array":
+        raise ConfigError(f"{where}: write_visibilities = true needs kind = \"array\" (a "
+                          "single dish records no visibilities)")
     tau = st["zenith_opacity"]
     if tau is not None:
         if not tau > 0:

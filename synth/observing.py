@@ -187,6 +187,9 @@ def observe_setups(conf, ideal, tmp, chash, progress, log):
         _write_observation(omap, run_path(tmp, f"{tname}_{sname}"), chash,
                            dict(_model_cards(cube), OBJECT=object_name(conf), TELESCOP=sname,
                                 SETUP=sname, TRACER=tname))
+        if st["kind"] == "array" and st["write_visibilities"]:
+            _write_visibilities(cube, inst, kw, run_path(tmp, f"{tname}_{sname}"),
+                                object_name(conf))
         entry = _obs_summary(omap.cube)
         entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
                      pixel_arcsec=float(abs(omap.cube.wcs.wcs.cdelt[0]) * 3600),
@@ -207,6 +210,22 @@ MODEL_CARDS = ("LINE", "EXCIT", "ABUND", "DISTPC", "LOS", "TBG")
 def _model_cards(cube):
     meta = {str(k).upper(): v for k, v in cube.meta.items()}
     return {k: meta[k] for k in MODEL_CARDS if k in meta}
+
+
+def _write_visibilities(cube, inst, kw, base, object_name):
+    """One UVFITS file per pointing: ``<base>_p<k>.uvfits`` (synth.instrument.uvfits)."""
+    from .instrument.array_observe import simulate_visibilities
+    from .instrument.observe import observe_spectral
+    from .instrument.uvfits import write_uvfits
+    arrays = [i for i in (inst if isinstance(inst, list) else [inst])
+              if type(i).__name__ == "Interferometer"]
+    opts = {k: v for k, v in kw.items() if k not in ("hanning", "channel_width",
+                                                     "dish_options", "pb_correct")}
+    spectral = observe_spectral(cube, kw)
+    for k, p in enumerate(simulate_visibilities(spectral, arrays, **opts)):
+        write_uvfits(f"{base}_p{k + 1}.uvfits", p["tracks"], p["vis"], p["freqs_hz"],
+                     p["arrays"], p["ra_deg"], p["dec_deg"], p["hour_angle_rad"],
+                     object_name=object_name, sample_time_s=p["sample_time_s"])
 
 
 def _write_observation(omap, base, chash, extra):

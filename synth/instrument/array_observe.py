@@ -25,15 +25,17 @@ from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
 from .imaging import fit_restoring_beam, restore
 from .interferometer import (OBSERVE_OPTIONS, _channel_width_hz, _check_options, _dirty,
-                             _pb_images, _psf, _quantity, _seed, antenna_phase_gains,
-                             assemble_tracks, new_observed_cube)
+                             _pb_images, _psf, _quantity, _seed, _visibilities,
+                             antenna_phase_gains, assemble_tracks, new_observed_cube)
+from .uv import SIDEREAL_RATE_RAD_S
 from .mapping import (ObservedMap, array_canvas, array_layout, map_options,
                       pointing_hour_angles, primary_beam_fwhm_arcsec, sub_boxes)
 from .visibilities import (ImageGeometry, check_sampling, cube_frequencies_hz, cube_geometry,
                            jy_per_pixel_factor)
 from .weighting import image_noise_jy, imaging_weights
 
-__all__ = ["observe_interferometric", "MAP_KEYS", "OUTSIDE_PB_WARN_FRACTION"]
+__all__ = ["observe_interferometric", "simulate_visibilities", "MAP_KEYS",
+           "OUTSIDE_PB_WARN_FRACTION"]
 
 #: keyword options that describe the mapped area (see synth.instrument.mapping.map_options)
 MAP_KEYS = ("map_size", "map_center", "pixel", "beyond_box", "pointing_pattern",
@@ -153,6 +155,61 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
         iters += k
     frac = outside / total if total > 0 else 0.0
     return corrected, response, np.asarray(rms), beam, iters, frac
+
+
+def simulate_visibilities(cube, instrument, *, noise=True, seed=None, integration_time=None,
+                          **kwargs):
+    """The visibilities an array setup records, pointing by pointing (no imaging).
+
+    Same options as :func:`observe_interferometric` (no single dish). Returns a list with one
+    dict per pointing: ``tracks`` (uvw, noise, antenna numbers), ``vis`` (rows x channels,
+    Jy), ``freqs_hz``, ``ra_deg``/``dec_deg`` (the pointing, the phase centre),
+    ``hour_angle_rad`` (per row) and ``arrays``. The noise is drawn as observe draws it, but
+    in channel-major order, so it is another realisation than observe's with the same seed.
+    """
+    arrays, dish = split_instruments(instrument)
+    if dish is not None:
+        raise InstrumentError("visibilities: a single dish has none; give arrays only")
+    opts, mopts, _ = _split_options(dict(kwargs))
+    seed = _seed(seed, noise)
+    _, ra0, dec_rad = cube_geometry(cube)
+    if opts.get("declination") is not None:
+        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
+    freqs = cube_frequencies_hz(cube)
+    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs,
+                                 nu_layout=reference_frequency(cube).to_value(u.Hz))
+    pb_max, _ = primary_beam_fwhm_arcsec(arrays, float(freqs.min()))
+    if not opts["primary_beam"]:
+        pb_max = np.inf
+    canvas, grid, zshape, offset, out_sl, half = array_canvas(cube, layout, pixel, pb_max,
+                                                              mopts.beyond_box)
+    sky = place_model(cube, canvas, zshape, offset, mopts.beyond_box)
+    pointings = _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs,
+                           integration_time, phase_seed=seed if seed is not None else 0)
+    if opts["rms"] is not None:
+        pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
+    rng = np.random.default_rng(seed) if noise else None
+    data = np.asarray(sky.unmasked_data[:].value)
+    geom0 = ImageGeometry(sky.shape[2], sky.shape[1], pointings[0][1].dx_rad,
+                          pointings[0][1].dy_rad, 0.0, 0.0)
+    to_jy = np.broadcast_to(jy_per_pixel_factor(sky, freqs, geom0), freqs.shape)
+    out = []
+    for p, (tracks, geom, box) in enumerate(pointings):
+        east, north = layout.pointings[p]
+        vis = np.empty((tracks.uvw_m.shape[0], freqs.size), dtype=np.complex128)
+        for c, nu in enumerate(freqs):
+            w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, "natural", 0.0)
+            pbs, _ = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
+            vis[:, c] = _visibilities(data[c][box] * to_jy[c], tracks, nu, geom, pbs, rng)
+        dec_p = np.degrees(dec_rad) + north / 3600.0
+        ra_p = np.degrees(ra0) + east / 3600.0 / max(np.cos(dec_rad), 1e-6)
+        h0 = pointing_hour_angles(opts, p, layout.n_pointings, east, dec_rad)[0]
+        ha = h0.to_value(u.rad) + tracks.time_s * SIDEREAL_RATE_RAD_S
+        out.append(dict(tracks=tracks, vis=vis, freqs_hz=freqs, ra_deg=float(ra_p),
+                        dec_deg=float(dec_p), hour_angle_rad=ha, arrays=arrays,
+                        sample_time_s=u.Quantity(opts["sample_interval"]).to_value(u.s)
+                        / layout.n_pointings))
+    return out
 
 
 def _warn_outside(frac, layout):

@@ -283,6 +283,13 @@ def _psf(tracks, nu_hz, weights, geom):
 
 
 def _dirty(sky, tracks, nu_hz, weights, geom, pbs, rng):
+    vis = _visibilities(sky, tracks, nu_hz, geom, pbs, rng)
+    return grid_dirty(vis, tracks.uvw_m, nu_hz, weights, geom)
+
+
+def _visibilities(sky, tracks, nu_hz, geom, pbs, rng):
+    """Predicted visibilities (Jy) of one channel of one pointing: each primary-beam group
+    sees the sky times its pair beam; antenna gains and thermal noise (if ``rng``) added."""
     if len(pbs) == 1:
         vis = predict(sky * pbs[0], tracks.uvw_m, nu_hz, geom)
     else:
@@ -293,7 +300,7 @@ def _dirty(sky, tracks, nu_hz, weights, geom, pbs, rng):
         vis = vis * tracks.gains
     if rng is not None:
         vis = add_thermal_noise(vis, tracks.sigma_jy, rng)
-    return grid_dirty(vis, tracks.uvw_m, nu_hz, weights, geom)
+    return vis
 
 
 def _check_options(opts):

@@ -130,6 +130,12 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
     return final if with_maps else final.cube
 
 
+def observe_spectral(cube, options):
+    """The cube after observe's spectral step (channel_width, hanning from ``options``)."""
+    return resample_spectral(cube, options.get("channel_width"), options.get("channel_start"),
+                             hanning=options.get("hanning", False))
+
+
 def _observe_dish_map(spectral, dish, layout, mopts, integration_time, rms, noise, seed, unit,
                       hanning):
     """An on-the-fly dish map: the model on the map's grid (area + guard band), then the
