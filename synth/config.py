@@ -119,6 +119,10 @@ SETUP = {
                       "and interval (seeded by seed)"),
     "phase_interval_s": (_NUM, None, "array: interval of the phase errors, s (default: "
                          "sample_interval_s)"),
+    "deconvolver": (str, "hogbom", 'array: "hogbom" (Högbom CLEAN) or "multiscale" '
+                    '(multi-scale CLEAN, for extended emission)'),
+    "scales_arcsec": (list, None, "array, multiscale: component FWHMs, arcsec (default: 0, "
+                      "then twice the beam doubled up to half the largest recoverable scale)"),
     "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
                            "random-group UVFITS file per pointing"),
     "zenith_opacity": (_NUM, None, "array: zenith opacity; with receiver_temperature_k, T_sys "
@@ -288,6 +292,14 @@ def _check_map_keys(st):
         raise ConfigError(f"{where}: phase_rms_deg = {st['phase_rms_deg']}; must be >= 0")
     if st["phase_interval_s"] is not None and not st["phase_interval_s"] > 0:
         raise ConfigError(f"{where}: phase_interval_s = {st['phase_interval_s']}; must be > 0")
+    if st["deconvolver"] not in ("hogbom", "multiscale"):
+        raise ConfigError(f"{where}: deconvolver = '{st['deconvolver']}'; valid: hogbom, "
+                          "multiscale")
+    sc = st["scales_arcsec"]
+    if sc is not None and not (sc and all(isinstance(v, (int, float)) and not
+                                          isinstance(v, bool) and v >= 0 for v in sc)):
+        raise ConfigError(f"{where}: scales_arcsec = {sc!r}; give component FWHMs >= 0 in "
+                          "arcsec, e.g. [0, 4, 8]")
     if st["write_visibilities"] and st["kind"] != "array":
         raise ConfigError(f"{where}: write_visibilities = true needs kind = \"array\" (a "
                           "single dish records no visibilities)")

@@ -74,3 +74,95 @@ def test_restore_gives_beam_peak_and_area():
     assert img.sum() / area_pix == pytest.approx(1.0, rel=1e-4)
     fit = fit_restoring_beam(restoring_kernel(beam, -pix, pix, shape=(129, 129)), -pix, pix)
     assert fit.major.to_value(u.arcsec) == pytest.approx(1.0, rel=1e-6)
+
+
+def _extended_dirty():
+    """A noiseless 2.4" Gaussian (3.6 restoring beams) seen by ring-24 at 230.5 GHz: dirty
+    image, PSF, restoring beam, pixel solid angle, and the shortest baseline (wavelengths)."""
+    from synth.instrument.interferometer import Interferometer, _psf, assemble_tracks
+    from synth.instrument.visibilities import cube_geometry, grid_dirty, predict
+    from synth.instrument.weighting import imaging_weights
+    from test_imaging import gaussian_sky
+    pix, nu = 0.2, 230.538e9
+    sky = gaussian_sky(128, 12.0, 1.0)[0]
+    geom, _, dec = cube_geometry(make_cube(sky[None], pix_arcsec=pix))
+    tr = assemble_tracks([Interferometer("ring-24")], dec,
+                         dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s), 1e6)
+    w = imaging_weights(tr.uvw_m, nu, tr.sigma_jy, geom, "natural")
+    dirty = grid_dirty(predict(sky, tr.uvw_m, nu, geom), tr.uvw_m, nu, w, geom)
+    psf = _psf(tr, nu, w, geom)
+    beam = fit_restoring_beam(psf, geom.dx_rad, geom.dy_rad)
+    q_min = np.hypot(tr.uvw_m[:, 0], tr.uvw_m[:, 1]).min() * nu / 299792458.0
+    return dirty, psf, beam, geom, q_min, pix
+
+
+def test_multiscale_recovers_extended_flux_better_than_hogbom():
+    """Multi-scale CLEAN (Cornwell 2008) of a noiseless 1 Jy Gaussian of FWHM 2.4" (3.6
+    beams), well inside the largest recoverable scale 0.6 lambda / B_min = 5.3" (Wilner &
+    Welch 1994), so the coverage samples all of it: restored flux within 5 % of 1 Jy, closer
+    than Högbom's (0.90 here); the residual rms at most the stopping threshold; a scale at
+    the largest recoverable scale, which the array barely measures, is left out instead of
+    diverging."""
+    from synth.instrument.multiscale import multiscale_clean
+    dirty, psf, beam, geom, q_min, pix = _extended_dirty()
+    las = 0.6 / q_min * 206264.806
+    assert 2.4 < 0.5 * las
+    sampled = 1.0
+    omega_pix = np.deg2rad(pix / 3600) ** 2
+    thr, bpx = 1e-4, beam.major.to_value(u.arcsec) / pix
+
+    def flux(model, res):
+        return restore(model, res, beam, geom.dx_rad, geom.dy_rad).sum() * omega_pix / beam.sr.value
+    m_h, r_h, _ = hogbom(dirty, psf, thr, 0.1, 20000)
+    m_m, r_m, n_m = multiscale_clean(dirty, psf, thr, [0, 2 * bpx, 4 * bpx], 0.1, 20000, bpx)
+    f_h, f_m = flux(m_h, r_h), flux(m_m, r_m)
+    assert f_m == pytest.approx(sampled, rel=0.05)
+    assert abs(f_m - sampled) < abs(f_h - sampled)
+    assert r_m.std() <= thr and n_m < 20000
+    m_x, r_x, _ = multiscale_clean(dirty, psf, thr, [0, 2 * bpx, 4 * bpx, las / pix], 0.1,
+                                   20000, bpx)
+    assert flux(m_x, r_x) == pytest.approx(f_m, rel=1e-9)
+
+
+def test_multiscale_with_points_only_is_hogbom():
+    """With the point scale alone, multi-scale CLEAN is Högbom CLEAN, component for
+    component (Cornwell 2008: Högbom is its one-scale case)."""
+    from synth.instrument.multiscale import multiscale_clean
+    dirty, psf, *_ = _extended_dirty()
+    m_h, r_h, n_h = hogbom(dirty, psf, 1e-3, 0.1, 5000)
+    m_m, r_m, n_m = multiscale_clean(dirty, psf, 1e-3, [0], 0.1, 5000)
+    assert n_m == n_h
+    np.testing.assert_allclose(m_m, m_h, atol=1e-12)
+    np.testing.assert_allclose(r_m, r_h, atol=1e-12)
+
+
+@pytest.mark.parametrize("kw, match", [
+    (dict(deconvolver="maxent"), "deconvolver='maxent' is not one of hogbom, multiscale"),
+    (dict(deconvolver="multiscale", scales=[0, 500] * u.arcsec), "scales: 500 arcsec is larger"),
+    (dict(deconvolver="multiscale", scales=[0, -1] * u.arcsec), "scales="),
+])
+def test_bad_deconvolver_options(kw, match):
+    from synth.errors import InstrumentError
+    from synth.instrument.interferometer import Interferometer, observe_interferometric
+    with pytest.raises(InstrumentError, match=match):
+        observe_interferometric(make_cube(np.zeros((1, 64, 64))), Interferometer("ring-24"),
+                                noise=False, deconvolve=True, pointing_pattern="single", **kw)
+
+
+def test_observe_with_multiscale_restores_more_extended_flux():
+    """Through observe (one pointing, natural weighting, noiseless, stopping at 0.1 of the
+    theoretical noise): multi-scale CLEAN restores more of a 2.4" Gaussian's 1 Jy than
+    Högbom, and at least 90 % of it; the DECONVER card says which ran."""
+    from test_imaging import gaussian_sky
+    cube = make_cube(gaussian_sky(128, 12.0, 1.0, nch=1), pix_arcsec=0.2)
+    kw = dict(noise=False, deconvolve=True, weighting="natural", threshold=0.1, niter=20000,
+              sample_interval=300 * u.s, pointing_pattern="single", pixel=0.2 * u.arcsec,
+              primary_beam=False)
+    arr = Interferometer("ring-24")
+    out = {}
+    for dec in ("hogbom", "multiscale"):
+        obs = observe_interferometric(cube, arr, deconvolver=dec, **kw)
+        omega_pix = np.deg2rad(0.2 / 3600) ** 2
+        out[dec] = obs.unmasked_data[0].value.sum() * omega_pix / obs.beam.sr.value
+        assert obs.meta["DECONVER"] == dec
+    assert out["multiscale"] > out["hogbom"] and out["multiscale"] > 0.9

@@ -18,8 +18,9 @@ import astropy.units as u
 import numpy as np
 
 from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
-from ..sky import ARCSEC_PER_RAD
+from ..sky import ARCSEC_PER_RAD, C_M_S
 from .clean import hogbom
+from .multiscale import default_scales, multiscale_clean
 from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
@@ -88,8 +89,12 @@ CLEAN_THREADS = 2
 
 
 def _clean_all(jobs, opts):
-    """Högbom CLEAN of [(dirty, psf, threshold)], on CLEAN_THREADS threads."""
+    """CLEAN of [(dirty, psf, threshold)] (Högbom, or multi-scale with ``opts["scales_px"]``),
+    on CLEAN_THREADS threads."""
     def one(job):
+        if opts["deconvolver"] == "multiscale":
+            return multiscale_clean(job[0], job[1], job[2], opts["scales_px"], opts["gain"],
+                                    opts["niter"], opts["beam_px"])
         return hogbom(job[0], job[1], job[2], opts["gain"], opts["niter"])
     if len(jobs) == 1 or CLEAN_THREADS == 1:
         return [one(j) for j in jobs]
@@ -129,6 +134,23 @@ def _image_channel(plane, pointings, nu, opts, beam, rng, shape):
     return corrected, den, float(np.median(noise)), iters
 
 
+def _scales_px(opts, beam, tracks, geom, freqs):
+    """Multi-scale CLEAN scales in pixels: given, or 0, then twice the restoring beam doubled
+    up to the largest recoverable scale 0.6 lambda / B_min (Wilner & Welch 1994) or a quarter
+    of the sub-image."""
+    pix = abs(geom.dx_rad)
+    if opts["scales"] is not None:
+        px = list(u.Quantity(opts["scales"]).to_value(u.rad) / pix)
+        if max(px) > max(geom.nx, geom.ny):
+            raise InstrumentError(f"scales: {max(px) * pix * 206264.806:.4g} arcsec is larger "
+                                  f"than the map ({geom.nx} x {geom.ny} pixels of "
+                                  f"{pix * 206264.806:.4g} arcsec)")
+        return [0.0] + [p for p in px if p > 0]
+    b_min = float(np.hypot(tracks.uvw_m[:, 0], tracks.uvw_m[:, 1]).min())
+    las_px = 0.6 * C_M_S / float(freqs.max()) / b_min / pix
+    return default_scales(beam.major.to_value(u.rad) / pix, las_px, min(geom.nx, geom.ny))
+
+
 def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     """The channel loop: corrected and flat-noise mosaics, response and noise per channel,
     restoring beam, CLEAN iterations, the sky fraction where the response is < 1/2."""
@@ -137,6 +159,9 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     t0, g0, _ = pointings[0]
     w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
     beam = fit_restoring_beam(_psf(t0, freqs[ref], w0, g0), g0.dx_rad, g0.dy_rad)
+    if opts["deconvolve"] and opts["deconvolver"] == "multiscale":
+        opts = dict(opts, scales_px=_scales_px(opts, beam, t0, g0, freqs),
+                    beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))
     canvas_geom = ImageGeometry(sky.shape[2], sky.shape[1], g0.dx_rad, g0.dy_rad, 0.0, 0.0)
     ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
     corrected = np.empty((freqs.size, ny, nx))
@@ -299,6 +324,7 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
                 PBLIMIT=float(opts["pb_limit"]),
                 NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
                 CLEANIT=int(iters), THEORMS=float(np.median(rms)),
+                DECONVER=str(opts["deconvolver"]) if opts["deconvolve"] else "none",
                 PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
     if dish is not None:
         sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,

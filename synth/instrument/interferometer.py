@@ -21,7 +21,10 @@ from .uv import SIDEREAL_RATE_RAD_S, elevation, uv_tracks
 from .visibilities import (add_thermal_noise, cube_frequencies_hz, grid_dirty, predict, visibility_sigma_jy)
 from .weighting import WEIGHTINGS, image_noise_jy
 
-__all__ = ["Interferometer", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
+#: deconvolvers: Högbom CLEAN, or multi-scale CLEAN (Cornwell 2008)
+DECONVOLVERS = ("hogbom", "multiscale")
+
+__all__ = ["DECONVOLVERS", "Interferometer", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
            "new_observed_cube", "Tracks", "antenna_phase_gains"]
 
 #: keyword options of observe_interferometric and their defaults
@@ -29,6 +32,7 @@ OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u
                        weighting="natural", robust=0.5, deconvolve=False, threshold=3.0,
                        niter=5000, gain=0.1, pb_correct=False, pb_limit=0.2,
                        primary_beam=True, bandwidth=None, phase_rms=0 * u.deg,
+                       deconvolver="hogbom", scales=None,
                        phase_interval=None,
                        sd_scale=1.0, rms=None, unit="Jy/beam")
 
@@ -314,6 +318,14 @@ def _check_options(opts):
                                   (" and gain in (0, 1]" if key == "gain" else ""))
     if not (isinstance(opts["niter"], (int, np.integer)) and opts["niter"] >= 0):
         raise InstrumentError(f"niter={opts['niter']!r} must be an integer >= 0")
+    if opts["deconvolver"] not in DECONVOLVERS:
+        raise InstrumentError(f"deconvolver={opts['deconvolver']!r} is not one of "
+                              f"{', '.join(DECONVOLVERS)}")
+    if opts["scales"] is not None:
+        sc = u.Quantity(opts["scales"])
+        if sc.unit.physical_type != "angle" or sc.ndim != 1 or not np.all(sc.value >= 0):
+            raise InstrumentError(f"scales={opts['scales']!r}: give component FWHMs as "
+                                  "angles >= 0, e.g. [0, 2, 4] * u.arcsec")
     phase = _quantity("phase_rms", opts["phase_rms"], u.rad, positive=False)
     if phase.value < 0:
         raise InstrumentError(f"phase_rms={opts['phase_rms']!r} must be >= 0")
