@@ -103,35 +103,50 @@ def _clean_all(jobs, opts):
         return list(pool.map(one, jobs))
 
 
-def _image_channel(plane, pointings, nu, opts, beam, rng, shape):
-    """One channel: every pointing imaged and combined. Returns (corrected, response^2-sum
-    den, median pointing noise, CLEAN iterations)."""
-    num, den = np.zeros(shape), np.zeros(shape)
-    noise, iters = [], 0
-    batch = max(1, CLEAN_THREADS)
-    for start in range(0, len(pointings), batch):
-        done = []
-        for tracks, geom, box in pointings[start:start + batch]:
-            w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
-                                opts["robust"])
-            pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
-            img = _dirty(plane[box], tracks, nu, w, geom, pbs, rng)
-            s_p = image_noise_jy(w, tracks.sigma_jy)
-            psf = _psf(tracks, nu, w, geom) if opts["deconvolve"] else None
-            done.append((img, psf, s_p, pb_eff, geom, box))
+def _prepare(plane, pointing, nu, opts, rng):
+    """Dirty image, PSF (if deconvolving), image noise and effective primary beam of one
+    pointing in one channel (draws the pointing's thermal noise from ``rng``)."""
+    tracks, geom, box = pointing
+    w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                        opts["robust"])
+    pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
+    img = _dirty(plane[box], tracks, nu, w, geom, pbs, rng)
+    psf = _psf(tracks, nu, w, geom) if opts["deconvolve"] else None
+    return img, psf, image_noise_jy(w, tracks.sigma_jy), pb_eff
+
+
+def _images(planes, pointings, freqs, opts, beam, rng):
+    """Every (channel, pointing) imaged, in channel-major order, CLEAN_THREADS at a time
+    (channels and pointings alike are cleaned side by side; the noise is drawn serially in
+    that fixed order, so the result does not depend on the threads). Yields, per channel,
+    (c, corrected, sum A^2/s^2, median pointing noise, CLEAN iterations)."""
+    n_p = len(pointings)
+    jobs = [(c, p) for c in range(freqs.size) for p in range(n_p)]
+    acc = {}
+    for start in range(0, len(jobs), max(1, CLEAN_THREADS)):
+        ready = []
+        for c, p in jobs[start:start + max(1, CLEAN_THREADS)]:
+            if c not in acc:
+                shape = planes(c).shape
+                acc[c] = [np.zeros(shape), np.zeros(shape), [], 0]
+            ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rng))
         if opts["deconvolve"]:
-            cleaned = _clean_all([(d[0], d[1], opts["threshold"] * d[2]) for d in done], opts)
-        for k, (img, _, s_p, pb_eff, geom, (sy, sx)) in enumerate(done):
+            cleaned = _clean_all([(r[2], r[3], opts["threshold"] * r[4]) for r in ready], opts)
+        for k, (c, p, img, _, s_p, pb_eff) in enumerate(ready):
+            geom, (sy, sx) = pointings[p][1], pointings[p][2]
+            a = acc[c]
             if opts["deconvolve"]:
                 model, res, n_it = cleaned[k]
                 img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
-                iters += n_it
-            num[sy, sx] += pb_eff * img / s_p**2
-            den[sy, sx] += pb_eff**2 / s_p**2
-            noise.append(s_p)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        corrected = np.where(den > 0, num / den, 0.0)
-    return corrected, den, float(np.median(noise)), iters
+                a[3] += n_it
+            a[0][sy, sx] += pb_eff * img / s_p**2
+            a[1][sy, sx] += pb_eff**2 / s_p**2
+            a[2].append(s_p)
+            if len(a[2]) == n_p:
+                num, den, noise, iters = acc.pop(c)
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    corrected = np.where(den > 0, num / den, 0.0)
+                yield c, corrected, den, float(np.median(noise)), iters
 
 
 def _scales_px(opts, beam, tracks, geom, freqs):
@@ -166,20 +181,21 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
     corrected = np.empty((freqs.size, ny, nx))
     response = np.empty((freqs.size, ny, nx))
-    rms, iters, outside, total = [], 0, 0.0, 0.0
+    rms, iters, outside, total = np.empty(freqs.size), 0, 0.0, 0.0
     data = np.asarray(sky.unmasked_data[:].value)          # finite: place_model made it
     to_jy = np.broadcast_to(jy_per_pixel_factor(sky, freqs, canvas_geom), freqs.shape)
-    for c, nu in enumerate(freqs):
-        plane = data[c] * to_jy[c]
-        img, den, s_ref, k = _image_channel(plane, pointings, nu, opts, beam, rng, plane.shape)
+    def planes(c):
+        return data[c] * to_jy[c]
+    for c, img, den, s_ref, k in _images(planes, pointings, freqs, opts, beam, rng):
+        plane = planes(c)
         resp = s_ref * np.sqrt(den)
         outside += np.abs(plane[resp < 0.5]).sum()
         total += np.abs(plane).sum()
         corrected[c], response[c] = img[out_sl], resp[out_sl]
-        rms.append(s_ref)
+        rms[c] = s_ref
         iters += k
     frac = outside / total if total > 0 else 0.0
-    return corrected, response, np.asarray(rms), beam, iters, frac
+    return corrected, response, rms, beam, iters, frac
 
 
 def simulate_visibilities(cube, instrument, *, noise=True, seed=None, integration_time=None,
