@@ -35,6 +35,11 @@ OTHERS = {
     "observe": ("bench_observe.py", [], ["16"], [
         ("observe / bare gridder calls", rf"\) {_NUM} s; ratio {_NUM} \(target (<=|>=) {_NUM}\)"),
     ]),
+    "deconvolve": ("bench_deconvolve.py", [], ["--quick"], [
+        ("multi-scale / Högbom CLEAN time per channel", rf"multi-scale / Högbom = {_NUM}"),
+        ("CLEAN channel loop, 1 thread / 2 threads",
+         rf"speed-up {_NUM} \(target (<=|>=) {_NUM}\)"),
+    ]),
     "mosaic": ("bench_mosaic.py", [], ["--quick"], [
         ("time per pointing, 7 pointings / 1",
          rf"7-pointing mosaic / one pointing .*: {_NUM} \(target (<=|>=) {_NUM}\)"),
