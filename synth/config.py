@@ -142,6 +142,8 @@ ANALYSIS = {
     "emission_floor": (_NUM, 0.01, "voxels above this fraction of the peak count as emitting"),
     "time_h": (_NUM, None, "planning: hours for the noise column (default: each setup's)"),
     "spectra_positions": (list, None, "spectra pixels [[x, y], ...] (default: centre, brightest)"),
+    "noise_realisations": (int, 1, "survival metrics over this many seeded noise realisations "
+                           "(mean and _std columns); 1 = the one observation"),
 }
 SCHEMA = {"cloud": CLOUD, "sky": SKY, "channels": CHANNELS, "tracer": TRACER,
           "output": OUTPUT, "setup": SETUP, "analysis": ANALYSIS}
@@ -414,6 +416,9 @@ def _check_analysis(an):
     for key, ok, valid in checks:
         if not ok:
             raise ConfigError(f"[analysis].{key} must be {valid}, got {an[key]}")
+    if an["noise_realisations"] < 1:
+        raise ConfigError(f"[analysis].noise_realisations must be >= 1 (1 = none repeated), "
+                          f"got {an['noise_realisations']}")
     for pos in an["spectra_positions"] or []:
         if not (isinstance(pos, list) and len(pos) == 2
                 and all(isinstance(v, int) and not isinstance(v, bool) for v in pos)):

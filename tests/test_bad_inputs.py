@@ -204,6 +204,8 @@ CONFIG_CASES = [
      "setup 'arr': pixel_arcsec: 20 arcsec is too coarse"),
     ("fast-removed", _setup(fast=True), ".fast: removed: the approximate Fourier-plane path"),
     ("n-pol-three", _setup(n_pol=3), "setup 'arr': n_pol = 3; valid: 1 or 2"),
+    ("realisations-zero", _set(["analysis"], {"noise_realisations": 0}),
+     "[analysis].noise_realisations must be >= 1"),
     ("unknown-deconvolver", _setup(deconvolver="maxent"),
      "setup 'arr': deconvolver = 'maxent'; valid: hogbom, multiscale"),
     ("visibilities-from-a-dish", _setup(_kind="dish", write_visibilities=True),

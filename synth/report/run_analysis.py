@@ -26,7 +26,7 @@ __all__ = ["run_analysis", "analysis_settings", "assess_observation", "plan_conf
 
 #: [analysis] defaults when a config dict has no such section
 _DEFAULTS = {"target_snr": 5.0, "percentile": 50.0, "emission_floor": 0.01, "time_h": None,
-             "spectra_positions": None}
+             "spectra_positions": None, "noise_realisations": 1}
 
 
 def analysis_settings(conf):
@@ -238,9 +238,43 @@ def _write_plan(rows, tmp):
     return clean
 
 
-def _survival_files(results, tmp):
+def _spreads(conf, ideal, observed, settings):
+    """{(tracer, setup): Realisations} when [analysis].noise_realisations > 1 (setups with
+    noise only): each re-observed with seeds from the setup's seed + 1000 on."""
+    n = int(settings.get("noise_realisations") or 1)
+    if n < 2:
+        return {}
+    from ..analysis.realisations import assess_realisations
+    from ..observing import _dish_options, make_instrument, observe_options
+    setups = {st["name"]: st for st in conf["setup"]}
+    out = {}
+    for (tname, sname) in observed:
+        st = setups[sname]
+        if not st["noise"]:
+            continue
+        inst, kw = make_instrument(st), observe_options(st, conf["sky"]["beyond_box"])
+        kw.pop("seed", None)
+        kw.pop("noise", None)
+        if st["combine_with"]:
+            inst = [inst] + [make_instrument(setups[o]) for o in st["combine_with"]]
+            dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
+            if dish:
+                kw["dish_options"] = _dish_options(setups[dish[0]])
+        out[(tname, sname)] = assess_realisations(
+            ideal[tname], inst, n, seed=int(st["seed"]) + 1000,
+            emission_floor=float(settings["emission_floor"]), **kw)
+    return out
+
+
+def _survival_files(results, tmp, spreads=None):
     from ..analysis.survival import matrix_csv, matrix_json_rows, survival_matrix
     rows = survival_matrix(results)
+    for row in rows:
+        r = (spreads or {}).get((row["tracer"], row["setup"]))
+        if r is not None:
+            row.update({f"{k}_mean": v for k, v in r.mean.items()})
+            row.update({f"{k}_std": v for k, v in r.std.items()})
+            row["noise_realisations"] = r.n
     write_text(matrix_csv(rows), run_path(tmp, "survival.csv"))
     clean = matrix_json_rows(rows)
     write_json(clean, run_path(tmp, "survival.json"))
@@ -297,7 +331,8 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
         out["tracers"][tname] = entry
     out["uv"] = {s: f"uv_{s}.png" for s, st in setups.items()
                  if st["kind"] == "array" and os.path.exists(run_path(tmp, f"uv_{s}.png"))}
-    out["survival"] = _survival_files(results, tmp) if results else []
+    spreads = _spreads(conf, ideal, observed, settings) if results else {}
+    out["survival"] = _survival_files(results, tmp, spreads) if results else []
     out["files"] += ["survival.csv", "survival.json"] if results else []
     _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)
     out["plan"] = _write_plan(rows, tmp) if setups else []
