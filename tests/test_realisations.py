@@ -65,3 +65,22 @@ def test_run_adds_mean_and_spread_columns(tmp_path):
     assert int(row["noise_realisations"]) == 3
     assert float(row["flux_fraction_std"]) > 0
     assert float(row["flux_fraction_mean"]) == pytest.approx(1.0, abs=0.2)
+
+
+def test_recovery_figure_draws_the_spread():
+    """The recovery figure of a setup with realisations carries error bars whose half-lengths
+    are the recovered power's standard deviation over the realisations."""
+    from synth.analysis.plots import recovery_figure
+    from synth.analysis.survival import assess
+    from synth.instrument.observe import observe
+    cube, dish = _faint(), SingleDish(diameter=40 * u.m, tsys=150 * u.K)
+    r = assess_realisations(cube, dish, 4, integration_time=60 * u.s, guard_band=0 * u.arcsec)
+    omap = observe(cube, dish, integration_time=60 * u.s, seed=9, guard_band=0 * u.arcsec,
+                   with_maps=True)
+    m = assess(omap.sky, omap.corrected)
+    fig = recovery_figure({"d": m}, spreads={"d": r})
+    bars = [c for c in fig.axes[0].collections if c.__class__.__name__ == "LineCollection"]
+    assert bars
+    half = [abs(seg[1][1] - seg[0][1]) / 2 for seg in bars[0].get_segments()]
+    shown = set(np.round(half, 9))
+    assert shown <= set(np.round(r.recovered_power_std, 9)) and len(shown) > 1

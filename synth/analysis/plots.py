@@ -154,9 +154,11 @@ def moment_figure(survival, path=None, title="", observed=None):
     return _finish(fig, path)
 
 
-def recovery_figure(survivals, path=None, title="Recovered fraction of power per scale"):
+def recovery_figure(survivals, path=None, title="Recovered fraction of power per scale",
+                    spreads=None):
     """Recovered power (the noise-unbiased cross-power estimate) against angular scale for
-    several {label: Survival}."""
+    several {label: Survival}; ``spreads`` ({label: Realisations}) adds error bars (the
+    standard deviation over noise realisations) at the same scales."""
     fig = Figure(figsize=(6.5, 4.5))
     ax = fig.subplots(gridspec_kw=dict(left=0.12, right=0.97, bottom=0.12, top=0.92))
     for label, m in survivals.items():
@@ -167,6 +169,13 @@ def recovery_figure(survivals, path=None, title="Recovered fraction of power per
         line, = ax.plot(np.asarray(t["scale_arcsec"])[order],
                         np.asarray(t["recovered_power"])[order], marker="o", ms=3,
                         label=str(label))
+        r = (spreads or {}).get(label)
+        if r is not None:
+            keep = np.isin(np.round(r.scale_arcsec, 9),
+                           np.round(np.asarray(t["scale_arcsec"]), 9))
+            ax.errorbar(r.scale_arcsec[keep], r.recovered_power_mean[keep],
+                        yerr=r.recovered_power_std[keep], fmt="none",
+                        ecolor=line.get_color(), elinewidth=1, capsize=2)
         half = m.half_recovery_scale.value
         if np.isfinite(half):
             ax.axvline(half, color=line.get_color(), ls=":", lw=1)

@@ -307,6 +307,7 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
     out = {"settings": settings, "date": datetime.now(timezone.utc).isoformat(timespec="seconds"),
            "tracers": {}, "files": []}
     results = {}
+    spreads = _spreads(conf, ideal, observed, settings) if observed else {}
     for tname, cube in ideal.items():
         positions = spectra_positions(cube, settings["spectra_positions"])
         entry = {"spectra_positions": [list(p) for p in positions], "setups": {},
@@ -325,13 +326,15 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
         if figures and entry["setups"]:
             from ..analysis.plots import recovery_figure
             mine = {s: results[(tname, s)] for s in entry["setups"]}
+            spread = {s: spreads[(tname, s)] for s in entry["setups"] if (tname, s) in spreads}
             entry["figures"]["recovery"] = _save(
-                recovery_figure(mine, title=f"{tname}: recovered power per scale"),
+                recovery_figure(mine, title=f"{tname}: recovered power per scale"
+                                + (" (error bars: spread over noise realisations)"
+                                   if spread else ""), spreads=spread),
                 run_path(tmp, f"{tname}_recovery.png"))
         out["tracers"][tname] = entry
     out["uv"] = {s: f"uv_{s}.png" for s, st in setups.items()
                  if st["kind"] == "array" and os.path.exists(run_path(tmp, f"uv_{s}.png"))}
-    spreads = _spreads(conf, ideal, observed, settings) if results else {}
     out["survival"] = _survival_files(results, tmp, spreads) if results else []
     out["files"] += ["survival.csv", "survival.json"] if results else []
     _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)
