@@ -123,6 +123,8 @@ SETUP = {
                     '(multi-scale CLEAN, for extended emission)'),
     "scales_arcsec": (list, None, "array, multiscale: component FWHMs, arcsec (default: 0, "
                       "then twice the beam doubled up to half the largest recoverable scale)"),
+    "clean_mask_sigma": (_NUM, None, "array: CLEAN only inside a mask grown from the dirty "
+                         "image at this many sigma (dilated by a beam); default no mask"),
     "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
                            "random-group UVFITS file per pointing"),
     "zenith_opacity": (_NUM, None, "array: zenith opacity; with receiver_temperature_k, T_sys "
@@ -302,6 +304,8 @@ def _check_map_keys(st):
                                           isinstance(v, bool) and v >= 0 for v in sc)):
         raise ConfigError(f"{where}: scales_arcsec = {sc!r}; give component FWHMs >= 0 in "
                           "arcsec, e.g. [0, 4, 8]")
+    if st["clean_mask_sigma"] is not None and not st["clean_mask_sigma"] > 0:
+        raise ConfigError(f"{where}: clean_mask_sigma = {st['clean_mask_sigma']}; must be > 0")
     if st["write_visibilities"] and st["kind"] != "array":
         raise ConfigError(f"{where}: write_visibilities = true needs kind = \"array\" (a "
                           "single dish records no visibilities)")

@@ -92,7 +92,8 @@ def observe_options(st, beyond_box="empty"):
               sample_interval=st["sample_interval_s"] * u.s, weighting=st["weighting"],
               robust=st["robust"], deconvolve=st["deconvolve"],
               pb_limit=st["primary_beam_cutoff"], pb_correct=True,
-              phase_rms=st["phase_rms_deg"] * u.deg, deconvolver=st["deconvolver"])
+              phase_rms=st["phase_rms_deg"] * u.deg, deconvolver=st["deconvolver"],
+              mask_sigma=st["clean_mask_sigma"])
     if st["scales_arcsec"] is not None:
         kw["scales"] = st["scales_arcsec"] * u.arcsec
     if st["phase_interval_s"] is not None:

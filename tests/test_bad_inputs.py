@@ -206,6 +206,8 @@ CONFIG_CASES = [
     ("n-pol-three", _setup(n_pol=3), "setup 'arr': n_pol = 3; valid: 1 or 2"),
     ("realisations-zero", _set(["analysis"], {"noise_realisations": 0}),
      "[analysis].noise_realisations must be >= 1"),
+    ("mask-sigma-zero", _setup(clean_mask_sigma=0.0),
+     "setup 'arr': clean_mask_sigma = 0.0; must be > 0"),
     ("unknown-deconvolver", _setup(deconvolver="maxent"),
      "setup 'arr': deconvolver = 'maxent'; valid: hogbom, multiscale"),
     ("visibilities-from-a-dish", _setup(_kind="dish", write_visibilities=True),

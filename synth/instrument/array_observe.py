@@ -19,7 +19,7 @@ import numpy as np
 
 from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
 from ..sky import ARCSEC_PER_RAD, C_M_S
-from .clean import hogbom
+from .clean import grown_mask, hogbom
 from .multiscale import default_scales, multiscale_clean
 from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
@@ -89,13 +89,17 @@ CLEAN_THREADS = 2
 
 
 def _clean_all(jobs, opts):
-    """CLEAN of [(dirty, psf, threshold)] (Högbom, or multi-scale with ``opts["scales_px"]``),
-    on CLEAN_THREADS threads."""
+    """CLEAN of [(dirty, psf, threshold, noise)] (Högbom, or multi-scale with
+    ``opts["scales_px"]``), on CLEAN_THREADS threads; with ``opts["mask_sigma"]`` only inside
+    a mask grown from each dirty image (at that many sigma, dilated by one beam)."""
     def one(job):
+        mask = None
+        if opts["mask_sigma"] is not None:
+            mask = grown_mask(job[0], job[3], float(opts["mask_sigma"]), opts["beam_px"])
         if opts["deconvolver"] == "multiscale":
             return multiscale_clean(job[0], job[1], job[2], opts["scales_px"], opts["gain"],
-                                    opts["niter"], opts["beam_px"])
-        return hogbom(job[0], job[1], job[2], opts["gain"], opts["niter"])
+                                    opts["niter"], opts["beam_px"], mask)
+        return hogbom(job[0], job[1], job[2], opts["gain"], opts["niter"], mask)
     if len(jobs) == 1 or CLEAN_THREADS == 1:
         return [one(j) for j in jobs]
     from concurrent.futures import ThreadPoolExecutor
@@ -131,7 +135,8 @@ def _images(planes, pointings, freqs, opts, beam, rng):
                 acc[c] = [np.zeros(shape), np.zeros(shape), [], 0]
             ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rng))
         if opts["deconvolve"]:
-            cleaned = _clean_all([(r[2], r[3], opts["threshold"] * r[4]) for r in ready], opts)
+            cleaned = _clean_all([(r[2], r[3], opts["threshold"] * r[4], r[4]) for r in ready],
+                                 opts)
         for k, (c, p, img, _, s_p, pb_eff) in enumerate(ready):
             geom, (sy, sx) = pointings[p][1], pointings[p][2]
             a = acc[c]
@@ -174,9 +179,9 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     t0, g0, _ = pointings[0]
     w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
     beam = fit_restoring_beam(_psf(t0, freqs[ref], w0, g0), g0.dx_rad, g0.dy_rad)
+    opts = dict(opts, beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))
     if opts["deconvolve"] and opts["deconvolver"] == "multiscale":
-        opts = dict(opts, scales_px=_scales_px(opts, beam, t0, g0, freqs),
-                    beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))
+        opts["scales_px"] = _scales_px(opts, beam, t0, g0, freqs)
     canvas_geom = ImageGeometry(sky.shape[2], sky.shape[1], g0.dx_rad, g0.dy_rad, 0.0, 0.0)
     ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
     corrected = np.empty((freqs.size, ny, nx))
@@ -341,6 +346,7 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
                 NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
                 CLEANIT=int(iters), THEORMS=float(np.median(rms)),
                 DECONVER=str(opts["deconvolver"]) if opts["deconvolve"] else "none",
+                MASKSIG=float(opts["mask_sigma"]) if opts["mask_sigma"] is not None else 0.0,
                 PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
     if dish is not None:
         sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,

@@ -32,7 +32,7 @@ OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u
                        weighting="natural", robust=0.5, deconvolve=False, threshold=3.0,
                        niter=5000, gain=0.1, pb_correct=False, pb_limit=0.2,
                        primary_beam=True, bandwidth=None, phase_rms=0 * u.deg,
-                       deconvolver="hogbom", scales=None,
+                       deconvolver="hogbom", scales=None, mask_sigma=None,
                        phase_interval=None,
                        sd_scale=1.0, rms=None, unit="Jy/beam")
 
@@ -326,6 +326,11 @@ def _check_options(opts):
         if sc.unit.physical_type != "angle" or sc.ndim != 1 or not np.all(sc.value >= 0):
             raise InstrumentError(f"scales={opts['scales']!r}: give component FWHMs as "
                                   "angles >= 0, e.g. [0, 2, 4] * u.arcsec")
+    ms = opts["mask_sigma"]
+    if ms is not None and (isinstance(ms, bool) or not isinstance(ms, (int, float))
+                           or not ms > 0):
+        raise InstrumentError(f"mask_sigma={ms!r} must be a number > 0 (the mask's level in "
+                              "units of the image noise)")
     phase = _quantity("phase_rms", opts["phase_rms"], u.rad, positive=False)
     if phase.value < 0:
         raise InstrumentError(f"phase_rms={opts['phase_rms']!r} must be >= 0")

@@ -55,7 +55,7 @@ def _conv(a, b):
 
 
 @njit(cache=True, nogil=True)
-def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx):
+def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx, win):
     ns, ny, nx = res.shape
     it = 0
     while it < niter:
@@ -63,7 +63,7 @@ def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx):
         for k in range(ns):
             for y in range(ny):
                 for x in range(nx):
-                    a = abs(res[k, y, x])
+                    a = abs(res[k, y, x]) * win[y, x]
                     if k == 0 and a > top0:
                         top0 = a
                     v = a * bias[k]
@@ -83,10 +83,12 @@ def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx):
     return it
 
 
-def multiscale_clean(dirty, psf, threshold, scales, gain=0.1, niter=10000, beam_px=None):
+def multiscale_clean(dirty, psf, threshold, scales, gain=0.1, niter=10000, beam_px=None,
+                     mask=None):
     """Multi-scale CLEAN of ``dirty`` (ny, nx) with ``psf`` (2ny, 2nx; peak 1 at its
     shape // 2 pixel) and ``scales`` (FWHM in pixels, the first 0). ``beam_px``, the
     restoring beam's FWHM in pixels, lets scales the array barely measures be left out.
+    Components are placed only where ``mask`` (bool, optional) is True.
     Returns (model image, point-scale residual, components)."""
     scales = [float(s) for s in scales]
     ny, nx = dirty.shape
@@ -127,11 +129,12 @@ def multiscale_clean(dirty, psf, threshold, scales, gain=0.1, niter=10000, beam_
     bias = np.array([(1.0 - SCALE_BIAS * s / s_max) / np.sqrt(peak[k] / peak[0])
                      for k, s in enumerate(scales)])
     amps = np.zeros((ns, ny, nx))
+    win = np.ones((ny, nx)) if mask is None else np.asarray(mask, dtype=np.float64)
     n, start = 0, float(np.abs(res[0]).max())
     while n < niter:
         step = min(REFRESH, niter - n)
         done = _ms_kernel(res, cross, peak, bias, amps, float(gain), float(threshold), step,
-                          py // 2, px // 2)
+                          py // 2, px // 2, win)
         n += done
         if done < step or float(np.abs(res[0]).max()) > 3.0 * start:
             break          # converged, or diverging (a scale the data cannot constrain)
