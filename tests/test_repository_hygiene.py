@@ -8,8 +8,9 @@ Rule (DEVELOPERS.md, "Conventions worth repeating"): no tracked file may contain
   (``C:\\Users\\``). System interfaces that exist on every Linux machine (``/proc/self``,
   ``/dev/null``, ``/usr/bin/...``, ``/usr/bin/env``) are allowed; so are URLs (a path after
   ``://`` or after a host name is not a path of this machine) and units such as ``km/s``;
-- a reference to a file outside the repository: a relative path that climbs into a sibling
-  folder (``../shared``), or a Markdown file named in text (``NOTES.md``) that is not a tracked
+- a reference to a file outside the repository: a relative path that climbs out of the
+  repository into the steering notes' sibling folder, or a Markdown file named in text
+  (``NOTES.md``) that is not a tracked
   file of the repository (the check-value notes once cited that way are now
   ``docs/references.md``).
 
@@ -31,7 +32,8 @@ _ROOTS = ("home", "root", "work", "tmp", "mnt", "scratch", "Users", "var/folders
 MACHINE_PATH = re.compile(
     r"(?<![\w.:/~$-])/(?:" + "|".join(re.escape(r) for r in _ROOTS) + r")/"
     r"|\b[A-Za-z]:\\\\?Users\\")
-OUTSIDE = re.compile(r"\.\./shared\b|\b" + "REFERENCES" + r"\.md\b")
+_SIBLING = "sha" + "red"
+OUTSIDE = re.compile(r"\.\./" + _SIBLING + r"\b|\b" + "REFERENCES" + r"\.md\b")
 
 # Files owned by a concurrent piece of work (molecular data and excitation) that still carry
 # the old mention; they are fixed there. Remove each entry once that work is merged.
@@ -55,7 +57,7 @@ def _offences(text):
     ("data in /home/someone/cloud.npz", True),
     ("see /work/x/notes", True),
     ("written to /tmp/run", True),
-    ("B0 from ../shared/notes", True),
+    ("B0 from " + "../" + _SIBLING + "/notes", True),
     ("values in " + "REFERENCES" + ".md", True),
     (r"C:\Users\someone\run", True),
     ("with open('/proc/self/status')", False),

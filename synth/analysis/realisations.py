@@ -45,13 +45,6 @@ class Realisations:
         return row
 
 
-def _recorded_noise(cube):
-    """The observation's NOISERMS in its NOISEUNI (the run's choice of noise)."""
-    import astropy.units as u
-    meta = {str(k).upper(): v for k, v in cube.meta.items()}
-    return float(meta["NOISERMS"]) * u.Unit(str(meta.get("NOISEUNI") or cube.unit))
-
-
 def _check_n(n):
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < MIN_REALISATIONS:
         raise InstrumentError(f"realisations: {n!r}; give an integer >= {MIN_REALISATIONS} "
@@ -65,7 +58,7 @@ def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, **o
 
     ``observe_kw`` are :func:`synth.observe` options (the noise must be on)."""
     from ..instrument.observe import observe
-    from .survival import assess
+    from .survival import assess_map
     n = _check_n(n)
     if observe_kw.get("noise") is False:
         raise InstrumentError("realisations: noise = False gives n identical observations; "
@@ -74,9 +67,7 @@ def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, **o
     rows, curves, scales = [], [], None
     for i in range(n):
         omap = observe(cube, instrument, seed=int(seed) + i, with_maps=True, **observe_kw)
-        m = assess(omap.sky, omap.corrected, noise=_recorded_noise(omap.corrected),
-                   response=omap.response if omap.layout.kind == "array" else None,
-                   emission_floor=emission_floor)
+        m = assess_map(omap, emission_floor)
         rows.append(m.as_row())
         t = m.recovery
         scales = np.asarray(t["scale_arcsec"])

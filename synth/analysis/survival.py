@@ -22,7 +22,7 @@ from .matching import (kernel_between, beam_text, channel_frequencies_hz, channe
 from .moments import Moments, _noise_value, moments_from_arrays, noise_rms, signal_mask
 from .recovery import excess_note, fidelity_summary, half_recovery_scale, recovery_table
 
-__all__ = ["Survival", "assess", "reference_cube", "survival_matrix", "matrix_csv",
+__all__ = ["Survival", "assess", "assess_map", "recorded_noise", "reference_cube", "survival_matrix", "matrix_csv",
            "matrix_json_rows"]
 
 
@@ -276,6 +276,30 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
         centroid_hist=_centroid_hist(mi, mo, v_kms),
         ideal_moments=mi, observed_moments=mo, noise=sigma * unit, unit=kind, beam=beam,
         notes=tuple(notes))
+
+
+def recorded_noise(cube):
+    """An observed cube's recorded rms per channel (NOISERMS in NOISEUNI), or None when it
+    has none or is noiseless (assess then estimates the rms itself)."""
+    meta = {str(k).upper(): v for k, v in cube.meta.items()}
+    try:
+        rms = float(meta.get("NOISERMS"))
+    except (TypeError, ValueError):
+        return None
+    if not rms > 0:
+        return None
+    return rms * u.Unit(str(meta.get("NOISEUNI") or cube.unit.to_string()))
+
+
+def assess_map(observed_map, emission_floor=0.01):
+    """``assess`` of an :class:`~synth.instrument.mapping.ObservedMap` as a run does it: the
+    primary-beam-corrected map of an array (blank below its cutoff) against the unattenuated
+    model on the same grid, with the flux where the response is >= 1/2; a dish map against the
+    model on the map including its guard band; the noise its recorded NOISERMS."""
+    m = observed_map
+    response = m.response if m.layout.kind == "array" else None
+    return assess(m.sky, m.corrected, noise=recorded_noise(m.corrected), response=response,
+                  emission_floor=emission_floor)
 
 
 def _ratio(a, b):

@@ -12,7 +12,7 @@ dish in the list is feathered in afterwards (:mod:`synth.instrument.combine`).
 """
 
 import warnings
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import astropy.units as u
 import numpy as np
@@ -162,9 +162,9 @@ def _scales_px(opts, beam, tracks, geom, freqs):
     if opts["scales"] is not None:
         px = list(u.Quantity(opts["scales"]).to_value(u.rad) / pix)
         if max(px) > max(geom.nx, geom.ny):
-            raise InstrumentError(f"scales: {max(px) * pix * 206264.806:.4g} arcsec is larger "
-                                  f"than the map ({geom.nx} x {geom.ny} pixels of "
-                                  f"{pix * 206264.806:.4g} arcsec)")
+            raise InstrumentError(f"scales: {max(px) * pix * ARCSEC_PER_RAD:.4g} arcsec is "
+                                  f"larger than the map ({geom.nx} x {geom.ny} pixels of "
+                                  f"{pix * ARCSEC_PER_RAD:.4g} arcsec)")
         return [0.0] + [p for p in px if p > 0]
     b_min = float(np.hypot(tracks.uvw_m[:, 0], tracks.uvw_m[:, 1]).min())
     las_px = 0.6 * C_M_S / float(freqs.max()) / b_min / pix
@@ -203,6 +203,46 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     return corrected, response, rms, beam, iters, frac
 
 
+@dataclass(frozen=True, eq=False)
+class _Plan:
+    """What both array entry points prepare: options, layout, the model on the canvas, the
+    pointings (tracks and sub-images), the output slices."""
+
+    opts: dict
+    mopts: object
+    seed: object
+    ra_rad: float
+    dec_rad: float
+    freqs: np.ndarray
+    layout: object
+    sky: object
+    pointings: list
+    out_sl: tuple
+
+
+def _prepare_plan(cube, arrays, opts, mopts, noise, seed, integration_time):
+    """Layout, canvas, model on the canvas and pointings of an array observation of ``cube``
+    (shared by :func:`observe_interferometric` and :func:`simulate_visibilities`)."""
+    seed = _seed(seed, noise)
+    _, ra_rad, dec_rad = cube_geometry(cube)
+    if opts.get("declination") is not None:
+        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
+    freqs = cube_frequencies_hz(cube)
+    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs,
+                                 nu_layout=reference_frequency(cube).to_value(u.Hz))
+    pb_max, _ = primary_beam_fwhm_arcsec(arrays, float(freqs.min()))
+    if not opts["primary_beam"]:
+        pb_max = np.inf          # no primary beam: every pointing images the whole map
+    canvas, _, zshape, offset, out_sl, half = array_canvas(cube, layout, pixel, pb_max,
+                                                           mopts.beyond_box)
+    sky = place_model(cube, canvas, zshape, offset, mopts.beyond_box)
+    pointings = _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs,
+                           integration_time, phase_seed=seed if seed is not None else 0)
+    if opts["rms"] is not None:
+        pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
+    return _Plan(opts, mopts, seed, ra_rad, dec_rad, freqs, layout, sky, pointings, out_sl)
+
+
 def simulate_visibilities(cube, instrument, *, noise=True, seed=None, integration_time=None,
                           **kwargs):
     """The visibilities an array setup records, pointing by pointing (no imaging).
@@ -217,24 +257,10 @@ def simulate_visibilities(cube, instrument, *, noise=True, seed=None, integratio
     if dish is not None:
         raise InstrumentError("visibilities: a single dish has none; give arrays only")
     opts, mopts, _ = _split_options(dict(kwargs))
-    seed = _seed(seed, noise)
-    _, ra0, dec_rad = cube_geometry(cube)
-    if opts.get("declination") is not None:
-        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
-    freqs = cube_frequencies_hz(cube)
-    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs,
-                                 nu_layout=reference_frequency(cube).to_value(u.Hz))
-    pb_max, _ = primary_beam_fwhm_arcsec(arrays, float(freqs.min()))
-    if not opts["primary_beam"]:
-        pb_max = np.inf
-    canvas, grid, zshape, offset, out_sl, half = array_canvas(cube, layout, pixel, pb_max,
-                                                              mopts.beyond_box)
-    sky = place_model(cube, canvas, zshape, offset, mopts.beyond_box)
-    pointings = _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs,
-                           integration_time, phase_seed=seed if seed is not None else 0)
-    if opts["rms"] is not None:
-        pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
-    rng = np.random.default_rng(seed) if noise else None
+    plan = _prepare_plan(cube, arrays, opts, mopts, noise, seed, integration_time)
+    sky, pointings, layout, freqs = plan.sky, plan.pointings, plan.layout, plan.freqs
+    ra0, dec_rad = plan.ra_rad, plan.dec_rad
+    rng = np.random.default_rng(plan.seed) if noise else None
     data = np.asarray(sky.unmasked_data[:].value)
     geom0 = ImageGeometry(sky.shape[2], sky.shape[1], pointings[0][1].dx_rad,
                           pointings[0][1].dy_rad, 0.0, 0.0)
@@ -314,23 +340,9 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     """
     arrays, dish = split_instruments(instrument)
     opts, mopts, dish_opts = _split_options(dict(kwargs))
-    seed = _seed(seed, noise)
-    _, _, dec_rad = cube_geometry(cube)
-    if opts.get("declination") is not None:
-        dec_rad = _quantity("declination", opts["declination"], u.rad, positive=False).value
-    freqs = cube_frequencies_hz(cube)
-    layout, pixel = array_layout(cube, arrays, opts, mopts, dec_rad, freqs,
-                                 nu_layout=reference_frequency(cube).to_value(u.Hz))
-    pb_max, _ = primary_beam_fwhm_arcsec(arrays, float(freqs.min()))
-    if not opts["primary_beam"]:
-        pb_max = np.inf          # no primary beam: every pointing images the whole map
-    canvas, grid, zshape, offset, out_sl, half = array_canvas(cube, layout, pixel, pb_max,
-                                                              mopts.beyond_box)
-    sky = place_model(cube, canvas, zshape, offset, mopts.beyond_box)
-    pointings = _pointings(cube, arrays, opts, layout, canvas, half, dec_rad, freqs,
-                           integration_time, phase_seed=seed if seed is not None else 0)
-    if opts["rms"] is not None:
-        pointings = _scale_to_rms(pointings, opts["rms"], freqs[freqs.size // 2], opts)
+    plan = _prepare_plan(cube, arrays, opts, mopts, noise, seed, integration_time)
+    seed, freqs, layout, sky = plan.seed, plan.freqs, plan.layout, plan.sky
+    pointings, out_sl = plan.pointings, plan.out_sl
     corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
                                                           seed, out_sl)
     if mopts.map_size is None:      # the whole model was to be mapped: say what is lost
@@ -352,7 +364,8 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
         sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
                                               seed, hanning)
         corrected = feather_mosaic(corrected, response, sd_k, sd_beam, beam, freqs,
-                                   canvas.pixel_arcsec, opts["sd_scale"])
+                                   abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
+                                   opts["sd_scale"])
         meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
                     SDSCALE=float(opts["sd_scale"]))
     return _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps)

@@ -26,10 +26,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import ConfigError
+from ..sky import C_KMS
 
 __all__ = ["HYPERFINE", "HyperfineComponents", "hyperfine_components", "with_hyperfine"]
-
-C_KMS = 299792.458
 
 #: (species, transition) -> (source, ((label, frequency MHz, relative strength), ...)).
 HYPERFINE = {

@@ -35,18 +35,6 @@ def analysis_settings(conf):
     return {**_DEFAULTS, **given}
 
 
-def _noise_of(cube):
-    """The observed cube's recorded rms per channel (NOISERMS, NOISEUNI), or None."""
-    meta = {str(k).upper(): v for k, v in cube.meta.items()}
-    try:
-        rms = float(meta.get("NOISERMS"))
-    except (TypeError, ValueError):
-        return None
-    if not rms > 0:
-        return None   # a noiseless observation: assess estimates the rms itself
-    return rms * u.Unit(str(meta.get("NOISEUNI") or cube.unit.to_string()))
-
-
 def assess_observation(ideal, observed, setup_conf=None, emission_floor=0.01):
     """``assess`` of one observation as a run does it.
 
@@ -57,12 +45,11 @@ def assess_observation(ideal, observed, setup_conf=None, emission_floor=0.01):
     including its guard band. The noise is the recorded NOISERMS (estimated if absent or zero);
     the flux inside the map's half-power response is measured too.
     """
-    from ..analysis.survival import assess
+    from ..analysis.survival import assess, assess_map, recorded_noise
     if hasattr(observed, "layout"):
-        response = observed.response if observed.layout.kind == "array" else None
-        return assess(observed.sky, observed.corrected, noise=_noise_of(observed.corrected),
-                      response=response, emission_floor=emission_floor)
-    return assess(ideal, observed, noise=_noise_of(observed), emission_floor=emission_floor)
+        return assess_map(observed, emission_floor)
+    return assess(ideal, observed, noise=recorded_noise(observed),
+                  emission_floor=emission_floor)
 
 
 def spectra_positions(cube, given=None):
