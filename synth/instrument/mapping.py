@@ -196,7 +196,7 @@ def output_grid(cube, layout, pixel):
         # the model's own extent, on the zoomed pixels
         return (SkyGrid(zshape[1], zshape[0], grid.pixel_arcsec, grid.x_ref - off[0],
                         grid.y_ref - off[1]), zshape, (0, 0))
-    return observation_grid(model, pixel, layout.grid_center, layout.grid_size)
+    return observation_grid(model, pixel, layout.center, layout.grid_size)
 
 
 def array_canvas(cube, layout, pixel, pb_fwhm_max, beyond_box):

@@ -87,7 +87,7 @@ class MapLayout:
     model's reference point).
 
     ``pointings`` are the array's pointing centres or the dish's Nyquist map positions;
-    ``grid_center`` / ``grid_size`` the extent of the output image; ``single_field`` is True
+    ``grid_size`` the extent of the output image (centred on ``center``); ``single_field`` is True
     for the default single pointing of a model that fits one field (the output grid is then
     the model's own extent).
     """
@@ -98,7 +98,6 @@ class MapLayout:
     pointings: np.ndarray
     spacing: float
     pattern: str
-    grid_center: tuple
     grid_size: tuple
     guard: float
     pixel: float
@@ -211,5 +210,5 @@ def map_layout(kind, *, model_center, model_size, field_fwhm, beam_fwhm, spacing
             f"limit of {max_pointings}; map a smaller area, or raise max_pointings")
     pointings = offs + np.asarray(center)[None, :]
     return MapLayout(kind=kind, center=center, size=size, pointings=pointings, spacing=step,
-                     pattern=pat, grid_center=center, grid_size=grid, guard=guard,
+                     pattern=pat, grid_size=grid, guard=guard,
                      pixel=float(pixel), field_fwhm=float(field_fwhm), single_field=single)

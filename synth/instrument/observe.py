@@ -144,7 +144,7 @@ def _observe_dish_map(spectral, dish, layout, mopts, integration_time, rms, nois
     the map (a larger model, or a repeated box) spills into its edges as on the sky."""
     model = model_grid(spectral)
     pix = mopts.pixel if mopts.pixel is not None else min(model.pixel_arcsec, layout.pixel)
-    grid, zoom, (ox, oy) = observation_grid(model, pix, layout.grid_center, layout.grid_size)
+    grid, zoom, (ox, oy) = observation_grid(model, pix, layout.center, layout.grid_size)
     fwhm = dish.beam_at(reference_frequency(spectral)).major.to_value(u.arcsec)
     m = int(np.ceil(2.0 * fwhm / grid.pixel_arcsec))
     canvas = SkyGrid(grid.nx + 2 * m, grid.ny + 2 * m, grid.pixel_arcsec, grid.x_ref + m,

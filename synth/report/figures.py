@@ -86,7 +86,7 @@ def layout_figure(omap, sky_or_title, title_or_path, path=None):
         if response is not None and np.nanmax(response) > 0.5:
             ax.contour(response, levels=[0.5], extent=ext, origin="lower",
                        colors="C2", linewidths=0.8)
-    grid = (lay.grid_center, lay.grid_size)
+    grid = (lay.center, lay.grid_size)
     ax.set_xlim(max(ext[0], grid[0][0] + grid[1][0] / 2), min(ext[1], grid[0][0] - grid[1][0] / 2))
     ax.set_ylim(min(ext[2], grid[0][1] - grid[1][1] / 2), max(ext[3], grid[0][1] + grid[1][1] / 2))
     ax.set_aspect("equal")
