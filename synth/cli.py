@@ -52,7 +52,7 @@ def build_parser():
                        description="Build the invented demo cloud, synthesize its tracers and "
                                    "write cubes, figures and a summary into --out.")
     _add_run_options(p)
-    p.add_argument("--size", type=int, default=None, metavar="N",
+    p.add_argument("--cells", type=int, default=None, metavar="N",
                    help="cells per axis of the demo cloud (default: the demo config's)")
 
     p = sub.add_parser("run", help="run a TOML configuration",
@@ -118,10 +118,10 @@ def _cmd_demo(args):
     from .config import load_config
     from .pipeline import DEMO_CONFIG, run_config
     conf = load_config(DEMO_CONFIG)
-    if args.size is not None:
-        if args.size < 8:
-            raise SynthError(f"--size must be >= 8 cells per axis, got {args.size}")
-        conf["cloud"]["size"] = args.size
+    if args.cells is not None:
+        if args.cells < 8:
+            raise SynthError(f"--cells must be >= 8 per axis, got {args.cells}")
+        conf["cloud"]["cells"] = args.cells
     return _run(conf, args, run_config)
 
 

@@ -17,7 +17,7 @@ import warnings
 from .errors import ConfigError, SynthWarning
 from .rundir import check_name
 
-__all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS", "REMOVED_KEYS",
+__all__ = ["SCHEMA", "load_config", "validate_config", "SETUP_KINDS", "REMOVED_KEYS", "RENAMED_KEYS",
            "object_name"]
 
 # key -> (types, default, description); default None = optional, REQUIRED = must be given
@@ -30,10 +30,10 @@ CLOUD = {
     "fields": (dict, None, "HDF5/FITS/yt field mapping, e.g. {n_h2 = \"/gas/nH2\", t_kin = ...}"),
     "cell_size_pc": (_NUM, None, "cell edge length in pc (required unless the file records it)"),
     "sigma_turb_kms": (_NUM, None, "microturbulent 1-D dispersion in km/s (default: the file's, or 0)"),
-    "size": (int, 64, "demo cloud: cells per axis"),
+    "cells": (int, 64, "demo cloud: cells per axis"),
     "seed": (int, 1, "demo cloud: random seed"),
     "box_pc": (_NUM, 4.0, "demo cloud: box edge length, pc"),
-    "mean_density_cm3": (_NUM, 3e3, "demo cloud: mean n(H2), cm^-3"),
+    "mean_n_h2_cm3": (_NUM, 3e3, "demo cloud: volume-averaged n(H2), cm^-3"),
     "mach": (_NUM, 10.0, "demo cloud: 3-D turbulent Mach number"),
     "solenoidal_fraction": (_NUM, 0.7, "demo cloud: solenoidal share of the turbulent power"),
     "level": (int, 0, "yt: refinement level of the covering grid"),
@@ -41,8 +41,8 @@ CLOUD = {
 }
 SKY = {
     "distance_pc": (_NUM, REQUIRED, "distance to the cloud in pc"),
-    "ra_deg": (_NUM, 83.0, "right ascension of the map centre, deg"),
-    "dec_deg": (_NUM, -5.0, "declination of the map centre, deg"),
+    "ra_deg": (_NUM, 120.0, "right ascension of the map centre, deg (default: a neutral 120)"),
+    "dec_deg": (_NUM, 10.0, "declination of the map centre, deg (default: a neutral +10)"),
     "systemic_velocity_kms": (_NUM, 0.0, "added to the model's line-of-sight velocities, km/s"),
     "line_of_sight": ((str, dict), "z", '"z", "-z", "x", "-x", "y", "-y" or {euler_deg = [a, b, c]}'),
     "background_k": (_NUM, 2.725, "background temperature, K (the CMB); also the field LVG populations see"),
@@ -78,11 +78,19 @@ OUTPUT = {
 SETUP_KINDS = ("dish", "array")
 SETUP = {
     "name": (str, REQUIRED, "label used in file names"),
-    "kind": (str, REQUIRED, '"dish" (single dish) or "array" (interferometer)'),
-    "diameter_m": (_NUM, None, "dish diameter, m"),
-    "efficiency": (_NUM, 0.7, "aperture efficiency"),
-    "tsys_k": (_NUM, None, "system temperature, K"),
-    "taper": (_NUM, None, "dish: beam FWHM in units of lambda/D (default 1.13)"),
+    "kind": (str, REQUIRED, '"dish" or "array"'),
+    "diameter_m": (_NUM, None, "antenna diameter, m (dish: this or beam_arcsec; array: "
+                   "default the layout's own)"),
+    "main_beam_efficiency": (_NUM, 0.7, "dish: main-beam efficiency (divides the radiometer "
+                             "noise; the output is main-beam temperature)"),
+    "aperture_efficiency": (_NUM, 0.7, "array: aperture efficiency of the antennas"),
+    "system_efficiency": (_NUM, 0.9, "array: digital and correlator losses of the radiometer "
+                          "equation, one factor"),
+    "tsys_k": (_NUM, None, "system temperature, K (needed for radiometer noise unless "
+               "zenith_opacity is given)"),
+    "fwhm_factor": (_NUM, 1.13, "beam (dish) or primary-beam (array) FWHM in units of "
+                    "lambda/D: 1.02 uniform illumination, 1.13 typical taper"),
+    "primary_beam_shape": (str, "gaussian", 'array: "gaussian" or "airy"'),
     "beam_arcsec": (_NUM, None, "dish: a fixed circular beam FWHM instead of the diameter"),
     "channel_width_kms": (_NUM, None, "output channel width, km/s (default: the ideal cube's)"),
     "hanning": (bool, False, "Hanning-smooth the spectra"),
@@ -92,13 +100,13 @@ SETUP = {
     "n_pol": (int, 2, "polarisations recorded and averaged (1 or 2; noise / sqrt(n_pol))"),
     "seed": (int, 1, "noise seed"),
     "antennas": (str, None, 'array: a built-in layout name or a CSV file'),
-    "latitude_deg": (_NUM, None, "array: site latitude, deg"),
-    "hour_angle_start_h": (_NUM, -2.0, "array: first hour angle, h"),
-    "hour_angle_stop_h": (_NUM, 2.0, "array: last hour angle, h"),
+    "latitude_deg": (_NUM, 8.0, "array: site latitude, deg (default: an invented site at +8)"),
+    "elevation_limit_deg": (_NUM, 15.0, "array: samples with the source lower than this are "
+                            "dropped, deg"),
+    "hour_angles_h": (list, [-2.0, 2.0], "array: [first, last] hour angle of the track, h"),
     "sample_interval_s": (_NUM, 300.0, "array: visibility sampling interval, s"),
-    "weighting": (str, "robust", 'array: "natural", "uniform" or "robust"'),
-    "robust": (_NUM, 0.5, "array: Briggs robust parameter"),
-    "deconvolve": (bool, True, "array: run CLEAN"),
+    "weighting": (str, "natural", 'array: "natural", "uniform" or "robust"'),
+    "robust": (_NUM, 0.5, "array: Briggs robust parameter (with weighting = \"robust\")"),
     "combine_with": (list, None, "array: other setup names to image jointly / feather with"),
     "map_size_arcsec": ((int, float, list), None, "width (or [width, height]) of the area to "
                         "map, arcsec (default: the whole model)"),
@@ -115,14 +123,23 @@ SETUP = {
                           "arcsec (default 1.5 beam FWHM)"),
     "primary_beam_cutoff": (_NUM, 0.2, "array: the corrected map is blank where the relative "
                             "response is below this"),
+    "correct_primary_beam": (bool, True, "array: the main product is the primary-beam-"
+                             "corrected map, with the flat-noise map beside it (false: the "
+                             "flat-noise map alone)"),
+    "dish_flux_scale": (_NUM, 1.0, "array feathered with a dish: factor on the dish image"),
     "phase_rms_deg": (_NUM, 0.0, "array: rms of antenna phase errors, deg, drawn per antenna "
                       "and interval (seeded by seed)"),
     "phase_interval_s": (_NUM, None, "array: interval of the phase errors, s (default: "
                          "sample_interval_s)"),
-    "deconvolver": (str, "hogbom", 'array: "hogbom" (Högbom CLEAN) or "multiscale" '
-                    '(multi-scale CLEAN, for extended emission)'),
-    "scales_arcsec": (list, None, "array, multiscale: component FWHMs, arcsec (default: 0, "
-                      "then twice the beam doubled up to half the largest recoverable scale)"),
+    "deconvolver": (str, "hogbom", 'array: "hogbom" (Högbom CLEAN), "multiscale" '
+                    '(multi-scale CLEAN, for extended emission) or "none" (the dirty image)'),
+    "clean_stop_sigma": (_NUM, 3.0, "array: CLEAN stops when the peak residual is below this "
+                         "many image-noise sigma"),
+    "clean_max_components": (int, 5000, "array: CLEAN stops after this many components per "
+                             "image"),
+    "clean_loop_gain": (_NUM, 0.1, "array: fraction of the peak residual taken per component"),
+    "clean_scales_arcsec": (list, None, "array, multiscale: component FWHMs, arcsec (default: "
+                            "0, then twice the beam doubled up to half the largest scale)"),
     "clean_mask_sigma": (_NUM, None, "array: CLEAN only inside a mask grown from the dirty "
                          "image at this many sigma (dilated by a beam); default no mask"),
     "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
@@ -135,7 +152,16 @@ SETUP = {
                                  "atmosphere, K (with zenith_opacity)"),
 }
 #: config keys that no longer exist, with what replaced them
-REMOVED_KEYS = {"fast": "removed: the approximate Fourier-plane path was dropped (it measured "
+#: config keys that were renamed: old key -> what to write instead
+RENAMED_KEYS = {"efficiency": "main_beam_efficiency (dish) or aperture_efficiency (array)",
+                "taper": "fwhm_factor",
+                "hour_angle_start_h": "hour_angles_h = [start, stop]",
+                "hour_angle_stop_h": "hour_angles_h = [start, stop]",
+                "deconvolve": 'deconvolver = "hogbom", "multiscale" or "none"',
+                "scales_arcsec": "clean_scales_arcsec",
+                "size": "cells",
+                "mean_density_cm3": "mean_n_h2_cm3"}
+REMOVED_KEYS = {                "fast": "removed: the approximate Fourier-plane path was dropped (it measured "
                         "a 24-28 % peak error on white-noise skies); every array setup predicts "
                         "visibilities"}
 ANALYSIS = {
@@ -162,6 +188,8 @@ def _check_table(table, spec, where):
     for key, value in table.items():
         if key in REMOVED_KEYS and key not in spec:
             raise ConfigError(f"{where}.{key}: {REMOVED_KEYS[key]}; delete the key")
+        if key in RENAMED_KEYS and key not in spec:
+            raise ConfigError(f"{where}.{key} was renamed to {RENAMED_KEYS[key]}")
         if key not in spec:
             raise ConfigError(f"unknown key '{key}' in {where}{_suggest(key, spec)}")
         if value is None:  # only from an already-validated dict (TOML has no null)
@@ -296,13 +324,16 @@ def _check_map_keys(st):
         raise ConfigError(f"{where}: phase_rms_deg = {st['phase_rms_deg']}; must be >= 0")
     if st["phase_interval_s"] is not None and not st["phase_interval_s"] > 0:
         raise ConfigError(f"{where}: phase_interval_s = {st['phase_interval_s']}; must be > 0")
-    if st["deconvolver"] not in ("hogbom", "multiscale"):
+    if st["deconvolver"] not in ("hogbom", "multiscale", "none"):
         raise ConfigError(f"{where}: deconvolver = '{st['deconvolver']}'; valid: hogbom, "
-                          "multiscale")
-    sc = st["scales_arcsec"]
+                          "multiscale, none")
+    if st["primary_beam_shape"] not in ("gaussian", "airy"):
+        raise ConfigError(f"{where}: primary_beam_shape = '{st['primary_beam_shape']}'; valid: "
+                          "gaussian, airy")
+    sc = st["clean_scales_arcsec"]
     if sc is not None and not (sc and all(isinstance(v, (int, float)) and not
                                           isinstance(v, bool) and v >= 0 for v in sc)):
-        raise ConfigError(f"{where}: scales_arcsec = {sc!r}; give component FWHMs >= 0 in "
+        raise ConfigError(f"{where}: clean_scales_arcsec = {sc!r}; give component FWHMs >= 0 in "
                           "arcsec, e.g. [0, 4, 8]")
     if st["clean_mask_sigma"] is not None and not st["clean_mask_sigma"] > 0:
         raise ConfigError(f"{where}: clean_mask_sigma = {st['clean_mask_sigma']}; must be > 0")
@@ -382,17 +413,22 @@ def _check_numbers(conf):
 
 _SETUP_RANGES = (  # key, test, what is valid
     ("diameter_m", lambda v: v > 0, "> 0"),
-    ("efficiency", lambda v: 0 < v <= 1, "0 < efficiency <= 1"),
+    ("main_beam_efficiency", lambda v: 0 < v <= 1, "0 < main_beam_efficiency <= 1"),
+    ("aperture_efficiency", lambda v: 0 < v <= 1, "0 < aperture_efficiency <= 1"),
+    ("system_efficiency", lambda v: 0 < v <= 1, "0 < system_efficiency <= 1"),
     ("tsys_k", lambda v: v > 0, "> 0"),
-    ("taper", lambda v: v > 0, "> 0"),
+    ("fwhm_factor", lambda v: v > 0, "> 0"),
     ("beam_arcsec", lambda v: v > 0, "> 0"),
     ("integration_time_h", lambda v: v > 0, "> 0"),
     ("rms_k", lambda v: v > 0, "> 0"),
     ("seed", lambda v: v >= 0, ">= 0"),
     ("latitude_deg", lambda v: -90 <= v <= 90, "-90 <= latitude_deg <= 90"),
-    ("hour_angle_start_h", lambda v: -12 <= v <= 12, "-12 <= hour_angle_start_h <= 12"),
-    ("hour_angle_stop_h", lambda v: -12 <= v <= 12, "-12 <= hour_angle_stop_h <= 12"),
+    ("elevation_limit_deg", lambda v: 0 <= v < 90, "0 <= elevation_limit_deg < 90"),
     ("sample_interval_s", lambda v: v > 0, "> 0"),
+    ("clean_stop_sigma", lambda v: v >= 0, ">= 0"),
+    ("clean_max_components", lambda v: v >= 0, ">= 0"),
+    ("clean_loop_gain", lambda v: 0 < v <= 1, "0 < clean_loop_gain <= 1"),
+    ("dish_flux_scale", lambda v: v > 0, "> 0"),
 )
 _WEIGHTINGS = ("natural", "uniform", "robust")
 
@@ -404,9 +440,11 @@ def _check_setup_values(setups):
         for key, ok, valid in _SETUP_RANGES:
             if st[key] is not None and not ok(st[key]):
                 raise ConfigError(f"{where}.{key} is {st[key]}; valid: {valid}")
-        if not st["hour_angle_start_h"] < st["hour_angle_stop_h"]:
-            raise ConfigError(f"{where}: hour_angle_start_h ({st['hour_angle_start_h']}) must be "
-                              f"less than hour_angle_stop_h ({st['hour_angle_stop_h']})")
+        ha = st["hour_angles_h"]
+        if not (len(ha) == 2 and all(isinstance(v, (int, float)) and not isinstance(v, bool)
+                                     and -12 <= v <= 12 for v in ha) and ha[0] < ha[1]):
+            raise ConfigError(f"{where}.hour_angles_h is {ha!r}; valid: [start, stop] in hours, "
+                              "-12 <= start < stop <= 12")
         if st["weighting"] not in _WEIGHTINGS:
             raise ConfigError(f"{where}.weighting is '{st['weighting']}'; valid: "
                               f"{', '.join(_WEIGHTINGS)}")
@@ -470,3 +508,55 @@ def load_config(path):
         if ant and (ant.endswith(".csv") or os.sep in ant) and not os.path.isabs(ant):
             st["antennas"] = os.path.join(base, ant)
     return conf
+
+
+_TYPE_NAMES = {str: "string", bool: "boolean", int: "integer", float: "number", list: "list",
+               dict: "table"}
+
+
+def _type_name(types):
+    types = types if isinstance(types, tuple) else (types,)
+    if set(types) >= {int, float}:
+        types = tuple(t for t in types if t is not int)
+    return " or ".join(_TYPE_NAMES[t] for t in types)
+
+
+def _default_text(default):
+    if default is REQUIRED:
+        return "**required**"
+    if default is None:
+        return "—"
+    if isinstance(default, bool):
+        return f"`{str(default).lower()}`"
+    if isinstance(default, str):
+        return f'`"{default}"`'
+    return f"`{default}`"
+
+
+def schema_table(section):
+    """The docs/config.md table of one section, generated from the schema (a test keeps the
+    document equal to it): key, type, default, meaning."""
+    rows = ["| key | type | default | meaning |", "|---|---|---|---|"]
+    for key, (types, default, text) in SCHEMA[section].items():
+        rows.append(f"| `{key}` | {_type_name(types)} | {_default_text(default)} | {text} |")
+    return "\n".join(rows)
+
+
+def config_doc_tables(text):
+    """``text`` (docs/config.md) with every section's key table regenerated from the schema:
+    the table after each ``## `[section]``` heading. Run
+    ``python -c "import synth.config as c, pathlib as p; f = p.Path('docs/config.md');
+    f.write_text(c.config_doc_tables(f.read_text()))"`` after changing the schema."""
+    lines, out, section, i = text.split("\n"), [], None, 0
+    while i < len(lines):
+        line = lines[i]
+        if line.startswith("## `["):
+            section = line.strip("#` []")
+        if line.startswith("| key | type | default | meaning |") and section in SCHEMA:
+            out.extend(schema_table(section).split("\n"))
+            while i < len(lines) and lines[i].startswith("|"):
+                i += 1
+            continue
+        out.append(line)
+        i += 1
+    return "\n".join(out)

@@ -17,87 +17,103 @@ from .fitsio import write_cube
 from .rundir import run_path
 
 __all__ = ["make_instrument", "observe_setups", "observe_options", "map_keywords",
-           "check_setups"]
+           "check_setups", "python_name", "python_value", "INSTRUMENT_KEYS", "OBSERVE_KEYS",
+           "RUN_ONLY_KEYS"]
+
+
+#: unit suffixes of config keys and the unit of the Python argument without the suffix
+UNIT_SUFFIXES = {"_arcsec": u.arcsec, "_deg": u.deg, "_kms": u.km / u.s, "_m": u.m,
+                 "_h": u.hr, "_s": u.s, "_k": u.K}
+#: [[setup]] keys that build the instrument (synth.Dish / synth.Array), per kind
+INSTRUMENT_KEYS = {
+    "dish": ("name", "diameter_m", "beam_arcsec", "main_beam_efficiency", "tsys_k",
+             "fwhm_factor", "n_pol"),
+    "array": ("name", "antennas", "diameter_m", "latitude_deg", "elevation_limit_deg",
+              "aperture_efficiency", "system_efficiency", "tsys_k", "fwhm_factor",
+              "primary_beam_shape", "n_pol", "zenith_opacity", "receiver_temperature_k",
+              "atmosphere_temperature_k"),
+}
+#: [[setup]] keys passed to synth.observe, per kind
+MAP_SETUP_KEYS = ("map_size_arcsec", "map_offset_arcsec", "pixel_arcsec",
+                  "pointing_spacing_arcsec", "guard_band_arcsec", "max_pointings")
+OBSERVE_KEYS = {
+    "dish": ("channel_width_kms", "hanning", "integration_time_h", "rms_k", "noise", "seed")
+    + MAP_SETUP_KEYS,
+    "array": ("channel_width_kms", "hanning", "integration_time_h", "noise", "seed",
+              "pointing_pattern", "hour_angles_h", "sample_interval_s", "weighting", "robust",
+              "deconvolver", "clean_stop_sigma", "clean_max_components", "clean_loop_gain",
+              "clean_scales_arcsec", "clean_mask_sigma", "primary_beam_cutoff",
+              "correct_primary_beam", "dish_flux_scale", "phase_rms_deg", "phase_interval_s")
+    + MAP_SETUP_KEYS,
+}
+#: [[setup]] keys with no Python argument: they organise the run
+RUN_ONLY_KEYS = ("kind", "combine_with", "write_visibilities")
+
+
+def python_name(key):
+    """The Python argument of a config key, and its unit: the key without its unit suffix
+    (``integration_time_h`` -> ``integration_time`` in hours); the beam's key builds a Beam."""
+    if key == "beam_arcsec":
+        return "beam", u.arcsec
+    for suffix, unit in UNIT_SUFFIXES.items():
+        if key.endswith(suffix):
+            return key[: -len(suffix)], (u.hourangle if key == "hour_angles_h" else unit)
+    return key, None
+
+
+def python_value(key, value):
+    """A config value as the Python argument takes it (a Quantity where the key has a unit)."""
+    name, unit = python_name(key)
+    if value is None or unit is None:
+        return value
+    if key == "map_size_arcsec" and not isinstance(value, list):
+        value = [value]
+    q = value * unit if not isinstance(value, list) else np.asarray(value, float) * unit
+    if key == "beam_arcsec":
+        from radio_beam import Beam
+        return Beam(q)
+    return q
+
+
+def _python_kwargs(st, keys):
+    out = {}
+    for key in keys:
+        if st.get(key) is not None:
+            out[python_name(key)[0]] = python_value(key, st[key])
+    return out
 
 
 def make_instrument(st):
     """The instrument object a [[setup]] table describes."""
     if st["kind"] == "dish":
-        from .instrument.single_dish import SingleDish
-        from radio_beam import Beam
+        from .instrument.single_dish import Dish
         if st["beam_arcsec"] is None and (st["diameter_m"] is None):
             raise ConfigError(f"setup '{st['name']}' (dish) needs diameter_m or beam_arcsec")
-        kw = {"efficiency": st["efficiency"], "name": st["name"], "n_pol": st["n_pol"]}
-        if st["tsys_k"] is not None:
-            kw["tsys"] = st["tsys_k"] * u.K
-        if st["taper"] is not None:
-            kw["taper"] = st["taper"]
-        if st["beam_arcsec"] is not None:
-            kw["beam"] = Beam(st["beam_arcsec"] * u.arcsec)
-        else:
-            kw["diameter"] = st["diameter_m"] * u.m
-        return SingleDish(**kw)
-    needed = ("antennas", "latitude_deg") + (() if st.get("zenith_opacity") is not None
-                                             else ("tsys_k",))
-    for key in needed:
-        if st[key] is None:
-            raise ConfigError(f"setup '{st['name']}' (array) needs '{key}'")
-    from .instrument.interferometer import Interferometer  # after the cheap checks
-    kw = dict(antennas=st["antennas"], latitude=st["latitude_deg"] * u.deg,
-              efficiency=st["efficiency"], name=st["name"], n_pol=st["n_pol"])
-    if st["tsys_k"] is not None:
-        kw["tsys"] = st["tsys_k"] * u.K
-    if st["zenith_opacity"] is not None:
-        kw.update(zenith_opacity=st["zenith_opacity"],
-                  receiver_temperature=st["receiver_temperature_k"] * u.K,
-                  atmosphere_temperature=st["atmosphere_temperature_k"] * u.K)
-    if st["diameter_m"] is not None:
-        kw["dish_diameter"] = st["diameter_m"] * u.m
-    return Interferometer(**kw)
+        return Dish(**_python_kwargs(st, INSTRUMENT_KEYS["dish"]))
+    if st["antennas"] is None:
+        raise ConfigError(f"setup '{st['name']}' (array) needs 'antennas'")
+    if st["tsys_k"] is None and st.get("zenith_opacity") is None:
+        raise ConfigError(f"setup '{st['name']}' (array) needs 'tsys_k' (or zenith_opacity "
+                          "with receiver_temperature_k)")
+    from .instrument.interferometer import Array  # after the cheap checks
+    return Array(**_python_kwargs(st, INSTRUMENT_KEYS["array"]))
 
 
 def map_keywords(st, beyond_box="empty"):
     """The map keyword arguments of synth.observe for a [[setup]] table."""
-    size = st["map_size_arcsec"]
-    kw = {"beyond_box": beyond_box, "max_pointings": st["max_pointings"]}
-    if size is not None:
-        kw["map_size"] = (size if isinstance(size, list) else [size]) * u.arcsec
-    if st["map_offset_arcsec"] is not None:
-        kw["map_center"] = st["map_offset_arcsec"] * u.arcsec
-    for key, name in (("pixel_arcsec", "pixel"), ("pointing_spacing_arcsec", "pointing_spacing"),
-                      ("guard_band_arcsec", "guard_band")):
-        if st[key] is not None:
-            kw[name] = st[key] * u.arcsec
-    if st["kind"] == "array":
-        kw["pointing_pattern"] = st["pointing_pattern"]
+    kw = {"beyond_box": beyond_box,
+          **_python_kwargs(st, MAP_SETUP_KEYS + (("pointing_pattern",)
+                                                  if st["kind"] == "array" else ()))}
     return kw
 
 
 def observe_options(st, beyond_box="empty"):
     """Keyword arguments of synth.observe for a [[setup]] table."""
-    kw = {"noise": st["noise"], "seed": st["seed"], "hanning": st["hanning"],
-          **map_keywords(st, beyond_box)}
-    if st["channel_width_kms"] is not None:
-        kw["channel_width"] = st["channel_width_kms"] * u.km / u.s
-    if st["integration_time_h"] is not None:
-        kw["integration_time"] = st["integration_time_h"] * u.hr
-    if st["kind"] == "dish":
-        if st["rms_k"] is not None:
-            kw["rms"] = st["rms_k"] * u.K
-        elif st["noise"] and (st["integration_time_h"] is None or st["tsys_k"] is None):
-            raise ConfigError(f"setup '{st['name']}' adds noise: give rms_k, or tsys_k and "
-                              "integration_time_h (or set noise = false)")
-        return kw
-    kw.update(hour_angles=(st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
-              sample_interval=st["sample_interval_s"] * u.s, weighting=st["weighting"],
-              robust=st["robust"], deconvolve=st["deconvolve"],
-              pb_limit=st["primary_beam_cutoff"], pb_correct=True,
-              phase_rms=st["phase_rms_deg"] * u.deg, deconvolver=st["deconvolver"],
-              mask_sigma=st["clean_mask_sigma"])
-    if st["scales_arcsec"] is not None:
-        kw["scales"] = st["scales_arcsec"] * u.arcsec
-    if st["phase_interval_s"] is not None:
-        kw["phase_interval"] = st["phase_interval_s"] * u.s
+    kw = {"beyond_box": beyond_box, **_python_kwargs(st, OBSERVE_KEYS[st["kind"]])}
+    if st["kind"] == "dish" and st["rms_k"] is None and st["noise"] and (
+            st["integration_time_h"] is None or st["tsys_k"] is None):
+        raise ConfigError(f"setup '{st['name']}' adds noise: give rms_k, or tsys_k and "
+                          "integration_time_h (or set noise = false)")
     return kw
 
 
@@ -134,8 +150,7 @@ def check_setups(conf, lines, sky_size_arcsec):
                 else:
                     arrays = [inst] + [make_instrument(setups[o]) for o in st["combine_with"] or []
                                        if setups[o]["kind"] == "array"]
-                    opts = {"hour_angles": (st["hour_angle_start_h"], st["hour_angle_stop_h"])
-                            * u.hourangle, "sample_interval": st["sample_interval_s"] * u.s}
+                    opts = {"hour_angles": tuple(st["hour_angles_h"]) * u.hourangle, "sample_interval": st["sample_interval_s"] * u.s}
                     dec = np.deg2rad(conf["sky"]["dec_deg"])
                     lay, _ = array_layout(None, arrays, opts, mopts, dec, np.array([nu]), where,
                                           model_size=sky_size_arcsec)
@@ -146,7 +161,7 @@ def check_setups(conf, lines, sky_size_arcsec):
 
 
 #: what a layout error names, and the [[setup]] key that sets it
-_LAYOUT_KEYS = (("map_size", "map_size_arcsec"), ("map_center", "map_offset_arcsec"),
+_LAYOUT_KEYS = (("map_size", "map_size_arcsec"), ("map_offset", "map_offset_arcsec"),
                 ("pointing_spacing", "pointing_spacing_arcsec"), ("pixel", "pixel_arcsec"),
                 ("guard_band", "guard_band_arcsec"), ("pointing_pattern", "pointing_pattern"),
                 ("max_pointings", "max_pointings"))
@@ -221,9 +236,9 @@ def _write_visibilities(cube, inst, kw, base, object_name):
     from .instrument.observe import observe_spectral
     from .instrument.uvfits import write_uvfits
     arrays = [i for i in (inst if isinstance(inst, list) else [inst])
-              if type(i).__name__ == "Interferometer"]
+              if type(i).__name__ == "Array"]
     opts = {k: v for k, v in kw.items() if k not in ("hanning", "channel_width",
-                                                     "dish_options", "pb_correct")}
+                                                     "dish_options", "correct_primary_beam")}
     spectral = observe_spectral(cube, kw)
     for k, p in enumerate(simulate_visibilities(spectral, arrays, **opts)):
         write_uvfits(f"{base}_p{k + 1}.uvfits", p["tracks"], p["vis"], p["freqs_hz"],
@@ -293,5 +308,5 @@ def _uv_figures(setups, instruments, ideal, tmp):
         if st["kind"] != "array":
             continue
         plot_uv_and_beam(instruments[name], dec,
-                         (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
+                         tuple(st["hour_angles_h"]) * u.hourangle,
                          st["sample_interval_s"] * u.s, run_path(tmp, f"uv_{name}.png"), freq)

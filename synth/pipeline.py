@@ -31,8 +31,8 @@ def build_snapshot(cloud):
     """The Snapshot a ``[cloud]`` section describes."""
     if cloud["source"] == "demo":
         from .snapshot.demo import demo_cloud
-        snap = demo_cloud(n=cloud["size"], seed=cloud["seed"], size=cloud["box_pc"] * u.pc,
-                          mean_density=cloud["mean_density_cm3"] * u.cm**-3, mach=cloud["mach"],
+        snap = demo_cloud(cells=cloud["cells"], seed=cloud["seed"], box=cloud["box_pc"] * u.pc,
+                          mean_n_h2=cloud["mean_n_h2_cm3"] * u.cm**-3, mach=cloud["mach"],
                           solenoidal_fraction=cloud["solenoidal_fraction"])
         if cloud["sigma_turb_kms"] is not None:
             snap = snap._replace(sigma_turb_cms=np.asarray(cloud["sigma_turb_kms"] * 1e5))

@@ -174,13 +174,13 @@ def _check_numbers(target_snr, percentile, floor):
 def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channel_width=None,
          integration_time=None, field_size=None, declination=None,
          hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s, emission_floor=0.01,
-         n_pol=None, map_center=None, pointing_pattern="hexagonal", pointing_spacing=None,
+         n_pol=None, map_offset=None, pointing_pattern="hexagonal", pointing_spacing=None,
          guard_band=None, max_pointings=None, primary_beam=True):
     """Planning estimate for observing one line with one setup.
 
     Parameters
     ----------
-    setup : SingleDish or Interferometer
+    setup : Dish or Array
     line : Line or Quantity (frequency), optional
         Default: the cube's RESTFRQ.
     target_snr : float
@@ -196,10 +196,10 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     field_size : Quantity (one or two angles), optional
         Area to map (``map_size`` of observe); default the cube's extent.
     declination, hour_angles, sample_interval
-        Interferometer track (declination default: the cube's CRVAL2).
+        Array track (declination default: the cube's CRVAL2).
     n_pol : {1, 2}, optional
         Polarisations; default the setup's own (``n_pol`` of the dish or array, 2).
-    map_center, pointing_pattern, pointing_spacing, guard_band, max_pointings, primary_beam
+    map_offset, pointing_pattern, pointing_spacing, guard_band, max_pointings, primary_beam
         As for :func:`synth.observe`: the pointings counted are the pointings (or dish map
         positions) that ``observe`` makes with the same options
         (:func:`synth.instrument.mosaic.map_layout`).
@@ -217,16 +217,16 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     freq, label = _frequency(line, cube)
     dv, dnu = _channel(channel_width, cube, freq)
     kind = _kind(setup)
-    mkw = dict(map_size=field_size, map_center=map_center, pointing_pattern=pointing_pattern,
+    mkw = dict(map_size=field_size, map_offset=map_offset, pointing_pattern=pointing_pattern,
                pointing_spacing=pointing_spacing, guard_band=guard_band)
     if max_pointings is not None:
         mkw["max_pointings"] = max_pointings
     if kind == "single dish":
-        beam, lrs, rms_of, time_of = _dish_model(setup, freq, n_pol)
+        beam, largest, rms_of, time_of = _dish_model(setup, freq, n_pol)
         layout = _layout(setup, cube, freq, mkw, None)
     else:
         dec = _declination(declination, cube)
-        beam, lrs, rms_of, time_of = _array_model(setup, freq, dec, hour_angles,
+        beam, largest, rms_of, time_of = _array_model(setup, freq, dec, hour_angles,
                                                   sample_interval, n_pol)
         layout = _layout(setup, cube, freq, mkw, dict(hour_angles=hour_angles,
                                                       sample_interval=sample_interval,
@@ -239,7 +239,7 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     n_point = 1 if layout is None else layout.n_pointings
     notes = [DISCLAIMER] + ([layout.describe()] if layout is not None else [])
     return Plan(setup=getattr(setup, "name", None) or kind, line=label, kind=kind,
-                frequency=freq, resolution=beam, largest_scale=lrs, channel_width=dv,
+                frequency=freq, resolution=beam, largest_scale=largest, channel_width=dv,
                 channel_width_hz=dnu, integration_time=integration_time, rms=rms,
                 target_snr=float(target_snr), percentile=float(percentile),
                 target_brightness=target, time_to_target=t_need, n_pointings=n_point,
@@ -249,35 +249,35 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
 
 def _kind(setup):
     name = type(setup).__name__
-    if name == "SingleDish":
+    if name == "Dish":
         return "single dish"
-    if name == "Interferometer":
+    if name == "Array":
         return "interferometer"
-    raise InstrumentError(f"setup: {name} cannot be planned; give a SingleDish or an "
-                          "Interferometer (plan each instrument of a combination separately)")
+    raise InstrumentError(f"setup: {name} cannot be planned; give a Dish or an "
+                          "Array (plan each instrument of a combination separately)")
 
 
 def _dish_model(dish, freq, n_pol=None):
     """Single dish: beam, no largest-scale limit, radiometer rms(t) and t(rms) (K)."""
     from .instrument.noise import radiometer_rms, time_for_rms
     if dish.tsys is None:
-        raise InstrumentError("setup tsys: the dish has no tsys; give SingleDish(tsys=...)")
+        raise InstrumentError("setup tsys: the dish has no tsys; give Dish(tsys=...)")
     beam = dish.beam_at(freq)
     return (beam, np.nan * u.arcsec,
-            lambda dnu, t: radiometer_rms(dish.tsys, dish.efficiency, dnu, t,
+            lambda dnu, t: radiometer_rms(dish.tsys, dish.main_beam_efficiency, dnu, t,
                                           n_pol or dish.n_pol),
-            lambda dnu, rms: time_for_rms(dish.tsys, dish.efficiency, dnu, rms,
+            lambda dnu, rms: time_for_rms(dish.tsys, dish.main_beam_efficiency, dnu, rms,
                                           n_pol or dish.n_pol))
 
 
 def _array_model(arr, freq, dec, hour_angles, sample_interval, n_pol):
-    """Interferometer: synthesized-beam estimate, largest scale, point-source rms(t), t(rms)."""
-    from .instrument.uv import largest_recoverable_scale, synthesized_beam_estimate
+    """Array: synthesized-beam estimate, largest scale, point-source rms(t), t(rms)."""
+    from .instrument.uv import largest_scale, synthesized_beam_estimate
     from .instrument.visibilities import interferometer_rms, interferometer_time
     beam = synthesized_beam_estimate(arr, freq, dec, hour_angles, sample_interval)
-    lrs = largest_recoverable_scale(arr, freq, dec, hour_angles, sample_interval)
+    largest = largest_scale(arr, freq, dec, hour_angles, sample_interval)
     tsys = arr.effective_tsys(dec, hour_angles, sample_interval)   # the atmosphere model
-    return (beam, lrs.to(u.arcsec),
+    return (beam, largest.to(u.arcsec),
             lambda dnu, t: interferometer_rms(arr, dnu, t, n_pol, tsys).value * u.Jy / u.beam,
             lambda dnu, rms: interferometer_time(arr, dnu, rms.to_value(u.Jy / u.beam) * u.Jy,
                                                  n_pol, tsys))
@@ -314,7 +314,7 @@ def plan_rows(plans):
 def plan_table(plans):
     """A plain-text table of plans for the terminal, with the disclaimer under it."""
     cols = [("setup", "setup", "{}"), ("line", "line", "{}"), ("GHz", "frequency_ghz", "{:.3f}"),
-            ("beam\"", "beam_major_arcsec", "{:.3g}"), ("LAS\"", "largest_scale_arcsec", "{:.3g}"),
+            ("beam\"", "beam_major_arcsec", "{:.3g}"), ("largest scale\"", "largest_scale_arcsec", "{:.3g}"),
             ("dv km/s", "channel_width_kms", "{:.3g}"), ("target", "target", "{:.3g}"),
             ("S/N", "target_snr", "{:g}"), ("time/pointing", "time_per_pointing_s", duration_text),
             ("N point", "n_pointings", "{}"), ("total time", "total_time_s", duration_text)]

@@ -127,7 +127,7 @@ def _check_tracer_values(tr, where):
 
 
 _CLOUD_CHECKS = (("box_pc", lambda v: v > 0, "> 0"),
-                 ("mean_density_cm3", lambda v: v > 0, "> 0"),
+                 ("mean_n_h2_cm3", lambda v: v > 0, "> 0"),
                  ("mach", lambda v: v >= 0, ">= 0"),
                  ("solenoidal_fraction", lambda v: 0 <= v <= 1, "0 <= solenoidal_fraction <= 1"),
                  ("cell_size_pc", lambda v: v > 0, "> 0"),
@@ -162,9 +162,9 @@ def _norm(name):
 def snapshot_geometry(cloud, line_of_sight="z"):
     """((nx, ny, nz) of the view, cell size in pc or None) without reading the data."""
     if cloud["source"] == "demo":
-        n = cloud["size"]
+        n = cloud["cells"]
         if n < 8:
-            raise ConfigError(f"[cloud].size is {n}; valid: >= 8 cells per axis")
+            raise ConfigError(f"[cloud].cells is {n}; valid: >= 8 per axis")
         return (n, n, n), cloud["box_pc"] / n
     if cloud["format"] == "yt":
         return None, cloud["cell_size_pc"]
@@ -327,13 +327,12 @@ def _check_setups(conf, lines, cell_pc, observing=True):
 
 
 def _check_setup_files(st, where):
-    """antennas and taper in config terms, before the instrument code sees them."""
-    if st["taper"] is not None:
-        from .instrument.beam import TAPER_RANGE
-        lo, hi = TAPER_RANGE
-        if not lo <= st["taper"] <= hi:
-            raise ConfigError(f"{where}.taper is {st['taper']:g}; valid: {lo:g} <= taper <= {hi:g} "
-                              "(beam FWHM in lambda/D)")
+    """antennas and fwhm_factor in config terms, before the instrument code sees them."""
+    from .instrument.beam import FWHM_FACTOR_RANGE
+    lo, hi = FWHM_FACTOR_RANGE
+    if not lo <= st["fwhm_factor"] <= hi:
+        raise ConfigError(f"{where}.fwhm_factor is {st['fwhm_factor']:g}; valid: {lo:g} <= "
+                          f"fwhm_factor <= {hi:g} (beam FWHM in lambda/D)")
     ant = st["antennas"]
     if st["kind"] != "array" or ant is None:
         return
@@ -359,13 +358,13 @@ def _check_array(conf, st, inst, lines, cell_pc, where):
     from .instrument.uv import elevation, sample_hour_angles
     dec = conf["sky"]["dec_deg"]
     lat = st["latitude_deg"]
-    ha = (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle
+    ha = tuple(st["hour_angles_h"]) * u.hourangle
     h, _ = sample_hour_angles(ha, st["sample_interval_s"] * u.s)
     el = np.degrees(elevation(h, np.radians(dec), np.radians(lat)))
     limit = inst.elevation_limit.to_value(u.deg)
     if not (el >= limit).any():
         raise ConfigError(f"{where}: the source at [sky].dec_deg = {dec:g} never rises above "
                           f"{limit:g} deg elevation at latitude_deg = {lat:g} during hour angles "
-                          f"{st['hour_angle_start_h']:g}..{st['hour_angle_stop_h']:g} h (highest "
+                          f"{st['hour_angles_h'][0]:g}..{st['hour_angles_h'][1]:g} h (highest "
                           f"{el.max():.1f} deg); valid: a declination within about "
                           f"{90 - limit:g} deg of the latitude")

@@ -22,7 +22,7 @@ def test_unknown_attribute():
 def test_products_pickle_and_inputs_read_only():
     """Snapshot, Line, Excitation and the tile plan pickle (dask needs it); snapshot fields
     are stored read-only, and synthesize does not change a read-only input."""
-    snap = synth.demo_cloud(n=10, seed=2)
+    snap = synth.demo_cloud(cells=10, seed=2)
     line = synth.Line("CO", "1-0")
     exc = synth.lte_excitation(snap, line, 1e-4)
     for obj in (snap, line, exc):
@@ -41,7 +41,7 @@ def test_products_pickle_and_inputs_read_only():
 
 def test_synthesize_units_survive_options():
     """The cube is in K whatever the options (view, products, budget)."""
-    snap = synth.demo_cloud(n=8, seed=3)
+    snap = synth.demo_cloud(cells=8, seed=3)
     for kw in ({}, {"line_of_sight": "-y"}, {"memory": "50MB"}):
         cube = synth.synthesize(snap, synth.Line("CS", "2-1"), 1e-9, distance=2 * u.kpc,
                                 channel_width=0.5 * u.km / u.s, **kw)

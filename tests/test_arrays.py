@@ -1,4 +1,4 @@
-"""Antenna layouts: built-in invented layouts, the CSV format, the Interferometer constructor."""
+"""Antenna layouts: built-in invented layouts, the CSV format, the Array constructor."""
 
 import pickle
 
@@ -7,9 +7,9 @@ import pytest
 import astropy.units as u
 
 from synth.errors import InstrumentError
-from synth.instrument.arrays import (BUILTIN_LAYOUTS, builtin_layout, random_layout,
+from synth.instrument.arrays import (BUILTIN_DIAMETER_M, BUILTIN_LAYOUTS, builtin_layout, random_layout,
                                      read_layout_csv, write_layout_csv)
-from synth.instrument.interferometer import Interferometer
+from synth.instrument.interferometer import Array
 
 
 @pytest.mark.parametrize("name", sorted(BUILTIN_LAYOUTS))
@@ -18,7 +18,7 @@ def test_builtin_csv_matches_its_seeded_generator(name):
     gen, kw = BUILTIN_LAYOUTS[name]
     lay = builtin_layout(name)
     np.testing.assert_allclose(lay.enu_m, gen(**kw), rtol=0, atol=5e-4)
-    assert np.isnan(lay.diameter_m).all()
+    assert (lay.diameter_m == BUILTIN_DIAMETER_M).all()
 
 
 @pytest.mark.parametrize("name", sorted(BUILTIN_LAYOUTS))
@@ -54,7 +54,7 @@ def test_csv_roundtrip_with_diameters(tmp_path):
     lay = read_layout_csv(path)
     assert lay.names == ("p", "q", "r")
     np.testing.assert_allclose(lay.enu_m, enu, atol=1e-9)
-    arr = Interferometer(path, dish_diameter=10 * u.m)
+    arr = Array(path, diameter=10 * u.m, tsys=90 * u.K)
     np.testing.assert_array_equal(arr.diameters_m, [12.0, 7.0, 10.0])
 
 
@@ -82,28 +82,31 @@ def test_bad_csv_rows_name_the_line(tmp_path, body, match):
     (dict(antennas=np.zeros((4, 2))), r"shape \(4, 2\)"),
     (dict(antennas=np.zeros((1, 3))), "n >= 2"),
     (dict(antennas=[[0, 0, 0], [1, 1, 1]] * u.s), "cannot read"),
-    (dict(dish_diameter=12), "dish_diameter"),
-    (dict(dish_diameter=-1 * u.m), "must be finite and > 0"),
+    (dict(diameter=12), "diameter=12 must be a Quantity"),
+    (dict(diameter=-1 * u.m), "must be finite and > 0"),
     (dict(latitude=100 * u.deg), r"within \[-90, 90\]"),
     (dict(elevation_limit=95 * u.deg), r"in \[0, 90\)"),
-    (dict(efficiency=1.5), r"efficiency=1.5 must be a number in \(0, 1\]"),
+    (dict(aperture_efficiency=1.5), r"aperture_efficiency=1.5 must be a number in \(0, 1\]"),
+    (dict(system_efficiency=0.0), r"system_efficiency=0.0 must be a number in \(0, 1\]"),
+    (dict(fwhm_factor=3.0), r"fwhm_factor=3.0; valid: a number in \[1.0, 1.5\]"),
+    (dict(antennas=[[0, 0, 0], [9, 0, 0]]), "diameter: the layout leaves antenna diameters empty"),
     (dict(tsys=-5 * u.K), "tsys"),
-    (dict(pb_shape="square"), "pb_shape='square' is not known"),
+    (dict(primary_beam_shape="square"), "primary_beam_shape='square' is not known"),
 ])
 def test_bad_interferometer_input(kw, match):
     with pytest.raises(InstrumentError, match=match):
-        Interferometer(**kw)
+        Array(**kw)
 
 
 def test_interferometer_from_quantity_pickles_and_is_read_only():
     """Quantity positions are converted to metres; the product pickles and cannot be changed."""
     enu = np.array([[0, 0, 0], [0.1, 0, 0], [0, 0.2, 0]]) * u.km
-    arr = Interferometer(enu, dish_diameter=7 * u.m, name="tiny")
+    arr = Array(enu, diameter=7 * u.m, name="tiny", tsys=90 * u.K)
     np.testing.assert_allclose(arr.positions_m[1], [100.0, 0, 0])
     assert arr.name == "tiny" and arr.n_antennas == 3
-    assert arr.total_efficiency == pytest.approx(0.96 * 0.88 * 0.7)
+    assert arr.total_efficiency == pytest.approx(0.9 * 0.7)   # system x aperture defaults
     with pytest.raises(ValueError):
         arr.positions_m[0, 0] = 5.0
     back = pickle.loads(pickle.dumps(arr))
     np.testing.assert_array_equal(back.positions_m, arr.positions_m)
-    assert back.dish_diameter == 7 * u.m
+    assert back.diameter == 7 * u.m

@@ -19,14 +19,14 @@ from synth import cli
 from synth.errors import SynthError
 
 BASE = {
-    "cloud": {"source": "demo", "size": 10, "seed": 3},
+    "cloud": {"source": "demo", "cells": 10, "seed": 3},
     "sky": {"distance_pc": 2000, "dec_deg": -30.0},
     "channels": {"width_kms": 1.0, "velocity_min_kms": -8.0, "velocity_max_kms": 8.0},
     "tracer": [{"species": "13CO", "transition": "1-0", "abundance": 2e-6}],
     "output": {"figures": False},
 }
-ARRAY = {"name": "arr", "kind": "array", "antennas": "compact-10", "latitude_deg": -23.0,
-         "tsys_k": 90.0, "diameter_m": 12.0, "integration_time_h": 1.0}
+ARRAY = {"name": "arr", "kind": "array", "antennas": "compact-10", "latitude_deg": 8.0,
+         "tsys_k": 90.0, "diameter_m": 10.0, "integration_time_h": 1.0}
 DISH = {"name": "dish", "kind": "dish", "diameter_m": 30.0, "rms_k": 0.1}
 
 
@@ -170,13 +170,15 @@ CONFIG_CASES = [
     ("setup-two-one-name", _two_setups(dict(DISH, name="x"), dict(DISH, name="x")),
      "two setups are named 'x'"),
     ("array-without-antennas", _setup(antennas=None), "'arr' (array) needs 'antennas'"),
-    ("array-without-latitude", _setup(latitude_deg=None), "needs 'latitude_deg'"),
+    ("array-without-tsys", _setup(tsys_k=None), "'arr' (array) needs 'tsys_k'"),
     ("dish-without-size", _setup(_kind="dish", diameter_m=None), "needs diameter_m or beam_arcsec"),
     ("dish-noise-unset", _setup(_kind="dish", rms_k=None), "adds noise: give rms_k"),
-    ("efficiency-above-one", _setup(efficiency=1.5), "efficiency is 1.5; valid: 0 < efficiency <= 1"),
+    ("efficiency-above-one", _setup(aperture_efficiency=1.5),
+     "aperture_efficiency is 1.5; valid: 0 < aperture_efficiency <= 1"),
     ("tsys-negative", _setup(tsys_k=-5.0), "tsys_k is -5.0; valid: > 0"),
     ("latitude-100", _setup(latitude_deg=100.0), "valid: -90 <= latitude_deg <= 90"),
-    ("hour-angles-reversed", _setup(hour_angle_start_h=3.0), "must be less than hour_angle_stop_h"),
+    ("hour-angles-reversed", _setup(hour_angles_h=[3.0, -1.0]),
+     "hour_angles_h is [3.0, -1.0]; valid: [start, stop] in hours"),
     ("weighting", _setup(weighting="briggs"), "weighting is 'briggs'; valid: natural"),
     ("sample-interval-zero", _setup(sample_interval_s=0.0), "sample_interval_s is 0.0; valid: > 0"),
     ("setup-channel-width-zero", _setup(channel_width_kms=0.0), "channel_width_kms is 0.0"),
@@ -192,8 +194,8 @@ CONFIG_CASES = [
     ("spectra-position-outside", _set(["analysis"], {"spectra_positions": [[10, 2]]}),
      "valid: 0 <= x < 10, 0 <= y < 10"),
     ("unknown-layout", _setup(antennas="nowhere-7"), ".antennas = 'nowhere-7' is neither a built-in layout"),
-    ("taper-out-of-range", _setup(_kind="dish", taper=5.0), ".taper is 5; valid:"),
-    ("source-never-rises", _set(["sky", "dec_deg"], 70.0), None),  # with an array: below
+    ("fwhm-factor-out-of-range", _setup(_kind="dish", fwhm_factor=5.0), ".fwhm_factor is 5; valid:"),
+    ("source-never-rises", _set(["sky", "dec_deg"], -80.0), None),  # with an array: below
     ("map-smaller-than-beam", _setup(map_size_arcsec=0.5),
      "setup 'arr': map_size_arcsec: 0.5 arcsec is smaller than one beam"),
     ("spacing-wider-than-primary-beam", _setup(pointing_spacing_arcsec=200.0),
@@ -209,7 +211,7 @@ CONFIG_CASES = [
     ("mask-sigma-zero", _setup(clean_mask_sigma=0.0),
      "setup 'arr': clean_mask_sigma = 0.0; must be > 0"),
     ("unknown-deconvolver", _setup(deconvolver="maxent"),
-     "setup 'arr': deconvolver = 'maxent'; valid: hogbom, multiscale"),
+     "setup 'arr': deconvolver = 'maxent'; valid: hogbom, multiscale, none"),
     ("visibilities-from-a-dish", _setup(_kind="dish", write_visibilities=True),
      "write_visibilities = true needs kind = \"array\""),
     ("opacity-without-receiver", _setup(zenith_opacity=0.1),
@@ -219,7 +221,18 @@ CONFIG_CASES = [
     ("products", _set(["output", "products"], ["movie"]), "products has 'movie'"),
     ("percentile", _set(["analysis"], {"percentile": 120.0}), "percentile must be in 0..100"),
     ("spectra-positions", _set(["analysis"], {"spectra_positions": [[1]]}), "give pixel pairs"),
-    ("demo-size-4", _set(["cloud", "size"], 4), "[cloud].size is 4; valid: >= 8"),
+    # renamed keys: refused with their new name (no silent aliases)
+    ("renamed-taper", _setup(_kind="dish", taper=1.1), ".taper was renamed to fwhm_factor"),
+    ("renamed-efficiency", _setup(efficiency=0.7),
+     "efficiency was renamed to main_beam_efficiency (dish) or aperture_efficiency (array)"),
+    ("renamed-hour-angle-start", _setup(hour_angle_start_h=-2.0),
+     "hour_angle_start_h was renamed to hour_angles_h = [start, stop]"),
+    ("renamed-deconvolve", _setup(deconvolve=True), 'deconvolve was renamed to deconvolver = "hogbom"'),
+    ("renamed-scales", _setup(scales_arcsec=[0, 4]), "scales_arcsec was renamed to clean_scales_arcsec"),
+    ("renamed-size", _set(["cloud", "size"], 16), "[cloud].size was renamed to cells"),
+    ("renamed-mean-density", _set(["cloud", "mean_density_cm3"], 1e3),
+     "[cloud].mean_density_cm3 was renamed to mean_n_h2_cm3"),
+    ("demo-cells-4", _set(["cloud", "cells"], 4), "[cloud].cells is 4; valid: >= 8"),
     ("source-missing", _set(["cloud", "source"], "nowhere.h5"), "nowhere.h5: no such file"),
     ("source-folder", _set(["cloud", "source"], "."), "is a folder; give a snapshot file"),
     ("datafile-missing", _tracer(datafile="none.dat"), "none.dat: no such file"),
@@ -370,7 +383,7 @@ CLI_CASES = [
                                "not-an-address"], "is not a scheduler address"),
     ("workers-and-scheduler", ["run", "run.toml", "--out", "out", "--workers", "1",
                                "--scheduler", "tcp://127.0.0.1:1"], "not both"),
-    ("demo-size-4", ["demo", "--out", "out", "--size", "4"], "--size must be >= 8"),
+    ("demo-cells-4", ["demo", "--out", "out", "--cells", "4"], "--cells must be >= 8"),
     ("out-parent-missing", ["run", "run.toml", "--out", "no/such/out"], "does not exist"),
     ("out-exists", ["run", "run.toml", "--out", "."], "exists; choose another --out"),
     ("plan-dec-95", ["plan", "dec95.toml"], "valid: -90 <= dec_deg <= 90"),
@@ -413,7 +426,7 @@ def _api_cases():
     return [
         ("line-unknown", lambda: synth.Line("XYZ", "1-0"), "unknown species"),
         ("interferometer-same-position",
-         lambda: synth.Interferometer(antennas=[[0, 0, 0], [0, 0, 0], [9, 0, 0]]),
+         lambda: synth.Array(antennas=[[0, 0, 0], [0, 0, 0], [9, 0, 0]], tsys=90 * u.K, diameter=10 * u.m),
          "share the position"),
         ("validate-name", lambda: validate_config(conf(name="../x")), "first character '.'"),
         ("validate-nan", lambda: validate_config(conf(abundance=float("nan"))), "is nan"),
@@ -488,7 +501,7 @@ def test_plan_reports_a_setup_that_cannot_observe(tmp_path, capsys, monkeypatch)
     """`synth plan` checks the config up front but leaves observing-only conditions (the
     source rising at an array) to the planner, which lists the setup as not planned."""
     monkeypatch.chdir(tmp_path)
-    conf = dict(copy.deepcopy(BASE), sky={"distance_pc": 2000, "dec_deg": 70.0},
+    conf = dict(copy.deepcopy(BASE), sky={"distance_pc": 2000, "dec_deg": -80.0},
                 setup=[ARRAY, DISH])
     (tmp_path / "p.toml").write_text(to_toml(conf))
     assert cli.main(["plan", "p.toml"]) == 0

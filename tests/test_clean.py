@@ -6,7 +6,7 @@ import astropy.units as u
 
 from synth.instrument.clean import hogbom
 from synth.instrument.imaging import fit_restoring_beam, restore, restoring_kernel
-from synth.instrument.interferometer import Interferometer, observe_interferometric
+from synth.instrument.interferometer import Array, observe_interferometric
 from synth.instrument.uv import uv_tracks
 from synth.instrument.visibilities import ImageGeometry, grid_dirty, predict
 
@@ -25,9 +25,9 @@ def _field():
 def test_clean_point_field_fluxes_and_residuals():
     """Restored fluxes of four point sources within 1 % (noise 1.5 mJy, 3 sigma threshold);
     the CLEAN stops with every residual below the threshold (Högbom 1974)."""
-    arr = Interferometer("ring-24")
-    obs = observe_interferometric(make_cube(_field()), arr, seed=11, deconvolve=True,
-                                  primary_beam=False, sample_interval=300 * u.s, threshold=3.0)
+    arr = Array("ring-24", tsys=66 * u.K)
+    obs = observe_interferometric(make_cube(_field()), arr, seed=11, deconvolver="hogbom",
+                                  primary_beam=False, sample_interval=300 * u.s, clean_stop_sigma=3.0, correct_primary_beam=False)
     img = obs.unmasked_data[:].value
     for (y, x), s in SOURCES:
         np.testing.assert_allclose(img[:, y, x], s, rtol=0.01)
@@ -42,7 +42,7 @@ def test_clean_point_field_fluxes_and_residuals():
     dirty = grid_dirty(vis, t.uvw_m, 230e9, w, g)
     psf = grid_dirty(np.ones(w.size, complex), t.uvw_m, 230e9, w, g, shape=(256, 256))
     dirty.setflags(write=False)
-    model, res, n = hogbom(dirty, psf, threshold=1e-3, gain=0.1, niter=20000)
+    model, res, n = hogbom(dirty, psf, threshold=1e-3, loop_gain=0.1, max_components=20000)
     assert 0 < n < 20000
     assert np.abs(res).max() < 1e-3
     assert model.sum() == pytest.approx(sum(s for _, s in SOURCES), rel=0.01)
@@ -53,7 +53,7 @@ def test_hogbom_on_exact_psf_sum():
     y, x = np.mgrid[-64:64, -64:64]
     psf = np.exp(-(x**2 + y**2) / 8.0) * np.cos(0.3 * x)           # peak 1 at (64, 64)
     dirty = 2.0 * psf[64 - 20:64 + 44, 64 - 30:64 + 34] + 0.7 * psf[64 - 40:64 + 24, 64 - 10:64 + 54]
-    model, res, _ = hogbom(dirty, psf, threshold=1e-4, gain=0.2, niter=5000)
+    model, res, _ = hogbom(dirty, psf, threshold=1e-4, loop_gain=0.2, max_components=5000)
     assert model[20, 30] == pytest.approx(2.0, rel=1e-3)
     assert model[40, 10] == pytest.approx(0.7, rel=1e-3)
     assert np.abs(res).max() < 1e-4
@@ -79,14 +79,14 @@ def test_restore_gives_beam_peak_and_area():
 def _extended_dirty():
     """A noiseless 2.4" Gaussian (3.6 restoring beams) seen by ring-24 at 230.5 GHz: dirty
     image, PSF, restoring beam, pixel solid angle, and the shortest baseline (wavelengths)."""
-    from synth.instrument.interferometer import Interferometer, _psf, assemble_tracks
+    from synth.instrument.interferometer import Array, _psf, assemble_tracks
     from synth.instrument.visibilities import cube_geometry, grid_dirty, predict
     from synth.instrument.weighting import imaging_weights
     from test_imaging import gaussian_sky
     pix, nu = 0.2, 230.538e9
     sky = gaussian_sky(128, 12.0, 1.0)[0]
     geom, _, dec = cube_geometry(make_cube(sky[None], pix_arcsec=pix))
-    tr = assemble_tracks([Interferometer("ring-24")], dec,
+    tr = assemble_tracks([Array("ring-24", tsys=90 * u.K)], dec,
                          dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s), 1e6)
     w = imaging_weights(tr.uvw_m, nu, tr.sigma_jy, geom, "natural")
     dirty = grid_dirty(predict(sky, tr.uvw_m, nu, geom), tr.uvw_m, nu, w, geom)
@@ -137,16 +137,16 @@ def test_multiscale_with_points_only_is_hogbom():
 
 
 @pytest.mark.parametrize("kw, match", [
-    (dict(deconvolver="maxent"), "deconvolver='maxent' is not one of hogbom, multiscale"),
-    (dict(deconvolver="multiscale", scales=[0, 500] * u.arcsec), "scales: 500 arcsec is larger"),
-    (dict(deconvolver="multiscale", scales=[0, -1] * u.arcsec), "scales="),
+    (dict(deconvolver="maxent"), "deconvolver='maxent' is not one of none, hogbom, multiscale"),
+    (dict(deconvolver="multiscale", clean_scales=[0, 500] * u.arcsec), "clean_scales: 500 arcsec is larger"),
+    (dict(deconvolver="multiscale", clean_scales=[0, -1] * u.arcsec), "clean_scales="),
 ])
 def test_bad_deconvolver_options(kw, match):
     from synth.errors import InstrumentError
-    from synth.instrument.interferometer import Interferometer, observe_interferometric
+    from synth.instrument.interferometer import Array, observe_interferometric
     with pytest.raises(InstrumentError, match=match):
-        observe_interferometric(make_cube(np.zeros((1, 64, 64))), Interferometer("ring-24"),
-                                noise=False, deconvolve=True, pointing_pattern="single", **kw)
+        observe_interferometric(make_cube(np.zeros((1, 64, 64))), Array("ring-24", tsys=90 * u.K),
+                                noise=False, pointing_pattern="single", correct_primary_beam=False, **kw)
 
 
 def test_observe_with_multiscale_restores_more_extended_flux():
@@ -155,13 +155,13 @@ def test_observe_with_multiscale_restores_more_extended_flux():
     Högbom, and at least 90 % of it; the DECONVER card says which ran."""
     from test_imaging import gaussian_sky
     cube = make_cube(gaussian_sky(128, 12.0, 1.0, nch=1), pix_arcsec=0.2)
-    kw = dict(noise=False, deconvolve=True, weighting="natural", threshold=0.1, niter=20000,
+    kw = dict(noise=False, weighting="natural", clean_stop_sigma=0.1, clean_max_components=20000,
               sample_interval=300 * u.s, pointing_pattern="single", pixel=0.2 * u.arcsec,
               primary_beam=False)
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     out = {}
     for dec in ("hogbom", "multiscale"):
-        obs = observe_interferometric(cube, arr, deconvolver=dec, **kw)
+        obs = observe_interferometric(cube, arr, deconvolver=dec, correct_primary_beam=False, **kw)
         omega_pix = np.deg2rad(0.2 / 3600) ** 2
         out[dec] = obs.unmasked_data[0].value.sum() * omega_pix / obs.beam.sr.value
         assert obs.meta["DECONVER"] == dec
@@ -175,7 +175,7 @@ def test_mask_keeps_components_inside():
     PSF's peak being 1)."""
     from synth.instrument.multiscale import multiscale_clean
     from test_imaging import HA
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     n, pix = 96, 0.2
     geom = ImageGeometry(n, n, -np.deg2rad(pix / 3600), np.deg2rad(pix / 3600), n // 2, n // 2)
     t = uv_tracks(arr, -30 * u.deg, HA, 600 * u.s)

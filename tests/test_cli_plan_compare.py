@@ -17,16 +17,16 @@ from synth.pipeline import build_snapshot
 CONF = """
 [cloud]
 source = "demo"
-size = 12
+cells = 12
 box_pc = 0.5
-mean_density_cm3 = 1e4
+mean_n_h2_cm3 = 1e4
 mach = 4.0
 seed = 5
 
 [sky]
 distance_pc = 4000
-ra_deg = 277.25
-dec_deg = -3.4
+ra_deg = 131.50
+dec_deg = 6.2
 
 [channels]
 width_kms = 0.25
@@ -46,8 +46,8 @@ abundance = 2e-7
 [[setup]]
 name = "dish"
 kind = "dish"
-diameter_m = 45
-efficiency = 0.6
+diameter_m = 40
+main_beam_efficiency = 0.6
 tsys_k = 150
 integration_time_h = 1.0
 
@@ -55,8 +55,8 @@ integration_time_h = 1.0
 name = "array"
 kind = "array"
 antennas = "compact-16"
-diameter_m = 12
-latitude_deg = -23
+diameter_m = 10
+latitude_deg = 8
 tsys_k = 90
 sample_interval_s = 900
 """
@@ -83,16 +83,16 @@ def _direct_plans(path, target_snr, hours):
     """synth.plan on cubes synthesized here with synth.synthesize (not through the CLI)."""
     conf = load_config(str(path))
     snap = build_snapshot(conf["cloud"])
-    dish = synth.SingleDish(diameter=45 * u.m, efficiency=0.6, tsys=150 * u.K, name="dish")
-    arr = synth.Interferometer(antennas="compact-16", dish_diameter=12 * u.m,
-                               latitude=-23 * u.deg, tsys=90 * u.K, name="array")
+    dish = synth.Dish(diameter=40 * u.m, main_beam_efficiency=0.6, tsys=150 * u.K, name="dish")
+    arr = synth.Array(antennas="compact-16", diameter=12 * u.m,
+                               latitude=8 * u.deg, tsys=90 * u.K, name="array")
     out = {}
     for tr in conf["tracer"]:
         line = synth.Line(tr["species"], tr["transition"])
         cube = synth.synthesize(snap, line, tr["abundance"], distance=4000 * u.pc,
                                 channel_width=0.25 * u.km / u.s,
                                 velocity_range=(-3, 3) * u.km / u.s,
-                                position=(277.25 * u.deg, -3.4 * u.deg))
+                                position=(131.50 * u.deg, 6.2 * u.deg))
         for inst, kw in ((dish, {}), (arr, {"sample_interval": 900 * u.s})):
             out[(tr["name"], inst.name)] = synth.planning.plan(
                 inst, line, target_snr=target_snr, cube=cube, integration_time=hours * u.hr,

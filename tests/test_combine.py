@@ -10,7 +10,7 @@ from spectral_cube import SpectralCube
 from synth.errors import InstrumentError
 from synth.instrument.combine import feather_plane, split_instruments
 from synth.instrument.imaging import restoring_kernel
-from synth.instrument.interferometer import Interferometer, observe_interferometric
+from synth.instrument.interferometer import Array, observe_interferometric
 
 from test_imaging import gaussian_sky, make_cube
 
@@ -42,10 +42,10 @@ def test_feathered_total_flux_equals_single_dish():
     """Total flux of the feathered cube equals the single-dish total within 2 % (F(0) =
     F_SD(0); Stanimirović et al. 1999), while the interferometer alone misses most of it."""
     sky = gaussian_sky(128, 15.0 / PIX, flux=3.0, nch=2)
-    arr = Interferometer("compact-16")
-    kw = dict(noise=False, primary_beam=False, deconvolve=True, sample_interval=600 * u.s)
-    both = observe_interferometric(make_cube(sky, pix_arcsec=PIX), [arr, _sd_cube(sky)], **kw)
-    alone = observe_interferometric(make_cube(sky, pix_arcsec=PIX), arr, **kw)
+    arr = Array("compact-16", tsys=90 * u.K)
+    kw = dict(noise=False, primary_beam=False, deconvolver="hogbom", sample_interval=600 * u.s)
+    both = observe_interferometric(make_cube(sky, pix_arcsec=PIX), [arr, _sd_cube(sky)], correct_primary_beam=False, **kw)
+    alone = observe_interferometric(make_cube(sky, pix_arcsec=PIX), arr, correct_primary_beam=False, **kw)
     omega_pix = np.deg2rad(PIX / 3600) ** 2
     flux = both.unmasked_data[:].value.sum(axis=(1, 2)) * omega_pix / both.beam.sr.value
     flux_int = alone.unmasked_data[:].value.sum(axis=(1, 2)) * omega_pix / alone.beam.sr.value
@@ -58,16 +58,16 @@ def test_feathered_total_flux_equals_single_dish():
 
 
 def test_feather_with_single_dish_instance():
-    """A SingleDish in the list is observed by synth.instrument.observe and feathered: the
+    """A Dish in the list is observed by synth.instrument.observe and feathered: the
     total flux equals that of the single-dish cube (2 %)."""
-    from synth.instrument.single_dish import SingleDish
+    from synth.instrument.single_dish import Dish
     from synth.instrument.observe import observe
     sky = gaussian_sky(96, 10.0 / PIX, flux=2.0, nch=2)
-    dish = SingleDish(diameter=50 * u.m, efficiency=0.7, tsys=100 * u.K)
+    dish = Dish(diameter=50 * u.m, main_beam_efficiency=0.7, tsys=100 * u.K)
     cube_k = make_cube(sky * 1e3, pix_arcsec=PIX, unit=u.K)
-    feathered = observe_interferometric(cube_k, [Interferometer("compact-16"), dish], noise=False,
+    feathered = observe_interferometric(cube_k, [Array("compact-16", tsys=90 * u.K), dish], noise=False,
                                         primary_beam=False, sample_interval=900 * u.s,
-                                        pixel=PIX * u.arcsec)
+                                        pixel=PIX * u.arcsec, deconvolver="none", correct_primary_beam=False)
     sd = observe(cube_k, dish, noise=False, guard_band=0 * u.arcsec)
     omega_pix = np.deg2rad(PIX / 3600) ** 2
     sd_jy = sd.to(u.Jy / u.beam) if sd.unit.is_equivalent(u.K) else sd
@@ -80,11 +80,11 @@ def test_joint_imaging_combines_noise_by_inverse_variance():
     """Joint natural-weighted imaging: 1/sigma^2 = 1/sigma_1^2 + 1/sigma_2^2 (TMS ch. 6) and
     the visibility count is the sum."""
     cube = make_cube(np.zeros((2, 64, 64)), pix_arcsec=0.2)
-    a, b = Interferometer("compact-16"), Interferometer("ring-24")
+    a, b = Array("compact-16", tsys=90 * u.K), Array("ring-24", tsys=90 * u.K)
     kw = dict(noise=False, sample_interval=900 * u.s)
-    ra = observe_interferometric(cube, a, **kw).meta
-    rb = observe_interferometric(cube, b, **kw).meta
-    rj = observe_interferometric(cube, (a, b), **kw).meta
+    ra = observe_interferometric(cube, a, deconvolver="none", correct_primary_beam=False, **kw).meta
+    rb = observe_interferometric(cube, b, deconvolver="none", correct_primary_beam=False, **kw).meta
+    rj = observe_interferometric(cube, (a, b), deconvolver="none", correct_primary_beam=False, **kw).meta
     assert rj["NVIS"] == ra["NVIS"] + rb["NVIS"]
     expect = (ra["THEORMS"] ** -2 + rb["THEORMS"] ** -2) ** -0.5
     assert rj["THEORMS"] == pytest.approx(expect, rel=1e-9)
@@ -94,7 +94,7 @@ def test_joint_imaging_combines_noise_by_inverse_variance():
 @pytest.mark.parametrize("inst, match", [
     (["ring-24"], "are not instruments"),
     ([SpectralCube], "are not instruments"),
-    ([], "at least one Interferometer"),
+    ([], "at least one Array"),
 ])
 def test_bad_combinations(inst, match):
     with pytest.raises(InstrumentError, match=match):
@@ -104,7 +104,7 @@ def test_bad_combinations(inst, match):
 def test_two_dishes_refused():
     sd = _sd_cube(gaussian_sky(64, 5.0))
     with pytest.raises(InstrumentError, match="at most one single dish"):
-        split_instruments([Interferometer("ring-24"), sd, sd])
+        split_instruments([Array("ring-24", tsys=90 * u.K), sd, sd])
 
 
 def test_feather_elliptical_dish_beam_orientation_matches_radio_beam_kernel():

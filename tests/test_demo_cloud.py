@@ -14,7 +14,7 @@ N = 64
 @pytest.fixture(scope="module")
 def still_cloud():
     """Turbulence only: no bulk rotation or shear."""
-    return demo_cloud(n=N, seed=7, rotation=0 * u.km / u.s / u.pc, shear=0 * u.km / u.s / u.pc)
+    return demo_cloud(cells=N, seed=7, rotation=0 * u.km / u.s / u.pc, shear=0 * u.km / u.s / u.pc)
 
 
 def spectral_slope(field, k_min, k_max):
@@ -47,7 +47,7 @@ def solenoidal_power_fraction(v):
 
 def test_mean_density_as_requested():
     """Volume-averaged n(H2) within 5 % of the request (brief requirement)."""
-    c = demo_cloud(n=N, seed=2, mean_density=5e3 * u.cm**-3)
+    c = demo_cloud(cells=N, seed=2, mean_n_h2=5e3 * u.cm**-3)
     assert c.n_h2_cm3.mean(dtype=np.float64) == pytest.approx(5e3, rel=0.05)
 
 
@@ -65,7 +65,7 @@ def test_density_pdf_is_lognormal():
     A shallower spectrum (beta = 2.5) puts more independent modes in one box, so the sample
     skewness of a Gaussian field scatters by only a few 0.01 rather than ~0.2 at beta = 3.5.
     """
-    c = demo_cloud(n=N, seed=7, density_slope=2.5)
+    c = demo_cloud(cells=N, seed=7, density_slope=2.5)
     ln_n = np.log(c.n_h2_cm3.astype(np.float64)).ravel()
     assert abs(stats.skew(ln_n)) < 0.1
     assert abs(stats.kurtosis(ln_n)) < 0.1
@@ -76,7 +76,7 @@ def test_density_pdf_is_lognormal():
 @pytest.mark.parametrize("beta", [3.5, 2.5])
 def test_log_density_power_spectrum_slope(beta):
     """The Gaussian field behind ln n has P(k) ~ k^-beta: fitted slope within 0.1 (brief)."""
-    c = demo_cloud(n=N, seed=3, density_slope=beta)
+    c = demo_cloud(cells=N, seed=3, density_slope=beta)
     slope = spectral_slope(np.log(c.n_h2_cm3.astype(np.float64)), 2, N // 2)
     assert slope == pytest.approx(-beta, abs=0.1)
 
@@ -96,7 +96,7 @@ def test_velocity_dispersion_per_axis(still_cloud):
 @pytest.mark.parametrize("fraction", [0.7, 0.2])
 def test_solenoidal_fraction_recovered(fraction):
     """Helmholtz decomposition of the turbulent velocity gives the requested fraction +-0.05."""
-    c = demo_cloud(n=32, seed=5, solenoidal_fraction=fraction,
+    c = demo_cloud(cells=32, seed=5, solenoidal_fraction=fraction,
                    rotation=0 * u.km / u.s / u.pc, shear=0 * u.km / u.s / u.pc)
     measured = solenoidal_power_fraction(c.velocity_cms.astype(np.float64))
     assert measured == pytest.approx(fraction, abs=0.05)
@@ -104,7 +104,7 @@ def test_solenoidal_fraction_recovered(fraction):
 
 def test_bulk_flow_gradient():
     """Without turbulence v_z = Omega y + S x about the centre and v_y = -Omega z (recipe)."""
-    c = demo_cloud(n=16, seed=1, mach=0.0, size=1.6 * u.pc,
+    c = demo_cloud(cells=16, seed=1, mach=0.0, box=1.6 * u.pc,
                    rotation=0.5 * u.km / u.s / u.pc, shear=0.2 * u.km / u.s / u.pc)
     r = (np.arange(16) - 7.5) * 0.1
     expect_vz = 0.5 * r[None, :, None] + 0.2 * r[:, None, None]
@@ -127,7 +127,7 @@ def test_temperature_recipe_and_range(still_cloud):
 
 def test_physically_plausible_defaults():
     """Defaults: mean n 1e3-1e4 cm^-3, 1-D dispersion 0.5-3 km/s, box a few pc (brief)."""
-    c = demo_cloud(n=32)
+    c = demo_cloud(cells=32)
     assert 1e3 <= c.n_h2_cm3.mean() <= 1e4
     assert 0.5 <= c.velocity_cms[2].std() / 1e5 <= 3.0
     assert c.box_size[0].to_value(u.pc) == pytest.approx(4.0)
@@ -135,14 +135,14 @@ def test_physically_plausible_defaults():
 
 def test_microturbulence_scales_with_cell_size():
     """sigma_turb = sigma_1D (dx/L)^((beta_v-3)/2): 1/4 of sigma_1D for n=16, beta_v=4."""
-    c = demo_cloud(n=16, mach=10.0)
+    c = demo_cloud(cells=16, mach=10.0)
     sigma_1d = 10.0 * sound_speed(10 * u.K).to_value(u.km / u.s) / np.sqrt(3)
     assert c.sigma_turb_cms / 1e5 == pytest.approx(sigma_1d / 4.0, rel=1e-6)
 
 
 def test_same_seed_same_bytes():
     """Randomness only through the seed: identical bytes for the same seed, not for another."""
-    a, b, c = demo_cloud(n=32, seed=11), demo_cloud(n=32, seed=11), demo_cloud(n=32, seed=12)
+    a, b, c = demo_cloud(cells=32, seed=11), demo_cloud(cells=32, seed=11), demo_cloud(cells=32, seed=12)
     assert a.n_h2_cm3.tobytes() == b.n_h2_cm3.tobytes()
     assert a.velocity_cms.tobytes() == b.velocity_cms.tobytes()
     assert a.t_kin_k.tobytes() == b.t_kin_k.tobytes()
@@ -158,8 +158,8 @@ def test_demo_source_is_complete():
 
 
 @pytest.mark.parametrize("kw, match", [
-    ({"n": 4}, "n = 4 is not valid"),
-    ({"n": 16.0}, "n = 16.0 is not valid"),
+    ({"cells": 4}, "cells = 4 is not valid"),
+    ({"cells": 16.0}, "cells = 16.0 is not valid"),
     ({"mach": -1.0}, "mach = -1.0 is not valid"),
     ({"solenoidal_fraction": 1.5}, "solenoidal_fraction = 1.5 is not valid"),
     ({"density_slope": 0.0}, "density_slope = 0.0 is not valid"),
@@ -173,11 +173,11 @@ def test_bad_arguments(kw, match):
 
 def test_bare_number_size_refused():
     """A physical input without a unit is refused by the unit check (astropy quantity_input)."""
-    with pytest.raises(TypeError, match="size"):
-        demo_cloud(n=16, size=4.0)
+    with pytest.raises(TypeError, match="box"):
+        demo_cloud(cells=16, box=4.0)
 
 
 def test_memory_guard():
     """A grid beyond max_bytes is refused with the number and the option that allows it."""
     with pytest.raises(MemoryBudgetError, match="max_bytes"):
-        demo_cloud(n=512, max_bytes=1e9)
+        demo_cloud(cells=512, max_bytes=1e9)

@@ -22,15 +22,15 @@ from synth.fitsio import write_image
 SMALL = """
 [cloud]
 source = "demo"
-size = 24
+cells = 24
 box_pc = 0.5
-mean_density_cm3 = 1e4
+mean_n_h2_cm3 = 1e4
 mach = 4.0
 seed = 3
 
 [sky]
 distance_pc = 4000
-dec_deg = -3.4
+dec_deg = 6.2
 object = "invented clump A"
 
 [channels]
@@ -54,7 +54,7 @@ figures = false
 [[setup]]
 name = "dish"
 kind = "dish"
-diameter_m = 45
+diameter_m = 40
 tsys_k = 150
 channel_width_kms = 0.5
 integration_time_h = 1.0
@@ -64,8 +64,8 @@ seed = 1
 name = "array"
 kind = "array"
 antennas = "compact-16"
-diameter_m = 12
-latitude_deg = -23
+diameter_m = 10
+latitude_deg = 8
 tsys_k = 90
 channel_width_kms = 0.5
 integration_time_h = 2.0
@@ -77,8 +77,8 @@ name = "both"
 kind = "array"
 antennas = "compact-16"
 combine_with = ["dish"]
-diameter_m = 12
-latitude_deg = -23
+diameter_m = 10
+latitude_deg = 8
 tsys_k = 90
 channel_width_kms = 0.5
 integration_time_h = 2.0

@@ -10,9 +10,9 @@ from spectral_cube import SpectralCube
 
 from synth.errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
 from synth.instrument.imaging import restoring_kernel, fit_restoring_beam
-from synth.instrument.interferometer import Interferometer, observe_interferometric
+from synth.instrument.interferometer import Array, observe_interferometric
 from synth.instrument.primary_beam import half_power_radius_rad, pair_beam, voltage_pattern
-from synth.instrument.uv import largest_recoverable_scale, synthesized_beam_estimate, uv_tracks
+from synth.instrument.uv import largest_scale, synthesized_beam_estimate, uv_tracks
 from synth.instrument.visibilities import (cube_geometry, interferometer_rms,
                                            jy_per_pixel_factor, predict)
 from synth.instrument.weighting import cell_density, imaging_weights
@@ -21,7 +21,7 @@ C = 299792458.0
 HA = (-2, 2) * u.hourangle
 
 
-def make_cube(data, pix_arcsec=0.2, dec=-30.0, nu0=230.538e9, dv_kms=0.5, unit=u.Jy / u.pix,
+def make_cube(data, pix_arcsec=0.2, dec=10.0, nu0=230.538e9, dv_kms=0.5, unit=u.Jy / u.pix,
               crpix=None):
     nch, ny, nx = data.shape
     w = WCS(naxis=3)
@@ -29,7 +29,7 @@ def make_cube(data, pix_arcsec=0.2, dec=-30.0, nu0=230.538e9, dv_kms=0.5, unit=u
     w.wcs.cunit = ["deg", "deg", "m/s"]
     w.wcs.cdelt = [-pix_arcsec / 3600, pix_arcsec / 3600, dv_kms * 1e3]
     w.wcs.crpix = crpix or [nx // 2 + 1, ny // 2 + 1, 1]
-    w.wcs.crval = [83.8, dec, 0.0]
+    w.wcs.crval = [120.0, dec, 0.0]
     w.wcs.restfrq = nu0
     w.wcs.specsys = "LSRK"
     return SpectralCube(data=data * unit, wcs=w)
@@ -46,7 +46,7 @@ def test_predict_matches_direct_fourier_sum_with_astropy_lm():
     eq. 3.7) with (l, m) the SIN direction cosines from astropy's WCS: 1e-6."""
     cube = make_cube(np.zeros((1, 64, 64)), crpix=[30.5, 36.0, 1])
     geom, ra0, dec0 = cube_geometry(cube)
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     t = uv_tracks(arr, dec0 * u.rad, HA, 1200 * u.s)
     img = np.zeros((64, 64))
     img[40, 17] = 1.0
@@ -66,8 +66,8 @@ def test_point_at_phase_centre_peak_equals_flux():
     """Noiseless dirty image of a 1 Jy point at the phase centre peaks at 1 Jy/beam (1e-4)."""
     d = np.zeros((2, 64, 64))
     d[:, 32, 32] = 1.0
-    obs = observe_interferometric(make_cube(d), Interferometer("ring-24"), noise=False,
-                                  sample_interval=600 * u.s, weighting="uniform")
+    obs = observe_interferometric(make_cube(d), Array("ring-24", tsys=90 * u.K), noise=False,
+                                  sample_interval=600 * u.s, weighting="uniform", deconvolver="none", correct_primary_beam=False)
     img = obs.unmasked_data[:].value
     assert obs.unit == u.Jy / u.beam
     assert np.unravel_index(np.argmax(img[0]), img[0].shape) == (32, 32)
@@ -78,10 +78,10 @@ def test_point_at_phase_centre_peak_equals_flux():
 def test_gaussian_dirty_peak_matches_analytic_visibilities(fwhm_pix):
     """Natural weighting, no noise: peak = sum_k w_k S exp(-pi^2 theta^2 |u_k|^2 / (4 ln 2))
     / sum_k w_k (analytic visibility of a Gaussian; docs/references.md) within 1 %."""
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     obs = observe_interferometric(make_cube(gaussian_sky(128, fwhm_pix, 2.0)), arr, noise=False,
-                                  primary_beam=False, sample_interval=300 * u.s)
-    t = uv_tracks(arr, -30 * u.deg, HA, 300 * u.s)
+                                  primary_beam=False, sample_interval=300 * u.s, deconvolver="none", correct_primary_beam=False)
+    t = uv_tracks(arr, 10 * u.deg, HA, 300 * u.s)
     q = np.hypot(t.uvw_m[:, 0], t.uvw_m[:, 1]) * 230.538e9 / C
     theta = np.deg2rad(fwhm_pix * 0.2 / 3600)
     expect = 2.0 * np.mean(np.exp(-np.pi**2 * theta**2 * q**2 / (4 * np.log(2))))
@@ -92,12 +92,12 @@ def test_large_gaussian_filtered_and_half_flux_scale_near_las():
     """A Gaussian of 25" > lambda / B_min = 19.4" seen by compact-16: dirty peak = the analytic
     visibility sum within 2 % (it keeps 2e-5 of the flux); the scale where half of the beam-convolved peak survives is
     within 50 % of 0.6 lambda / B_min (Wilner & Welch 1994, an approximate rule)."""
-    arr = Interferometer("compact-16")
+    arr = Array("compact-16", tsys=90 * u.K)
     pix = 0.8
     obs = observe_interferometric(make_cube(gaussian_sky(128, 25.0 / pix), pix_arcsec=pix), arr,
                                   noise=False, primary_beam=False, sample_interval=300 * u.s,
-                                  pixel=pix * u.arcsec)
-    t = uv_tracks(arr, -30 * u.deg, HA, 300 * u.s)
+                                  pixel=pix * u.arcsec, deconvolver="none", correct_primary_beam=False)
+    t = uv_tracks(arr, 10 * u.deg, HA, 300 * u.s)
     q = np.hypot(t.uvw_m[:, 0], t.uvw_m[:, 1]) * 230.538e9 / C
     b_min_wl = q.min()
     assert np.deg2rad(25 / 3600) > 1.0 / b_min_wl
@@ -106,20 +106,20 @@ def test_large_gaussian_filtered_and_half_flux_scale_near_las():
         return np.mean(np.exp(-np.pi**2 * theta**2 * q**2 / (4 * np.log(2))))
     peak = obs.unmasked_data[0, 64, 64].value
     assert peak == pytest.approx(vis_frac(np.deg2rad(25 / 3600)), rel=0.02)
-    beam = synthesized_beam_estimate(arr, 230.538e9 * u.Hz, -30 * u.deg, HA)
+    beam = synthesized_beam_estimate(arr, 230.538e9 * u.Hz, 10 * u.deg, HA)
     tb2 = (beam.major * beam.minor).to_value(u.rad**2)
     half = brentq(lambda th: vis_frac(th) * (th**2 + tb2) / tb2 - 0.5, 1e-8, 1e-2)
-    las = largest_recoverable_scale(arr, 230.538e9 * u.Hz, -30 * u.deg, HA).to_value(u.rad)
+    las = largest_scale(arr, 230.538e9 * u.Hz, 10 * u.deg, HA).to_value(u.rad)
     assert 0.5 < half / las < 1.5
 
 
 def test_natural_noise_matches_radiometer():
     """Natural-weighted image rms = the array's point-source sensitivity for the whole track
     (TMS 3rd ed. eq. 6.62, via interferometer_rms) within 5 %."""
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     obs = observe_interferometric(make_cube(np.zeros((4, 128, 128))), arr, seed=7,
-                                  sample_interval=300 * u.s, pointing_pattern="single")
-    ha = np.unique(uv_tracks(arr, -30 * u.deg, HA, 300 * u.s).hour_angle_rad)
+                                  sample_interval=300 * u.s, pointing_pattern="single", deconvolver="none", correct_primary_beam=False)
+    ha = np.unique(uv_tracks(arr, 10 * u.deg, HA, 300 * u.s).hour_angle_rad)
     dnu = 0.5e3 / C * 230.538e9
     expect = interferometer_rms(arr, dnu * u.Hz, ha.size * 300 * u.s).to_value(u.Jy)
     img = obs.unmasked_data[:].value
@@ -129,8 +129,8 @@ def test_natural_noise_matches_radiometer():
 
 def test_robust_limits_tend_to_natural_and_uniform():
     """Briggs (1995): R = +5 gives natural weights, R = -5 uniform (ratios constant to 1e-3)."""
-    arr = Interferometer("y-27")
-    t = uv_tracks(arr, -30 * u.deg, HA, 300 * u.s)
+    arr = Array("star-30", tsys=90 * u.K)
+    t = uv_tracks(arr, 10 * u.deg, HA, 300 * u.s)
     geom, _, _ = cube_geometry(make_cube(np.zeros((1, 128, 128)), pix_arcsec=0.1))
     sig = np.full(t.uvw_m.shape[0], 0.3)
     nat = imaging_weights(t.uvw_m, 230e9, sig, geom, "natural")
@@ -144,8 +144,8 @@ def test_robust_limits_tend_to_natural_and_uniform():
 def test_uniform_weights_fill_each_cell_equally():
     """Uniform weighting: every occupied uv cell (with its conjugate) sums to weight 1
     (Briggs 1995, sec. 3.2)."""
-    arr = Interferometer("ring-24")
-    t = uv_tracks(arr, -30 * u.deg, HA, 300 * u.s)
+    arr = Array("ring-24", tsys=90 * u.K)
+    t = uv_tracks(arr, 10 * u.deg, HA, 300 * u.s)
     geom, _, _ = cube_geometry(make_cube(np.zeros((1, 64, 64))))
     uni = imaging_weights(t.uvw_m, 230e9, np.ones(t.uvw_m.shape[0]), geom, "uniform")
     dens, _ = cell_density(t.uvw_m, 230e9, uni, geom)
@@ -185,14 +185,14 @@ def test_coarse_model_is_resampled_and_keeps_the_analytic_peak():
     """A 0.5" model is too coarse for ring-24 at 230 GHz (Nyquist <= 0.4"): it is resampled by
     a Fourier zoom onto >= 4 pixels per synthesized beam, and the dirty peak of a Gaussian is
     still the analytic visibility average (Gaussian transform pair) within 1 %."""
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     fwhm = 3.0                                             # arcsec, 6 model pixels
     cube = make_cube(gaussian_sky(64, fwhm / 0.5, 2.0), pix_arcsec=0.5)
     obs = observe_interferometric(cube, arr, noise=False, primary_beam=False,
-                                  sample_interval=300 * u.s)
+                                  sample_interval=300 * u.s, deconvolver="none", correct_primary_beam=False)
     pix = abs(obs.wcs.wcs.cdelt[0]) * 3600
     assert pix < 0.4 and obs.shape[1] * pix == pytest.approx(64 * 0.5, rel=1e-9)
-    t = uv_tracks(arr, -30 * u.deg, HA, 300 * u.s)
+    t = uv_tracks(arr, 10 * u.deg, HA, 300 * u.s)
     q = np.hypot(t.uvw_m[:, 0], t.uvw_m[:, 1]) * 230.538e9 / C
     theta = np.deg2rad(fwhm / 3600)
     expect = 2.0 * np.mean(np.exp(-np.pi**2 * theta**2 * q**2 / (4 * np.log(2))))
@@ -203,7 +203,7 @@ def test_coarse_model_is_resampled_and_keeps_the_analytic_peak():
 def test_explicit_pixel_too_coarse_names_needed_size():
     with pytest.raises(InstrumentError, match=r"too coarse .* must be <= 0\.\d+ arcsec"):
         observe_interferometric(make_cube(np.zeros((1, 64, 64)), pix_arcsec=0.5),
-                                Interferometer("ring-24"), noise=False, pixel=1.0 * u.arcsec)
+                                Array("ring-24", tsys=90 * u.K), noise=False, pixel=1.0 * u.arcsec, deconvolver="none", correct_primary_beam=False)
 
 
 def test_field_larger_than_primary_beam_warns_with_fraction():
@@ -213,8 +213,8 @@ def test_field_larger_than_primary_beam_warns_with_fraction():
     d[0, 128, 128] = 1.0
     d[0, 128, 10] = 1.0              # 23.6" east of centre
     with pytest.warns(FieldLargerThanPrimaryBeamWarning, match=r"50\.0% of the sky cube's flux"):
-        observe_interferometric(make_cube(d), Interferometer("ring-24"), noise=False,
-                                sample_interval=1200 * u.s, pointing_pattern="single")
+        observe_interferometric(make_cube(d), Array("ring-24", tsys=90 * u.K), noise=False,
+                                sample_interval=1200 * u.s, pointing_pattern="single", deconvolver="none", correct_primary_beam=False)
 
 
 def test_kelvin_and_jansky_inputs_agree():
@@ -228,8 +228,8 @@ def test_kelvin_and_jansky_inputs_agree():
     fac = jy_per_pixel_factor(cube_k, 230.538e9, geom)
     assert fac == pytest.approx(2 * k_b * 230.538e9**2 * omega / C**2 / 1e-26, rel=1e-6)
     kw = dict(noise=False, sample_interval=600 * u.s, primary_beam=False)
-    a = observe_interferometric(cube_k, Interferometer("ring-24"), **kw).unmasked_data[0].value
-    b = observe_interferometric(make_cube(d * fac), Interferometer("ring-24"), **kw)
+    a = observe_interferometric(cube_k, Array("ring-24", tsys=90 * u.K), deconvolver="none", correct_primary_beam=False, **kw).unmasked_data[0].value
+    b = observe_interferometric(make_cube(d * fac), Array("ring-24", tsys=90 * u.K), deconvolver="none", correct_primary_beam=False, **kw)
     np.testing.assert_allclose(a, b.unmasked_data[0].value, rtol=1e-9, atol=1e-12)
 
 

@@ -13,7 +13,7 @@ from synth.instrument.beam import jy_per_k
 from synth.instrument.noise import (correlated_noise, hanning_noise_factor, radiometer_rms,
                                     time_for_rms)
 from synth.instrument.observe import observe
-from synth.instrument.single_dish import SingleDish
+from synth.instrument.single_dish import Dish
 
 NU0_HZ = 115.2712018e9  # CO 1-0 (Schöier et al. 2005, read)
 KMS = u.km / u.s
@@ -27,7 +27,7 @@ def make_cube(nz=40, n=128, line=True):
     w.wcs.cunit = ["deg", "deg", "m/s"]
     w.wcs.cdelt = [-PIX_ARCSEC / 3600, PIX_ARCSEC / 3600, 250.0]
     w.wcs.crpix = [n // 2 + 1, n // 2 + 1, 1]
-    w.wcs.crval = [83.8, -5.4, -5000.0]
+    w.wcs.crval = [120.0, 10.0, -5000.0]
     w.wcs.restfrq = NU0_HZ
     w.wcs.specsys = "LSRK"
     data = np.zeros((nz, n, n))
@@ -36,7 +36,7 @@ def make_cube(nz=40, n=128, line=True):
     return SpectralCube(data * u.K, w)
 
 
-DISH = SingleDish(diameter=30 * u.m, efficiency=0.7, tsys=120 * u.K)
+DISH = Dish(diameter=30 * u.m, main_beam_efficiency=0.7, tsys=120 * u.K)
 
 
 def signal_free(obs):
@@ -192,8 +192,8 @@ def test_negative_time_in_observe():
 
 @pytest.mark.parametrize("n_pol", [0, 3, True, 1.5])
 def test_n_pol_must_be_one_or_two(n_pol):
-    from synth.instrument.single_dish import SingleDish
+    from synth.instrument.single_dish import Dish
     with pytest.raises(InstrumentError, match="n_pol"):
-        SingleDish(diameter=30 * u.m, n_pol=n_pol)
+        Dish(diameter=30 * u.m, n_pol=n_pol)
     with pytest.raises(InstrumentError, match="n_pol"):
         radiometer_rms(100 * u.K, 1.0, 1 * u.MHz, 1 * u.s, n_pol=n_pol)

@@ -11,14 +11,14 @@ from spectral_cube import SpectralCube
 
 import synth
 from synth import cli
-from synth.config import SCHEMA, load_config, validate_config
+from synth.config import SCHEMA, config_doc_tables, load_config, validate_config
 from synth.errors import ConfigError, OutputError, SnapshotError, UnknownSpeciesError
 from synth.fitsio import write_cube
 
 MINIMAL = """
 [cloud]
 source = "demo"
-size = 12
+cells = 12
 seed = 3
 [sky]
 distance_pc = 2000
@@ -45,7 +45,7 @@ def conf_file(tmp_path):
 def test_written_cube_reads_back_with_spectral_cube(tmp_path):
     """SpectralCube.read of a written cube gives the same data, spectral axis and rest
     frequency; spectral-cube's moment0() equals our integrated intensity (sum T dv)."""
-    snap = synth.demo_cloud(n=12, seed=5)
+    snap = synth.demo_cloud(cells=12, seed=5)
     line = synth.Line("CO", "2-1")
     cube = synth.synthesize(snap, line, 1e-4, distance=2 * u.kpc,
                             channel_width=0.4 * u.km / u.s, velocity_range=(-12, 12) * u.km / u.s)
@@ -78,7 +78,7 @@ def test_run_config_writes_products(conf_file, tmp_path):
     peak = cube.unmasked_data[:].value.sum(axis=0).max() * 0.5
     assert on_disk["tracers"]["13CO_1-0"]["peak_integrated_k_kms"] == pytest.approx(peak, rel=1e-6)
     col = fits.getdata(out / "13CO_1-0_column.fits")
-    snap = synth.demo_cloud(n=12, seed=3)
+    snap = synth.demo_cloud(cells=12, seed=3)
     ref = (snap.n_h2_cm3 * 2e-6).sum(axis=2).T * snap.cell_size_cm
     np.testing.assert_allclose(col, ref, rtol=1e-6)
 
@@ -130,7 +130,7 @@ def test_failed_run_leaves_nothing(tmp_path):
     (("abundance = 2e-6", ""), "needs 'abundance'"),
     (('species = "13CO"\n', 'species = "13CO"\nexcitation = "nlte"\n'), "valid: lte, lvg"),
     (('products = ["tau", "column"]', 'products = ["movie"]'), "valid: 'tau', 'column'"),
-    (("size = 12", "size = [12"), "is not valid TOML"),
+    (("cells = 12", "cells = [12"), "is not valid TOML"),
 ])
 def test_bad_config(tmp_path, edit, match):
     p = tmp_path / "c.toml"
@@ -147,6 +147,9 @@ def test_config_reference_documents_every_key():
         assert section in doc
         for key in spec:
             assert f"`{key}`" in doc, f"docs/config.md misses {section}.{key}"
+    # and every table equals the one generated from the schema (types, defaults, meaning)
+    assert config_doc_tables(doc) == doc, ("docs/config.md tables differ from the schema; "
+                                           "regenerate them (synth.config.config_doc_tables)")
 
 
 def test_demo_configs_identical():
@@ -234,13 +237,13 @@ def test_bad_snapshot(make, exc, match):
 ])
 def test_bad_synthesize_arguments(kw, match):
     with pytest.raises(ConfigError, match=match):
-        synth.synthesize(synth.demo_cloud(n=8, seed=1), synth.Line("CO", "1-0"), 1e-4, **kw)
+        synth.synthesize(synth.demo_cloud(cells=8, seed=1), synth.Line("CO", "1-0"), 1e-4, **kw)
 
 
 def test_unknown_excitation_method():
     from synth.errors import ExcitationError
     with pytest.raises(ExcitationError, match="valid: lte, lvg"):
-        synth.synthesize(synth.demo_cloud(n=8, seed=1), synth.Line("CO", "1-0"), 1e-4,
+        synth.synthesize(synth.demo_cloud(cells=8, seed=1), synth.Line("CO", "1-0"), 1e-4,
                          excitation="nlte", distance=2 * u.kpc, channel_width=0.5 * u.km / u.s)
 
 

@@ -41,7 +41,7 @@ def _outcome(fn, *args, **kw):
 
 VALID_TOML = """[cloud]
 source = "demo"
-size = 10
+cells = 10
 [sky]
 distance_pc = 2000
 [channels]

@@ -6,7 +6,7 @@ import astropy.units as u
 
 from synth.analysis.realisations import assess_realisations
 from synth.errors import InstrumentError
-from synth.instrument.single_dish import SingleDish
+from synth.instrument.single_dish import Dish
 
 from test_imaging import gaussian_sky, make_cube
 
@@ -22,7 +22,7 @@ def test_flux_fraction_spread_shrinks_as_one_over_sqrt_time():
     """N = 20 realisations of a faint source seen by a dish for t and 4 t: the spread of the
     flux fraction halves (the radiometer equation, sigma proportional to t^-1/2) within
     20 %, and both means stay near 1 (the noise has zero mean)."""
-    cube, dish = _faint(), SingleDish(diameter=40 * u.m, tsys=150 * u.K)
+    cube, dish = _faint(), Dish(diameter=40 * u.m, tsys=150 * u.K)
     kw = dict(seed=100, guard_band=0 * u.arcsec)
     short = assess_realisations(cube, dish, 20, integration_time=60 * u.s, **kw)
     long_ = assess_realisations(cube, dish, 20, integration_time=240 * u.s, **kw)
@@ -42,7 +42,7 @@ def test_flux_fraction_spread_shrinks_as_one_over_sqrt_time():
 ])
 def test_bad_realisations(n, kw, match):
     with pytest.raises(InstrumentError, match=match):
-        assess_realisations(_faint(), SingleDish(diameter=40 * u.m, tsys=150 * u.K), n,
+        assess_realisations(_faint(), Dish(diameter=40 * u.m, tsys=150 * u.K), n,
                             integration_time=60 * u.s, **kw)
 
 
@@ -51,7 +51,7 @@ def test_run_adds_mean_and_spread_columns(tmp_path):
     the noisy setup, and the spread is positive."""
     import csv
     from synth.pipeline import run_config
-    conf = {"cloud": {"source": "demo", "size": 16, "box_pc": 1.0},
+    conf = {"cloud": {"source": "demo", "cells": 16, "box_pc": 1.0},
             "sky": {"distance_pc": 2000.0, "dec_deg": -20.0},
             "channels": {"width_kms": 1.0, "velocity_min_kms": -4.0, "velocity_max_kms": 4.0},
             "tracer": [{"species": "CO", "transition": "1-0", "abundance": 1e-4}],
@@ -73,7 +73,7 @@ def test_recovery_figure_draws_the_spread():
     from synth.analysis.plots import recovery_figure
     from synth.analysis.survival import assess
     from synth.instrument.observe import observe
-    cube, dish = _faint(), SingleDish(diameter=40 * u.m, tsys=150 * u.K)
+    cube, dish = _faint(), Dish(diameter=40 * u.m, tsys=150 * u.K)
     r = assess_realisations(cube, dish, 4, integration_time=60 * u.s, guard_band=0 * u.arcsec)
     omap = observe(cube, dish, integration_time=60 * u.s, seed=9, guard_band=0 * u.arcsec,
                    with_maps=True)

@@ -28,15 +28,15 @@ from synth.report.run_analysis import spectra_positions
 SMALL = """
 [cloud]
 source = "demo"
-size = 16
+cells = 16
 box_pc = 0.5
-mean_density_cm3 = 1e4
+mean_n_h2_cm3 = 1e4
 mach = 4.0
 seed = 3
 
 [sky]
 distance_pc = 4000
-dec_deg = -3.4
+dec_deg = 6.2
 
 [channels]
 width_kms = 0.25
@@ -57,7 +57,7 @@ figures = true
 [[setup]]
 name = "dish"
 kind = "dish"
-diameter_m = 45
+diameter_m = 40
 tsys_k = 150
 channel_width_kms = 0.5
 integration_time_h = 1.0
@@ -67,8 +67,8 @@ seed = 1
 name = "array"
 kind = "array"
 antennas = "compact-16"
-diameter_m = 12
-latitude_deg = -23
+diameter_m = 10
+latitude_deg = 8
 tsys_k = 90
 channel_width_kms = 0.5
 integration_time_h = 2.0
@@ -183,7 +183,7 @@ def test_run_without_setups(tmp_path):
     """A run with no [[setup]] still gets a report with the ideal-cube parts only: no
     survival or plan files, one moment-0 map and one spectra figure per tracer."""
     cfg = tmp_path / "bare.toml"
-    cfg.write_text(SMALL.split("[[setup]]")[0].replace("size = 16", "size = 10"))
+    cfg.write_text(SMALL.split("[[setup]]")[0].replace("cells = 16", "cells = 10"))
     out = tmp_path / "run"
     summary = synth.run_config(str(cfg), str(out), progress=False, log=lambda *a, **k: None)
     names = set(os.listdir(out))

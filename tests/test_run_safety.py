@@ -21,7 +21,7 @@ from synth.rundir import MARKER, check_name, csv_cell, run_path, sweep_debris
 TINY = """
 [cloud]
 source = "demo"
-size = 10
+cells = 10
 seed = 3
 [sky]
 distance_pc = 2000
@@ -298,13 +298,13 @@ def _env():
 @pytest.mark.slow
 @pytest.mark.parametrize("delay", [0.3, 1.5, 4.0, 8.0])
 def test_sigterm_cleans_up(delay, tmp_path):
-    """SIGTERM to a running `synth demo --size 24` (the smallest demo its extended array can
+    """SIGTERM to a running `synth demo --cells 24` (the smallest demo its extended array can
     sample) at a few points: exit 143 with one line, no partial folder and no temporary
     files left."""
     import tempfile
     spills = lambda: {n for n in os.listdir(tempfile.gettempdir()) if n.startswith("synth-tmp-")}
     tmp_before = spills()
-    proc = subprocess.Popen([sys.executable, "-m", "synth", "demo", "--size", "24", "--out",
+    proc = subprocess.Popen([sys.executable, "-m", "synth", "demo", "--cells", "24", "--out",
                              "out", "--quiet"], cwd=tmp_path, env=_env(),
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     time.sleep(delay)
@@ -379,7 +379,7 @@ def test_lvg_over_memory_refused_up_front(tmp_path, capsys, monkeypatch):
         raise AssertionError("the snapshot was built")
     monkeypatch.setattr("synth.pipeline.build_snapshot", no_work)
     p = tmp_path / "lvg.toml"
-    p.write_text(LVG_RUN.replace("size = 10", "size = 64"))
+    p.write_text(LVG_RUN.replace("cells = 10", "cells = 64"))
     rc, err = _run(["run", str(p), "--out", str(tmp_path / "o"), "--quiet", "--memory", "50MB"],
                    capsys)
     assert rc == 2

@@ -23,7 +23,7 @@ KW = dict(distance=2 * u.kpc, channel_width=0.3 * u.km / u.s,
 
 @pytest.fixture(scope="module")
 def cloud():
-    return synth.demo_cloud(n=24, seed=7)
+    return synth.demo_cloud(cells=24, seed=7)
 
 
 @pytest.fixture(scope="module")

@@ -14,7 +14,7 @@ from synth.errors import BeamUndersampledWarning, InstrumentError
 from synth.instrument.beam import (convolve_beam, dish_beam, jy_per_beam_to_k,
                                    k_to_jy_per_beam, to_unit)
 from synth.instrument.observe import observe
-from synth.instrument.single_dish import SingleDish
+from synth.instrument.single_dish import Dish
 
 NU0_HZ = 115.2712018e9  # CO 1-0 (Schöier et al. 2005, read)
 KMS = u.km / u.s
@@ -29,7 +29,7 @@ def make_cube(data, pix_arcsec=1.0, dv_ms=250.0, v0_ms=0.0, unit=u.K, restfrq=NU
     w.wcs.cunit = ["deg", "deg", "m/s"]
     w.wcs.cdelt = [-pix_arcsec / 3600, pix_arcsec / 3600, dv_ms]
     w.wcs.crpix = [nx // 2 + 1, ny // 2 + 1, 1]
-    w.wcs.crval = [83.8, -5.4, v0_ms]
+    w.wcs.crval = [120.0, 10.0, v0_ms]
     w.wcs.restfrq = restfrq
     w.wcs.specsys = "LSRK"
     data = np.array(data, dtype=float)
@@ -50,20 +50,21 @@ def jy_per_k_pixel(nu_hz, pix_arcsec):
 
 
 def test_dish_beam_fwhm_from_diameter():
-    """FWHM = taper lambda / D: 12 m at 230.54 GHz is 22.8" (1.02) / 25.3" (1.13)
-    (Born & Wolf 1999 / Wilson, Rohlfs & Hüttemeister 2013 sect. 6.1, memory)."""
+    """FWHM = fwhm_factor lambda / D: 10 m at 230.54 GHz is 27.4" (1.02) / 30.3" (1.13)
+    (Born & Wolf 1999 / Wilson, Rohlfs & Hüttemeister 2013 sect. 6.1, memory; arcseconds
+    computed by hand: lambda / D = 26.82")."""
     nu = 230.538 * u.GHz
-    assert dish_beam(12 * u.m, nu, 1.02).major.to_value(u.arcsec) == pytest.approx(22.8, abs=0.05)
-    assert dish_beam(12 * u.m, nu, 1.13).major.to_value(u.arcsec) == pytest.approx(25.3, abs=0.05)
-    dish = SingleDish(diameter=12 * u.m)
-    exact = (1.13 * const.c / nu / (12 * u.m)).decompose().value * u.rad
+    assert dish_beam(10 * u.m, nu, 1.02).major.to_value(u.arcsec) == pytest.approx(27.36, abs=0.05)
+    assert dish_beam(10 * u.m, nu, 1.13).major.to_value(u.arcsec) == pytest.approx(30.31, abs=0.05)
+    dish = Dish(diameter=10 * u.m)
+    exact = (1.13 * const.c / nu / (10 * u.m)).decompose().value * u.rad
     assert dish.beam_at(nu).major.to_value(u.arcsec) == pytest.approx(
         exact.to_value(u.arcsec), rel=1e-12)
 
 
 def test_fixed_beam_is_used_at_every_frequency():
     beam = Beam(major=10 * u.arcsec, minor=5 * u.arcsec, pa=20 * u.deg)
-    dish = SingleDish(beam=beam)
+    dish = Dish(beam=beam)
     assert dish.beam_at(100 * u.GHz) == beam and dish.beam_at(300 * u.GHz) == beam
 
 
@@ -176,23 +177,23 @@ def test_target_beam_smaller_than_cube_beam_errors():
     ({"diameter": 30 * u.m, "beam": Beam(10 * u.arcsec)}, "exactly one of diameter"),
     ({"diameter": 30.0}, "diameter: expected a scalar Quantity"),
     ({"diameter": -3 * u.m}, "diameter: must be positive"),
-    ({"diameter": 30 * u.m, "efficiency": 1.5}, "efficiency"),
-    ({"diameter": 30 * u.m, "efficiency": 0}, "efficiency"),
+    ({"diameter": 30 * u.m, "main_beam_efficiency": 1.5}, "main_beam_efficiency"),
+    ({"diameter": 30 * u.m, "main_beam_efficiency": 0}, "main_beam_efficiency"),
     ({"diameter": 30 * u.m, "tsys": -10 * u.K}, "tsys: must be positive"),
     ({"diameter": 30 * u.m, "tsys": 100 * u.s}, "tsys: expected"),
-    ({"diameter": 30 * u.m, "taper": 0.5}, "taper"),
+    ({"diameter": 30 * u.m, "fwhm_factor": 0.5}, "fwhm_factor"),
     ({"beam": "10arcsec"}, "radio_beam.Beam"),
     ({"diameter": 30 * u.m, "name": ""}, "name"),
 ])
 def test_bad_single_dish(kwargs, match):
     with pytest.raises(InstrumentError, match=match):
-        SingleDish(**kwargs)
+        Dish(**kwargs)
 
 
 def test_single_dish_is_frozen_and_pickles():
-    dish = SingleDish(diameter=30 * u.m, tsys=120 * u.K)
+    dish = Dish(diameter=30 * u.m, tsys=120 * u.K)
     with pytest.raises(AttributeError):
-        dish.taper = 1.2
+        dish.fwhm_factor = 1.2
     assert pickle.loads(pickle.dumps(dish)) == dish
 
 
@@ -207,7 +208,7 @@ def line_cube(n=48):
 
 def test_observe_records_and_units():
     """observe returns the beam, the cards of our own naming, K or Jy/beam, either axis."""
-    dish = SingleDish(diameter=30 * u.m, efficiency=0.7, tsys=120 * u.K, name="thirty")
+    dish = Dish(diameter=30 * u.m, main_beam_efficiency=0.7, tsys=120 * u.K, name="thirty")
     cube = line_cube()
     obs = observe(cube, dish, channel_width=0.5 * KMS, integration_time=2 * u.hr, seed=1,
                   guard_band=0 * u.arcsec)
@@ -230,7 +231,7 @@ def test_observe_records_and_units():
 
 def test_observe_accepts_a_jy_per_beam_cube_and_does_not_mutate_input():
     """A foreign Jy/beam cube with a beam is observed like its K twin."""
-    dish = SingleDish(diameter=30 * u.m)
+    dish = Dish(diameter=30 * u.m)
     k_cube = line_cube()
     jy_cube = k_to_jy_per_beam(convolve_beam(k_cube, Beam(9 * u.arcsec)))
     meta_before, data_before = dict(jy_cube.meta), jy_cube.unmasked_data[:].value.copy()
@@ -257,10 +258,10 @@ def test_observe_accepts_a_jy_per_beam_cube_and_does_not_mutate_input():
     ({"guard_band": -3 * u.arcsec, "noise": False}, r"^guard_band: -3.0; must be >= 0"),
     ({"pointing_spacing": 60 * u.arcsec, "noise": False}, "larger than the beam"),
     ({"beyond_box": "mirror", "noise": False}, "beyond_box"),
-    ({"map_center": 3 * u.arcsec, "noise": False}, "map_center"),
+    ({"map_offset": 3 * u.arcsec, "noise": False}, "map_offset"),
 ])
 def test_bad_observe_options(kwargs, match):
-    kwargs = {"instrument": SingleDish(diameter=30 * u.m), **kwargs}
+    kwargs = {"instrument": Dish(diameter=30 * u.m), **kwargs}
     instrument = kwargs.pop("instrument")
     with pytest.raises(InstrumentError, match=match):
         observe(line_cube(), instrument, **kwargs)
@@ -279,4 +280,4 @@ def test_bad_cubes(change, match):
     cube = make_cube(data, unit={"unit": u.m, "no_beam": u.Jy / u.beam}.get(change, u.K),
                      restfrq=0.0 if change == "no_rest" else NU0_HZ)
     with pytest.raises(InstrumentError, match=match):
-        observe(cube, SingleDish(diameter=30 * u.m), noise=False)
+        observe(cube, Dish(diameter=30 * u.m), noise=False)

@@ -25,7 +25,7 @@ def make_cube(spectrum, dv_ms=100.0, v0_ms=-5000.0, ny=4, nx=5):
     w.wcs.cunit = ["deg", "deg", "m/s"]
     w.wcs.cdelt = [-1 / 3600, 1 / 3600, dv_ms]
     w.wcs.crpix = [nx / 2, ny / 2, 1]
-    w.wcs.crval = [83.8, -5.4, v0_ms]
+    w.wcs.crval = [120.0, 10.0, v0_ms]
     w.wcs.restfrq = NU0_HZ
     w.wcs.specsys = "LSRK"
     data = np.array(spectrum, dtype=float)[:, None, None] * np.ones((1, ny, nx))

@@ -128,7 +128,7 @@ def test_fast_flow_leaves_no_gaps_and_conserves_flux():
 
 def test_channel_width_conserves_integrated_intensity():
     """Invariant: ∫T dv of optically thin emission does not depend on the channel width."""
-    snap = synth.demo_cloud(n=16, seed=4)
+    snap = synth.demo_cloud(cells=16, seed=4)
     kw = dict(distance=2 * u.kpc, velocity_range=(-12, 12) * u.km / u.s)
     fine = synth.synthesize(snap, CO10, 1e-10, channel_width=0.1 * u.km / u.s, **kw)
     coarse = synth.synthesize(snap, CO10, 1e-10, channel_width=0.8 * u.km / u.s, **kw)
@@ -140,7 +140,7 @@ def test_channel_width_conserves_integrated_intensity():
 def test_axis_view_equals_transposed_snapshot():
     """Line of sight "x" is the snapshot rotated so that x becomes depth: the cube equals the
     one from an explicitly permuted snapshot (docs/snapshot.md view table)."""
-    snap = synth.demo_cloud(n=12, seed=2)
+    snap = synth.demo_cloud(cells=12, seed=2)
     kw = dict(distance=2 * u.kpc, channel_width=0.5 * u.km / u.s,
               velocity_range=(-15, 15) * u.km / u.s)
     via_view = synth.synthesize(snap, CO10, 1e-6, line_of_sight="x", **kw)
@@ -278,14 +278,14 @@ def test_run_summary_reports_velocity_resolution(tmp_path):
     same numbers as synthesize_products' stats for the same cloud and line)."""
     import json
     conf = tmp_path / "c.toml"
-    conf.write_text('[cloud]\nsize = 10\nseed = 4\n[sky]\ndistance_pc = 2000\n[channels]\n'
+    conf.write_text('[cloud]\ncells = 10\nseed = 4\n[sky]\ndistance_pc = 2000\n[channels]\n'
                     'width_kms = 0.5\nvelocity_min_kms = -12\nvelocity_max_kms = 12\n'
                     '[[tracer]]\nspecies = "CO"\ntransition = "1-0"\nabundance = 1e-6\n'
                     '[output]\nfigures = false\n')
     synth.run_config(str(conf), str(tmp_path / "out"), progress=False)
     got = json.loads((tmp_path / "out" / "summary.json").read_text())
     entry = got["tracers"]["CO_1-0"]["velocity_resolution"]
-    direct = synthesize_products(synth.demo_cloud(n=10, seed=4), CO10, 1e-6, distance=2 * u.kpc,
+    direct = synthesize_products(synth.demo_cloud(cells=10, seed=4), CO10, 1e-6, distance=2 * u.kpc,
                                  channel_width=0.5 * u.km / u.s,
                                  velocity_range=(-12, 12) * u.km / u.s)
     ref = direct.stats["velocity_resolution"]

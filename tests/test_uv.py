@@ -7,8 +7,8 @@ from astropy.coordinates import AltAz, EarthLocation, HADec, ITRS, SkyCoord
 from astropy.time import Time
 
 from synth.errors import InstrumentError
-from synth.instrument.interferometer import Interferometer
-from synth.instrument.uv import (SIDEREAL_RATE_RAD_S, largest_recoverable_scale,
+from synth.instrument.interferometer import Array
+from synth.instrument.uv import (SIDEREAL_RATE_RAD_S, largest_scale,
                                  sample_hour_angles, synthesized_beam_estimate, uv_coverage,
                                  uv_tracks)
 from synth.instrument.visibilities import interferometer_rms, interferometer_time
@@ -25,7 +25,7 @@ def test_uvw_against_astropy_frames():
     turned into topocentric ITRS, source direction from HADec at the matching hour angle,
     u, v, w = projections onto east, north and the source): 1e-6 relative (TMS 3rd ed. ch. 4)."""
     lat = -23.0 * u.deg
-    arr = Interferometer("y-27", latitude=lat, elevation_limit=0 * u.deg)
+    arr = Array("star-30", latitude=lat, elevation_limit=0 * u.deg, tsys=90 * u.K)
     dec = -40 * u.deg
     t = uv_tracks(arr, dec, (-3, 3) * u.hourangle, 1800 * u.s, flagged=False)
     loc = EarthLocation.from_geodetic(lon=0 * u.deg, lat=lat, height=0 * u.m)
@@ -55,7 +55,7 @@ def test_uvw_against_astropy_frames():
 def test_row_order_sample_major_baselines_lexicographic():
     """Rows: sample-major, baselines (0,1), (0,2), ... (module docstring); |uvw| of a row equals
     the baseline length (a rotation preserves length)."""
-    arr = Interferometer(np.array([[0, 0, 0], [100.0, 0, 0], [0, 50.0, 0]]), elevation_limit=0 * u.deg)
+    arr = Array(np.array([[0, 0, 0], [100.0, 0, 0], [0, 50.0, 0]]), elevation_limit=0 * u.deg, tsys=90 * u.K, diameter=10 * u.m)
     t = uv_tracks(arr, -30 * u.deg, (-1, 1) * u.hourangle, 1100 * u.s)
     assert t.uvw_m.shape == (3 * 6, 3)
     np.testing.assert_array_equal(t.ant1[:3], [0, 0, 1])
@@ -78,9 +78,9 @@ def test_sample_count_follows_sidereal_rate():
 
 def test_elevation_limit_flags_match_astropy_altaz():
     """Samples kept are those with astropy AltAz elevation >= the limit (HADec -> AltAz)."""
-    arr = Interferometer("compact-16", latitude=-23 * u.deg, elevation_limit=40 * u.deg)
+    arr = Array("compact-16", latitude=8 * u.deg, elevation_limit=40 * u.deg, tsys=90 * u.K)
     ha_all, _ = sample_hour_angles((-6, 6) * u.hourangle, 900 * u.s)
-    loc = EarthLocation.from_geodetic(0 * u.deg, -23 * u.deg, 0 * u.m)
+    loc = EarthLocation.from_geodetic(0 * u.deg, 8 * u.deg, 0 * u.m)
     time = Time("2020-01-01T00:00:00")
     alt = SkyCoord(HADec(ha=ha_all * u.rad, dec=np.full(ha_all.size, 10.0) * u.deg, obstime=time,
                          location=loc, pressure=0 * u.hPa)).transform_to(
@@ -90,17 +90,17 @@ def test_elevation_limit_flags_match_astropy_altaz():
 
 
 def test_source_never_up_raises():
-    arr = Interferometer("ring-24", latitude=-23 * u.deg)
+    arr = Array("ring-24", latitude=8 * u.deg, tsys=90 * u.K)
     with pytest.raises(InstrumentError, match="never above elevation_limit"):
-        uv_tracks(arr, 80 * u.deg, (-2, 2) * u.hourangle, 60 * u.s)
+        uv_tracks(arr, -80 * u.deg, (-2, 2) * u.hourangle, 60 * u.s)  # peaks at 2 deg
 
 
 def test_shadowing_flags_close_pair_at_low_elevation():
-    """Two 12 m dishes 15 m apart north-south, source low in the north: the projected
-    separation 15 sin(el) m < 12 m, so the rows are flagged (common practice)."""
-    arr = Interferometer(np.array([[0, 0, 0], [0, 15.0, 0], [300.0, 0, 0]]), latitude=-23 * u.deg,
-                         elevation_limit=5 * u.deg)
-    t = uv_tracks(arr, 55 * u.deg, (-0.5, 0.5) * u.hourangle, 550 * u.s)
+    """Two 10 m dishes 15 m apart north-south, source low in the north: the projected
+    separation 15 sin(el) m < 10 m, so the rows are flagged (common practice)."""
+    arr = Array(np.array([[0, 0, 0], [0, 15.0, 0], [300.0, 0, 0]]), latitude=8 * u.deg,
+                         elevation_limit=5 * u.deg, tsys=90 * u.K, diameter=10 * u.m)
+    t = uv_tracks(arr, 86 * u.deg, (-0.5, 0.5) * u.hourangle, 550 * u.s)
     # elevation ~ 12 deg: pair (0, 1) projected ~3 m -> shadowed; antenna 1 (north, nearer the
     # source) blocks antenna 0, so all rows with antenna 0 go
     assert not np.any(t.ant1 == 0)
@@ -114,7 +114,7 @@ def test_shadowing_flags_close_pair_at_low_elevation():
     (dict(sample_interval=-1 * u.s), "positive time"),
 ])
 def test_bad_track_options(kw, match):
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     args = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s)
     args.update(kw)
     with pytest.raises(InstrumentError, match=match):
@@ -122,14 +122,20 @@ def test_bad_track_options(kw, match):
 
 
 def test_interferometer_rms_worked_example():
-    """Worked example computed from Thompson, Moran & Swenson 2017 (3rd ed.) eq. 6.62:
-    T_sys 100 K, D 12 m, eta_a 0.7, N 43, 1 MHz, 60 s, eta_q 0.96, eta_c 0.88,
-    2 polarisations -> 8.9 mJy (8.87 computed)."""
-    enu = np.column_stack([np.arange(43) * 20.0, np.zeros(43), np.zeros(43)])
-    arr = Interferometer(enu, tsys=100 * u.K, efficiency=0.7)
+    """Point-source rms of Thompson, Moran & Swenson 2017 (3rd ed.) eq. 6.62,
+    sigma = 2 k T_sys / (eta A sqrt(N (N - 1) dnu t n_pol)), evaluated by hand here for an
+    invented array: T_sys 100 K, D 10 m, eta_a 0.7, system efficiency 0.9, N 30, 1 MHz,
+    60 s, 2 polarisations (17.27 mJy)."""
+    n = 30
+    enu = np.column_stack([np.arange(n) * 20.0, np.zeros(n), np.zeros(n)])
+    arr = Array(enu, tsys=100 * u.K, aperture_efficiency=0.7, diameter=10 * u.m)
+    k_b = 1.380649e-23
+    area = np.pi * 5.0**2
+    expected_jy = 2 * k_b * 100.0 / (0.9 * 0.7 * area * np.sqrt(n * (n - 1) * 1e6 * 60 * 2)) / 1e-26
     rms = interferometer_rms(arr, 1 * u.MHz, 60 * u.s)
     assert rms.unit == u.Jy
-    assert rms.to_value(u.mJy) == pytest.approx(8.87, rel=2e-3)
+    assert rms.to_value(u.Jy) == pytest.approx(expected_jy, rel=1e-9)
+    assert rms.to_value(u.mJy) == pytest.approx(17.27, abs=0.01)
     t = interferometer_time(arr, 1 * u.MHz, rms)
     assert t.to_value(u.s) == pytest.approx(60.0, rel=1e-12)
 
@@ -140,19 +146,19 @@ def test_interferometer_rms_worked_example():
 ])
 def test_interferometer_rms_bad_input(args, match):
     with pytest.raises(InstrumentError, match=match):
-        interferometer_rms(Interferometer("ring-24"), *args)
+        interferometer_rms(Array("ring-24", tsys=90 * u.K), *args)
 
 
-def test_largest_recoverable_scale_east_west_pair():
+def test_largest_scale_east_west_pair():
     """0.6 lambda / B_min (Wilner & Welch 1994): an east-west 30 m baseline has projected
     length 30 sqrt(cos^2 H + sin^2 dec sin^2 H) m (TMS eq. 4.1), shortest at the track end."""
-    arr = Interferometer(np.array([[0, 0, 0], [30.0, 0, 0]]), elevation_limit=0 * u.deg)
+    arr = Array(np.array([[0, 0, 0], [30.0, 0, 0]]), elevation_limit=0 * u.deg, tsys=90 * u.K, diameter=10 * u.m)
     dec = -30 * u.deg
     h_end = np.abs(sample_hour_angles((-2, 2) * u.hourangle, 300 * u.s)[0]).max()
     sd = np.sin(dec.to_value(u.rad))
     b_min = 30 * np.sqrt(np.cos(h_end) ** 2 + sd**2 * np.sin(h_end) ** 2)
     lam = (230 * u.GHz).to_value(u.m, u.spectral())
-    las = largest_recoverable_scale(arr, 230 * u.GHz, dec, (-2, 2) * u.hourangle)
+    las = largest_scale(arr, 230 * u.GHz, dec, (-2, 2) * u.hourangle)
     assert las.to_value(u.rad) == pytest.approx(0.6 * lam / b_min, rel=1e-9)
 
 
@@ -161,7 +167,7 @@ def test_synthesized_beam_estimate_near_fitted_psf():
     main lobe (common practice: both describe the natural-weighted main lobe)."""
     from synth.instrument.imaging import fit_restoring_beam
     from synth.instrument.visibilities import ImageGeometry, grid_dirty
-    arr = Interferometer("ring-24")
+    arr = Array("ring-24", tsys=90 * u.K)
     est = synthesized_beam_estimate(arr, 230 * u.GHz, -30 * u.deg, (-2, 2) * u.hourangle)
     t = uv_tracks(arr, -30 * u.deg, (-2, 2) * u.hourangle, 300 * u.s)
     pix = (0.05 * u.arcsec).to_value(u.rad)

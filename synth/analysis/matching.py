@@ -147,7 +147,7 @@ def _edges(centres):
 
 
 def cube_from_array(data, *, pixscale, channel_width, restfreq, unit="K", beam=None,
-                    v_start=None, center=(83.8 * u.deg, -5.4 * u.deg), like=None):
+                    v_start=None, center=(120.0 * u.deg, 10.0 * u.deg), like=None):
     """Wrap a (v, y, x) array as a SpectralCube with a RA---SIN/DEC--SIN + VRAD WCS.
 
     ``pixscale`` (angle), ``channel_width`` (velocity; negative for a descending axis),

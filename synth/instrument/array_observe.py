@@ -25,7 +25,7 @@ from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
 from .imaging import fit_restoring_beam, restore
-from .interferometer import (OBSERVE_OPTIONS, _channel_width_hz, _check_options, _dirty,
+from .interferometer import (OBSERVE_OPTIONS, RENAMED_OPTIONS, _channel_width_hz, _check_options, _dirty,
                              _pb_images, _psf, _quantity, _seed, _visibilities,
                              antenna_phase_gains, assemble_tracks, new_observed_cube)
 from .uv import SIDEREAL_RATE_RAD_S
@@ -39,7 +39,7 @@ __all__ = ["observe_interferometric", "simulate_visibilities", "MAP_KEYS",
            "OUTSIDE_PB_WARN_FRACTION"]
 
 #: keyword options that describe the mapped area (see synth.instrument.mapping.map_options)
-MAP_KEYS = ("map_size", "map_center", "pixel", "beyond_box", "pointing_pattern",
+MAP_KEYS = ("map_size", "map_offset", "pixel", "beyond_box", "pointing_pattern",
             "pointing_spacing", "guard_band", "max_pointings")
 #: warn when more than this fraction of the sky flux lies where the map's response is < 1/2
 OUTSIDE_PB_WARN_FRACTION = 0.05
@@ -90,16 +90,16 @@ CLEAN_THREADS = 2
 
 def _clean_all(jobs, opts):
     """CLEAN of [(dirty, psf, threshold, noise)] (Högbom, or multi-scale with
-    ``opts["scales_px"]``), on CLEAN_THREADS threads; with ``opts["mask_sigma"]`` only inside
+    ``opts["scales_px"]``), on CLEAN_THREADS threads; with ``opts["clean_mask_sigma"]`` only inside
     a mask grown from each dirty image (at that many sigma, dilated by one beam)."""
     def one(job):
         mask = None
-        if opts["mask_sigma"] is not None:
-            mask = grown_mask(job[0], job[3], float(opts["mask_sigma"]), opts["beam_px"])
+        if opts["clean_mask_sigma"] is not None:
+            mask = grown_mask(job[0], job[3], float(opts["clean_mask_sigma"]), opts["beam_px"])
         if opts["deconvolver"] == "multiscale":
-            return multiscale_clean(job[0], job[1], job[2], opts["scales_px"], opts["gain"],
-                                    opts["niter"], opts["beam_px"], mask)
-        return hogbom(job[0], job[1], job[2], opts["gain"], opts["niter"], mask)
+            return multiscale_clean(job[0], job[1], job[2], opts["scales_px"], opts["clean_loop_gain"],
+                                    opts["clean_max_components"], opts["beam_px"], mask)
+        return hogbom(job[0], job[1], job[2], opts["clean_loop_gain"], opts["clean_max_components"], mask)
     if len(jobs) == 1 or CLEAN_THREADS == 1:
         return [one(j) for j in jobs]
     from concurrent.futures import ThreadPoolExecutor
@@ -115,7 +115,7 @@ def _prepare(plane, pointing, nu, opts, rng):
                         opts["robust"])
     pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
     img = _dirty(plane[box], tracks, nu, w, geom, pbs, rng)
-    psf = _psf(tracks, nu, w, geom) if opts["deconvolve"] else None
+    psf = _psf(tracks, nu, w, geom) if opts["deconvolver"] != "none" else None
     return img, psf, image_noise_jy(w, tracks.sigma_jy), pb_eff
 
 
@@ -134,13 +134,13 @@ def _images(planes, pointings, freqs, opts, beam, rng):
                 shape = planes(c).shape
                 acc[c] = [np.zeros(shape), np.zeros(shape), [], 0]
             ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rng))
-        if opts["deconvolve"]:
-            cleaned = _clean_all([(r[2], r[3], opts["threshold"] * r[4], r[4]) for r in ready],
+        if opts["deconvolver"] != "none":
+            cleaned = _clean_all([(r[2], r[3], opts["clean_stop_sigma"] * r[4], r[4]) for r in ready],
                                  opts)
         for k, (c, p, img, _, s_p, pb_eff) in enumerate(ready):
             geom, (sy, sx) = pointings[p][1], pointings[p][2]
             a = acc[c]
-            if opts["deconvolve"]:
+            if opts["deconvolver"] != "none":
                 model, res, n_it = cleaned[k]
                 img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
                 a[3] += n_it
@@ -159,10 +159,10 @@ def _scales_px(opts, beam, tracks, geom, freqs):
     up to the largest recoverable scale 0.6 lambda / B_min (Wilner & Welch 1994) or a quarter
     of the sub-image."""
     pix = abs(geom.dx_rad)
-    if opts["scales"] is not None:
-        px = list(u.Quantity(opts["scales"]).to_value(u.rad) / pix)
+    if opts["clean_scales"] is not None:
+        px = list(u.Quantity(opts["clean_scales"]).to_value(u.rad) / pix)
         if max(px) > max(geom.nx, geom.ny):
-            raise InstrumentError(f"scales: {max(px) * pix * ARCSEC_PER_RAD:.4g} arcsec is "
+            raise InstrumentError(f"clean_scales: {max(px) * pix * ARCSEC_PER_RAD:.4g} arcsec is "
                                   f"larger than the map ({geom.nx} x {geom.ny} pixels of "
                                   f"{pix * ARCSEC_PER_RAD:.4g} arcsec)")
         return [0.0] + [p for p in px if p > 0]
@@ -180,7 +180,7 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
     w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
     beam = fit_restoring_beam(_psf(t0, freqs[ref], w0, g0), g0.dx_rad, g0.dy_rad)
     opts = dict(opts, beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))
-    if opts["deconvolve"] and opts["deconvolver"] == "multiscale":
+    if opts["deconvolver"] == "multiscale":
         opts["scales_px"] = _scales_px(opts, beam, t0, g0, freqs)
     canvas_geom = ImageGeometry(sky.shape[2], sky.shape[1], g0.dx_rad, g0.dy_rad, 0.0, 0.0)
     ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
@@ -296,6 +296,8 @@ def _warn_outside(frac, layout):
 
 def _split_options(kwargs):
     opts = dict(OBSERVE_OPTIONS)
+    for old in sorted(set(kwargs) & set(RENAMED_OPTIONS)):
+        raise InstrumentError(f"{old}= was renamed to {RENAMED_OPTIONS[old]}")
     mkw = {k: kwargs.pop(k) for k in MAP_KEYS if k in kwargs}
     dish_opts = kwargs.pop("dish_options", None) or {}
     unknown = set(kwargs) - set(opts) - {"declination"}
@@ -311,26 +313,26 @@ def _split_options(kwargs):
 
 def observe_interferometric(cube, instrument, *, noise=True, seed=None, integration_time=None,
                             with_maps=False, hanning=False, **kwargs):
-    """Observe ``cube`` with an Interferometer, or jointly with several (a list/tuple), and
-    feather with a SingleDish or single-dish cube if one is in the list.
+    """Observe ``cube`` with an Array, or jointly with several (a list/tuple), and
+    feather with a Dish or single-dish cube if one is in the list.
 
     Imaging options (defaults in ``OBSERVE_OPTIONS``): ``hour_angles`` (start, stop)
     Quantity; ``sample_interval`` time per sample; ``weighting`` natural / uniform / robust
-    with ``robust`` (Briggs R); ``deconvolve`` (Högbom CLEAN) with ``threshold`` (in units of
-    the image noise), ``niter``, ``gain``; ``pb_correct`` returns the primary-beam-corrected
-    product (NaN where the response is < ``pb_limit``) instead of the flat-noise one;
+    with ``robust`` (Briggs R); ``deconvolve`` (Högbom CLEAN) with ``clean_stop_sigma`` (in units of
+    the image noise), ``clean_max_components``, ``clean_loop_gain``; ``correct_primary_beam`` returns the primary-beam-corrected
+    product (NaN where the response is < ``primary_beam_cutoff``) instead of the flat-noise one;
     ``primary_beam`` (False ignores it: an idealisation for tests); ``bandwidth`` channel
     width for single-channel cubes; ``declination`` overrides the WCS phase centre's;
     ``integration_time`` the on-source time of each pointing (default: the track, shared in
-    turn by the pointings); ``sd_scale`` multiplies the single-dish image when feathering;
-    ``dish_options`` (integration_time, rms, noise, seed) for a SingleDish instrument in the
+    turn by the pointings); ``dish_flux_scale`` multiplies the single-dish image when feathering;
+    ``dish_options`` (integration_time, rms, noise, seed) for a Dish instrument in the
     list. ``phase_rms`` (angle) draws antenna phase errors of that rms per antenna and per
     ``phase_interval`` (default the sample interval), seeded by ``seed``
     (:func:`~synth.instrument.interferometer.antenna_phase_gains`). ``rms`` (Jy/beam) scales each pointing's noise to that image rms; ``unit``
     "Jy/beam" or "K". ``seed=None`` draws a seed and records it (NSEED).
 
     Map options (see :func:`synth.instrument.mapping.map_options`): ``map_size``,
-    ``map_center``, ``pixel``, ``beyond_box``, ``pointing_pattern``, ``pointing_spacing``,
+    ``map_offset``, ``pixel``, ``beyond_box``, ``pointing_pattern``, ``pointing_spacing``,
     ``max_pointings``.
 
     Returns a SpectralCube in Jy/beam (or K) with the restoring beam, or with ``with_maps``
@@ -351,23 +353,23 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     meta = dict(INSTRUME="+".join(pointings[0][0].names),
                 NOISERMS=float(np.median(rms)) if noise else 0.0,
                 NOISEUNI="Jy/beam", NSEED=seed if noise else -1, WEIGHTNG=opts["weighting"],
-                ROBUST=float(opts["robust"]), DECONV=bool(opts["deconvolve"]),
+                ROBUST=float(opts["robust"]), DECONV=opts["deconvolver"] != "none",
                 NPOINT=layout.n_pointings,
                 MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
-                PBLIMIT=float(opts["pb_limit"]),
+                PBLIMIT=float(opts["primary_beam_cutoff"]),
                 NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
                 CLEANIT=int(iters), THEORMS=float(np.median(rms)),
-                DECONVER=str(opts["deconvolver"]) if opts["deconvolve"] else "none",
-                MASKSIG=float(opts["mask_sigma"]) if opts["mask_sigma"] is not None else 0.0,
+                DECONVER=str(opts["deconvolver"]),
+                MASKSIG=float(opts["clean_mask_sigma"]) if opts["clean_mask_sigma"] is not None else 0.0,
                 PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
     if dish is not None:
         sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
                                               seed, hanning)
         corrected = feather_mosaic(corrected, response, sd_k, sd_beam, beam, freqs,
                                    abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
-                                   opts["sd_scale"])
+                                   opts["dish_flux_scale"])
         meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
-                    SDSCALE=float(opts["sd_scale"]))
+                    SDSCALE=float(opts["dish_flux_scale"]))
     return _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps)
 
 
@@ -375,16 +377,16 @@ def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_
     unit = opts["unit"]
 
     def corrected_cube():
-        corr = np.where(response >= opts["pb_limit"], corrected, np.nan)
+        corr = np.where(response >= opts["primary_beam_cutoff"], corrected, np.nan)
         return new_observed_cube(out_sky, corr, dict(meta, PBCORR=True), beam, unit=unit)
 
     def flat_cube(inplace=False):
         flat = np.multiply(corrected, response, out=corrected if inplace else None)
         return new_observed_cube(out_sky, flat, dict(meta, PBCORR=False), beam, unit=unit)
     if not with_maps:
-        return corrected_cube() if opts["pb_correct"] else flat_cube(inplace=True)
+        return corrected_cube() if opts["correct_primary_beam"] else flat_cube(inplace=True)
     c_cube, f_cube = corrected_cube(), flat_cube()
-    chosen = c_cube if opts["pb_correct"] else f_cube
+    chosen = c_cube if opts["correct_primary_beam"] else f_cube
     mid = corrected.shape[0] // 2
     with np.errstate(divide="ignore"):
         sens = np.where(response[mid] > 0, rms[mid] / response[mid], np.inf)

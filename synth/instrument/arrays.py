@@ -11,7 +11,7 @@ CSV format (one antenna a line, ``#`` starts a comment, a header line is require
     a01,12.5,-3.0,0.2,12
     a02,40.0,18.1,0.0,
 
-An empty ``diameter_m`` means "use the array's ``dish_diameter``".
+An empty ``diameter_m`` means "use the array's ``diameter``".
 """
 
 import csv
@@ -24,11 +24,12 @@ import numpy as np
 from ..errors import InstrumentError
 
 __all__ = ["Layout", "LAYOUT_COLUMNS", "BUILTIN_LAYOUTS", "ring_layout", "spiral_layout",
-           "y_layout", "random_layout", "read_layout_csv", "write_layout_csv", "builtin_layout",
+           "star_layout", "random_layout", "read_layout_csv", "write_layout_csv", "builtin_layout",
            "write_builtin_layouts", "LAYOUT_DIR"]
 
 LAYOUT_COLUMNS = ("name", "east_m", "north_m", "up_m", "diameter_m")
 LAYOUT_DIR = Path(__file__).with_name("layouts")
+BUILTIN_DIAMETER_M = 10.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -73,14 +74,15 @@ def spiral_layout(n, r_min_m, r_max_m, n_arms=3, seed=0, jitter_m=2.0):
     return _finish(r * np.cos(phi) + d[:, 0], r * np.sin(phi) + d[:, 1], rng)
 
 
-def y_layout(n, arm_length_m, seed=0, power=1.6, jitter_m=1.0):
-    """Three straight arms 120 deg apart, antennas spaced as a power law along each arm."""
+def star_layout(n, arm_length_m, n_arms=5, seed=0, power=1.6, jitter_m=1.0):
+    """``n_arms`` straight arms evenly spaced in angle, antennas spaced as a power law along
+    each arm."""
     rng = np.random.default_rng(seed)
     k = np.arange(n)
-    arm = k % 3
-    step = (k // 3 + 1) / ((n + 2) // 3)
+    arm = k % n_arms
+    step = (k // n_arms + 1) / ((n + n_arms - 1) // n_arms)
     r = arm_length_m * step**power
-    phi = np.pi / 2 + 2 * np.pi * arm / 3 + np.deg2rad(5.0)
+    phi = np.pi / 2 + 2 * np.pi * arm / n_arms + np.deg2rad(11.0)
     d = _jitter(rng, n, jitter_m)
     return _finish(r * np.cos(phi) + d[:, 0], r * np.sin(phi) + d[:, 1], rng)
 
@@ -102,13 +104,14 @@ def random_layout(n, radius_m, min_separation_m, seed=0, max_tries=100000):
                           f"{min_separation_m} m inside radius {radius_m} m; use a larger radius")
 
 
-#: name -> (generator, keyword arguments); all invented, seeded.
+#: name -> (generator, keyword arguments); all invented, seeded. Every built-in antenna is
+#: an invented 10 m dish (BUILTIN_DIAMETER_M, written in the files' diameter_m column).
 BUILTIN_LAYOUTS = {
     "compact-10": (random_layout, dict(n=10, radius_m=30.0, min_separation_m=13.0, seed=10)),
     "ring-16": (ring_layout, dict(n=16, radius_m=60.0, seed=17)),
     "compact-16": (random_layout, dict(n=16, radius_m=55.0, min_separation_m=15.0, seed=16)),
     "ring-24": (ring_layout, dict(n=24, radius_m=150.0, seed=24)),
-    "y-27": (y_layout, dict(n=27, arm_length_m=600.0, seed=27)),
+    "star-30": (star_layout, dict(n=30, arm_length_m=550.0, n_arms=5, seed=30)),
     "spiral-32": (spiral_layout, dict(n=32, r_min_m=25.0, r_max_m=700.0, seed=32)),
     "wide-48": (spiral_layout, dict(n=48, r_min_m=60.0, r_max_m=2000.0, n_arms=4, seed=48)),
 }
@@ -205,4 +208,5 @@ def write_builtin_layouts(directory=LAYOUT_DIR):
     for name, (gen, kw) in BUILTIN_LAYOUTS.items():
         args = ", ".join(f"{k}={v}" for k, v in kw.items())
         write_layout_csv(Path(directory) / f"{name}.csv", gen(**kw),
+                         diameter_m=BUILTIN_DIAMETER_M,
                          comment=f"invented layout '{name}': {gen.__name__}({args})")

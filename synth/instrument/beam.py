@@ -2,7 +2,7 @@
 K <-> Jy/beam conversion.
 
 A single dish's main beam is modelled as an elliptical Gaussian (radio-beam's ``Beam``). From
-a diameter D at wavelength lambda its FWHM is ``taper * lambda / D``: 1.02 for a uniformly
+a diameter D at wavelength lambda its FWHM is ``fwhm_factor * lambda / D``: 1.02 for a uniformly
 illuminated circular aperture, about 1.13 for the edge taper of typical radio telescopes, up
 to ~1.2 for strong tapers (Goldsmith 1998, Quasioptical Systems, ch. 6; Wilson, Rohlfs &
 Hüttemeister 2013, sect. 6.1, from memory; see docs/references.md).
@@ -27,23 +27,23 @@ from ..sky import channel_frequencies_hz
 from .cube_utils import (BRIGHTNESS_UNITS, brightness_kind, check_cube, cube_values,
                          new_cube, pixel_scale)
 
-__all__ = ["TAPER_RANGE", "dish_beam", "pixel_kernel", "convolve_beam", "sky_frequencies",
+__all__ = ["FWHM_FACTOR_RANGE", "dish_beam", "pixel_kernel", "convolve_beam", "sky_frequencies",
            "k_to_jy_per_beam", "jy_per_beam_to_k", "to_unit", "unit_name", "jy_per_k"]
 
 #: allowed FWHM / (lambda / D): uniform illumination (1.02) to very strong taper
-TAPER_RANGE = (1.0, 1.5)
+FWHM_FACTOR_RANGE = (1.0, 1.5)
 #: channels convolved per FFT call (bounds the temporary memory)
 _CHANNEL_BLOCK = 64
 
 
-def dish_beam(diameter, frequency, taper=1.13):
-    """Circular Gaussian beam of FWHM ``taper * lambda / D``.
+def dish_beam(diameter, frequency, fwhm_factor=1.13):
+    """Circular Gaussian beam of FWHM ``fwhm_factor * lambda / D``.
 
     Parameters
     ----------
     diameter : Quantity (length)
     frequency : Quantity (frequency)
-    taper : float
+    fwhm_factor : float
         FWHM in units of lambda / D (1.02 uniform illumination, ~1.13 typical, 1.2 strong).
     """
     d_cm = u.Quantity(diameter).to_value(u.cm)
@@ -51,7 +51,7 @@ def dish_beam(diameter, frequency, taper=1.13):
     if not (d_cm > 0 and nu_hz > 0):
         raise InstrumentError(f"diameter / frequency: need positive values, got {diameter}, "
                               f"{frequency}")
-    fwhm_rad = taper * const.c.cgs.value / nu_hz / d_cm
+    fwhm_rad = fwhm_factor * const.c.cgs.value / nu_hz / d_cm
     return Beam((fwhm_rad * u.rad).to(u.arcsec))
 
 

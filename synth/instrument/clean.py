@@ -1,9 +1,9 @@
 """Högbom CLEAN (Högbom 1974, A&AS 15, 417) on a dirty image with a PSF of twice its size.
 
-Each iteration finds the pixel of largest |residual|, adds ``gain`` times it to the model and
+Each iteration finds the pixel of largest |residual|, adds ``loop_gain`` times it to the model and
 subtracts the shifted, scaled PSF from the whole residual image (finding the next peak in the
 same pass). The kernel releases the GIL, so images can be cleaned on several threads. Stops when the peak residual
-is below ``threshold`` or after ``niter`` iterations. Loop gain 0.1 (common practice).
+is below ``threshold`` or after ``max_components`` iterations. Loop gain 0.1 (common practice).
 """
 
 import numpy as np
@@ -50,7 +50,7 @@ def _hogbom_kernel(res, psf, model, gain, threshold, niter, cy, cx, win):
     return it
 
 
-def hogbom(dirty, psf, threshold, gain=0.1, niter=10000, mask=None):
+def hogbom(dirty, psf, threshold, loop_gain=0.1, max_components=10000, mask=None):
     """Högbom CLEAN of ``dirty`` (ny, nx) with ``psf`` (>= 2ny-1, 2nx-1; peak 1 at its
     (shape // 2) pixel); components only where ``mask`` (bool, optional) is True. Returns
     (model, residual, iterations). Inputs are not modified."""
@@ -58,7 +58,7 @@ def hogbom(dirty, psf, threshold, gain=0.1, niter=10000, mask=None):
     model = np.zeros_like(res)
     p = np.ascontiguousarray(psf, dtype=np.float64)
     win = _window(mask, res.shape)
-    n = _hogbom_kernel(res, p, model, float(gain), float(threshold), int(niter),
+    n = _hogbom_kernel(res, p, model, float(loop_gain), float(threshold), int(max_components),
                        p.shape[0] // 2, p.shape[1] // 2, win)
     return model, res, n
 

@@ -10,7 +10,7 @@ the single-dish and interferometric images in the Fourier plane, both as surface
 
     F(k) = alpha F_SD(k) + [1 - B_SD(k)] F_int(k),
 
-B_SD the single-dish beam's transform normalised to 1 at k = 0, alpha = ``sd_scale`` (1 for
+B_SD the single-dish beam's transform normalised to 1 at k = 0, alpha = ``dish_flux_scale`` (1 for
 calibrated data). Both images are taken as the array sees the sky: the uncorrected
 (flat-noise) map, and the single-dish image multiplied by the map's relative response R (the
 primary beam for one pointing, sqrt(sum_p A_p^2) normalised for a mosaic). The
@@ -37,22 +37,22 @@ def _is_dish(item):
 
 
 def split_instruments(instrument):
-    """(list of Interferometer, single dish or single-dish cube or None) from the argument."""
-    from .interferometer import Interferometer
+    """(list of Array, single dish or single-dish cube or None) from the argument."""
+    from .interferometer import Array
     items = list(instrument) if isinstance(instrument, (list, tuple)) else [instrument]
-    arrays = [i for i in items if isinstance(i, Interferometer)]
-    dishes = [i for i in items if not isinstance(i, Interferometer) and _is_dish(i)]
-    other = [type(i).__name__ for i in items if not isinstance(i, Interferometer) and not _is_dish(i)]
+    arrays = [i for i in items if isinstance(i, Array)]
+    dishes = [i for i in items if not isinstance(i, Array) and _is_dish(i)]
+    other = [type(i).__name__ for i in items if not isinstance(i, Array) and not _is_dish(i)]
     if other:
-        raise InstrumentError(f"instrument: {other} are not instruments; give Interferometer, "
-                              "SingleDish or a single-dish SpectralCube items")
+        raise InstrumentError(f"instrument: {other} are not instruments; give Array, "
+                              "Dish or a single-dish SpectralCube items")
     if not arrays:
-        raise InstrumentError("instrument: a combination needs at least one Interferometer")
+        raise InstrumentError("instrument: a combination needs at least one Array")
     if len(dishes) > 1:
         raise InstrumentError(f"instrument: at most one single dish (or single-dish cube) can be "
                               f"feathered, got {len(dishes)}")
     if len({id(a) for a in arrays}) != len(arrays):
-        raise InstrumentError("instrument: the same Interferometer is listed twice; its "
+        raise InstrumentError("instrument: the same Array is listed twice; its "
                               "visibilities would be counted twice")
     return arrays, (dishes[0] if dishes else None)
 
@@ -111,7 +111,7 @@ def _reprojected(sd, target, name):
 def dish_on_grid(dish, canvas_sky, out_sl, out_sky, dish_opts, noise, seed, hanning=False):
     """The single dish's image in K on the output grid, its beam and its name.
 
-    A SingleDish is observed on the whole canvas (so flux spilled by its beam near the map
+    A Dish is observed on the whole canvas (so flux spilled by its beam near the map
     edge is kept) with ``dish_opts`` (integration_time, rms, noise, seed; default noiseless);
     a single-dish SpectralCube is resampled onto the grid (reproject, bilinear).
     """

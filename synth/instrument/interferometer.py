@@ -1,6 +1,6 @@
-"""The Interferometer instrument and the visibility-level pieces of an observation.
+"""The Array instrument and the visibility-level pieces of an observation.
 
-:class:`Interferometer` (antennas, site, efficiencies, T_sys or an atmosphere model,
+:class:`Array` (antennas, site, efficiencies, T_sys or an atmosphere model,
 polarisations); :func:`assemble_tracks` (every array's uv tracks toward a pointing with the
 radiometer noise of each row); antenna phase errors; prediction, dirty image and PSF of one
 pointing; the observed cube. The channel and pointing loop, mosaics and feathering are in
@@ -17,24 +17,34 @@ from ..errors import InstrumentError
 from ..sky import C_M_S
 from .arrays import BUILTIN_LAYOUTS, builtin_layout, read_layout_csv
 from .primary_beam import PB_SHAPES, pair_beam
+from .beam import FWHM_FACTOR_RANGE
 from .uv import SIDEREAL_RATE_RAD_S, elevation, uv_tracks
 from .visibilities import (add_thermal_noise, cube_frequencies_hz, grid_dirty, predict, visibility_sigma_jy)
 from .weighting import WEIGHTINGS, image_noise_jy
 
 #: deconvolvers: Högbom CLEAN, or multi-scale CLEAN (Cornwell 2008)
-DECONVOLVERS = ("hogbom", "multiscale")
+DECONVOLVERS = ("none", "hogbom", "multiscale")
 
-__all__ = ["DECONVOLVERS", "Interferometer", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
+__all__ = ["DECONVOLVERS", "Array", "observe_interferometric", "OBSERVE_OPTIONS", "assemble_tracks",
            "new_observed_cube", "Tracks", "antenna_phase_gains"]
 
-#: keyword options of observe_interferometric and their defaults
-OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s,
-                       weighting="natural", robust=0.5, deconvolve=False, threshold=3.0,
-                       niter=5000, gain=0.1, pb_correct=False, pb_limit=0.2,
+#: keyword options of observe_interferometric and their defaults; the config's [[setup]] keys
+#: of the same names (with a unit suffix where the value has a unit) share these defaults
+OBSERVE_OPTIONS = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=300 * u.s,
+                       weighting="natural", robust=0.5, deconvolver="hogbom",
+                       clean_stop_sigma=3.0, clean_max_components=5000, clean_loop_gain=0.1,
+                       clean_scales=None, clean_mask_sigma=None,
+                       correct_primary_beam=True, primary_beam_cutoff=0.2,
                        primary_beam=True, bandwidth=None, phase_rms=0 * u.deg,
-                       deconvolver="hogbom", scales=None, mask_sigma=None,
-                       phase_interval=None,
-                       sd_scale=1.0, rms=None, unit="Jy/beam")
+                       phase_interval=None, dish_flux_scale=1.0, rms=None, unit="Jy/beam")
+
+#: observe keywords that were renamed, with their new names (refused with a hint)
+RENAMED_OPTIONS = {"threshold": "clean_stop_sigma", "niter": "clean_max_components",
+                   "gain": "clean_loop_gain", "scales": "clean_scales",
+                   "mask_sigma": "clean_mask_sigma", "pb_correct": "correct_primary_beam",
+                   "pb_limit": "primary_beam_cutoff", "sd_scale": "dish_flux_scale",
+                   "deconvolve": 'deconvolver ("none", "hogbom" or "multiscale")',
+                   "map_center": "map_offset"}
 
 
 def _quantity(name, value, unit, positive=True):
@@ -70,7 +80,7 @@ def _resolve_antennas(antennas):
 
 
 @dataclass(frozen=True, eq=False)
-class Interferometer:
+class Array:
     """An array of antennas at one site.
 
     Parameters
@@ -78,20 +88,26 @@ class Interferometer:
     antennas : str, path or (n, 3) array / Quantity
         A built-in invented layout name (``BUILTIN_LAYOUTS``), a layout CSV file, or local
         east-north-up positions (metres when a bare array).
-    dish_diameter : Quantity [length]
-        Diameter of antennas whose CSV row leaves ``diameter_m`` empty (all, for arrays).
+    diameter : Quantity [length], optional
+        Diameter of antennas whose layout row leaves ``diameter_m`` empty; default the
+        layout's own diameters (every built-in layout gives them).
     latitude : Quantity [angle]
-        Geodetic latitude of the site.
-    efficiency : float
+        Geodetic latitude of the site (default +8 deg: an invented site).
+    aperture_efficiency : float
         Aperture efficiency eta_a.
-    tsys : Quantity [temperature]
-        System temperature.
+    tsys : Quantity [temperature], optional
+        System temperature; needed for radiometer noise unless ``zenith_opacity`` is given.
     elevation_limit : Quantity [angle]
         Samples with the source lower than this are dropped.
-    pb_shape : {"gaussian", "airy"}
-        Primary-beam shape; ``taper`` sets the Gaussian FWHM = taper lambda / D.
-    quantization_efficiency, correlator_efficiency : float
-        eta_q and eta_c of the radiometer equation (TMS 3rd ed., ch. 6 and 8).
+    primary_beam_shape : {"gaussian", "airy"}
+        Primary-beam shape; ``fwhm_factor`` sets the Gaussian FWHM = fwhm_factor lambda / D.
+    fwhm_factor : float
+        Primary-beam FWHM in units of lambda / D (1.13 for a typical illumination taper,
+        Goldsmith 1998, ch. 6).
+    system_efficiency : float
+        The digital and correlator losses of the radiometer equation in one factor (eta_q
+        eta_c in Thompson, Moran & Swenson 2017, ch. 6 and 8; e.g. 0.88 for 2-bit, 4-level
+        sampling, their Table 8.1, from memory). Default 0.9, a plain round figure.
     n_pol : {1, 2}
         Polarisations correlated and averaged into Stokes I (default 2).
     zenith_opacity : float, optional
@@ -102,16 +118,15 @@ class Interferometer:
     """
 
     antennas: object = "ring-24"
-    dish_diameter: u.Quantity = 12 * u.m
-    latitude: u.Quantity = -23 * u.deg
-    efficiency: float = 0.7
-    tsys: u.Quantity = 90 * u.K
+    diameter: u.Quantity = None
+    latitude: u.Quantity = 8 * u.deg
+    aperture_efficiency: float = 0.7
+    tsys: u.Quantity = None
     name: str = None
     elevation_limit: u.Quantity = 15 * u.deg
-    pb_shape: str = "gaussian"
-    taper: float = 1.13
-    quantization_efficiency: float = 0.96
-    correlator_efficiency: float = 0.88
+    primary_beam_shape: str = "gaussian"
+    fwhm_factor: float = 1.13
+    system_efficiency: float = 0.9
     n_pol: int = 2
     zenith_opacity: float = None
     receiver_temperature: u.Quantity = None
@@ -127,7 +142,11 @@ class Interferometer:
             k = int(first[np.argmax(counts > 1)])
             raise InstrumentError(f"antennas {names[k]!r} and another share the position "
                                   f"{enu[k].tolist()} m; every antenna needs its own position")
-        d_m = _quantity("dish_diameter", self.dish_diameter, u.m).value
+        if self.diameter is None and np.isnan(diam).any():
+            raise InstrumentError("diameter: the layout leaves antenna diameters empty; give "
+                                  "diameter= (e.g. 10 * u.m)")
+        d_m = (np.nan if self.diameter is None
+               else _quantity("diameter", self.diameter, u.m).value)
         diam = np.where(np.isnan(diam), d_m, diam)
         lat = _quantity("latitude", self.latitude, u.deg, positive=False)
         if abs(lat.value) > 90:
@@ -135,7 +154,7 @@ class Interferometer:
         el = _quantity("elevation_limit", self.elevation_limit, u.deg, positive=False)
         if not 0 <= el.value < 90:
             raise InstrumentError(f"elevation_limit={self.elevation_limit!r} must be in [0, 90) deg")
-        for key in ("efficiency", "quantization_efficiency", "correlator_efficiency"):
+        for key in ("aperture_efficiency", "system_efficiency"):
             v = getattr(self, key)
             if not (isinstance(v, (int, float)) and 0 < v <= 1):
                 raise InstrumentError(f"{key}={v!r} must be a number in (0, 1]")
@@ -151,13 +170,20 @@ class Interferometer:
             _quantity("atmosphere_temperature", self.atmosphere_temperature, u.K)
         if isinstance(self.n_pol, bool) or self.n_pol not in (1, 2):
             raise InstrumentError(f"n_pol={self.n_pol!r}; valid: 1 or 2 polarisations")
-        if self.pb_shape not in PB_SHAPES:
-            raise InstrumentError(f"pb_shape={self.pb_shape!r} is not known; choose one of {PB_SHAPES}")
-        tsys = _quantity("tsys", self.tsys, u.K)
+        if self.primary_beam_shape not in PB_SHAPES:
+            raise InstrumentError(f"primary_beam_shape={self.primary_beam_shape!r} is not "
+                                  f"known; choose one of {PB_SHAPES}")
+        lo, hi = FWHM_FACTOR_RANGE
+        if (isinstance(self.fwhm_factor, bool) or not isinstance(self.fwhm_factor, (int, float))
+                or not lo <= self.fwhm_factor <= hi):
+            raise InstrumentError(f"fwhm_factor={self.fwhm_factor!r}; valid: a number in "
+                                  f"[{lo}, {hi}] (FWHM in units of lambda / D)")
+        tsys = None if self.tsys is None else _quantity("tsys", self.tsys, u.K)
         enu.setflags(write=False)
         diam.setflags(write=False)
         for key, val in (("antenna_names", names), ("positions_m", enu), ("diameters_m", diam),
-                         ("dish_diameter", d_m * u.m), ("latitude", lat),
+                         ("diameter", None if self.diameter is None else d_m * u.m),
+                         ("latitude", lat),
                          ("elevation_limit", el), ("tsys", tsys),
                          ("name", self.name or (self.antennas if isinstance(self.antennas, str)
                                                 else f"array-{enu.shape[0]}"))):
@@ -171,6 +197,9 @@ class Interferometer:
         """T_sys in K at each elevation: ``tsys`` without an atmosphere model, else
         [T_rx + T_atm (1 - e^-tau0 A)] e^(tau0 A) (:mod:`synth.instrument.atmosphere`)."""
         if self.zenith_opacity is None:
+            if self.tsys is None:
+                raise InstrumentError(f"array {self.name!r}: noise needs tsys (e.g. 90 * u.K) "
+                                      "or zenith_opacity with receiver_temperature")
             return np.full(np.shape(elevation_rad), self.tsys.to_value(u.K))
         from .atmosphere import system_temperature
         return system_temperature(u.Quantity(self.receiver_temperature).to_value(u.K),
@@ -189,15 +218,15 @@ class Interferometer:
 
     @property
     def total_efficiency(self):
-        """eta_q eta_c eta_a."""
-        return self.quantization_efficiency * self.correlator_efficiency * self.efficiency
+        """system_efficiency x aperture_efficiency."""
+        return self.system_efficiency * self.aperture_efficiency
 
 
 @dataclass(frozen=True, eq=False)
 class Tracks:
     """All arrays' visibility rows: uvw (m), noise per row (Jy) and primary-beam groups.
 
-    ``groups`` is a tuple of (row indices, d1_m, d2_m, shape, taper): rows sharing one
+    ``groups`` is a tuple of (row indices, d1_m, d2_m, shape, fwhm_factor): rows sharing one
     pair beam. ``ant1``/``ant2`` are antenna numbers over all arrays, ``time_s`` the time
     of each row since the start of the track, ``gains`` an optional complex factor per row
     (antenna phase errors) applied to the predicted visibilities.
@@ -247,7 +276,7 @@ def assemble_tracks(arrays, dec_rad, opts, dnu_hz, integration_time=None, n_shar
         code = np.searchsorted(dset, da) * dset.size + np.searchsorted(dset, db)
         codes, inv = np.unique(code, return_inverse=True)
         ids = [table.setdefault((float(dset[k // dset.size]), float(dset[k % dset.size]),
-                                 arr.pb_shape, arr.taper), len(table)) for k in codes]
+                                 arr.primary_beam_shape, arr.fwhm_factor), len(table)) for k in codes]
         gid.append(np.asarray(ids)[inv.ravel()])
     gid = np.concatenate(gid)
     groups = tuple((np.nonzero(gid == k)[0],) + key for key, k in table.items())
@@ -276,7 +305,7 @@ def _pb_images(tracks, geom, nu_hz, weights, use_pb):
         return [one] * len(tracks.groups), one
     l, m = geom.lm()
     r = np.hypot(l, m)
-    pbs = [pair_beam(r, nu_hz, d1, d2, shape, taper) for _, d1, d2, shape, taper in tracks.groups]
+    pbs = [pair_beam(r, nu_hz, d1, d2, shape, fwhm_factor) for _, d1, d2, shape, fwhm_factor in tracks.groups]
     wg = np.array([weights[g[0]].sum() for g in tracks.groups])
     return pbs, sum(w * p for w, p in zip(wg, pbs)) / wg.sum()
 
@@ -311,25 +340,30 @@ def _check_options(opts):
     if opts["weighting"] not in WEIGHTINGS:
         raise InstrumentError(f"weighting={opts['weighting']!r} is not known; choose one of "
                               f"{WEIGHTINGS}")
-    for key in ("threshold", "gain", "pb_limit", "sd_scale"):
+    for key in ("clean_stop_sigma", "clean_loop_gain", "primary_beam_cutoff", "dish_flux_scale"):
         v = opts[key]
-        if not (isinstance(v, (int, float)) and v >= 0) or (key == "gain" and not 0 < v <= 1):
-            raise InstrumentError(f"{key}={v!r} must be a number >= 0" +
-                                  (" and gain in (0, 1]" if key == "gain" else ""))
-    if not (isinstance(opts["niter"], (int, np.integer)) and opts["niter"] >= 0):
-        raise InstrumentError(f"niter={opts['niter']!r} must be an integer >= 0")
+        if (isinstance(v, bool) or not (isinstance(v, (int, float)) and v >= 0)
+                or (key == "clean_loop_gain" and not 0 < v <= 1)):
+            raise InstrumentError(f"{key}={v!r}: valid is a number " +
+                                  ("in (0, 1]" if key == "clean_loop_gain" else ">= 0"))
+    n = opts["clean_max_components"]
+    if isinstance(n, bool) or not (isinstance(n, (int, np.integer)) and n >= 0):
+        raise InstrumentError(f"clean_max_components={n!r}: valid is an integer >= 0")
+    if not isinstance(opts["correct_primary_beam"], bool):
+        raise InstrumentError(f"correct_primary_beam={opts['correct_primary_beam']!r}: valid is "
+                              "True or False")
     if opts["deconvolver"] not in DECONVOLVERS:
         raise InstrumentError(f"deconvolver={opts['deconvolver']!r} is not one of "
                               f"{', '.join(DECONVOLVERS)}")
-    if opts["scales"] is not None:
-        sc = u.Quantity(opts["scales"])
+    if opts["clean_scales"] is not None:
+        sc = u.Quantity(opts["clean_scales"])
         if sc.unit.physical_type != "angle" or sc.ndim != 1 or not np.all(sc.value >= 0):
-            raise InstrumentError(f"scales={opts['scales']!r}: give component FWHMs as "
+            raise InstrumentError(f"clean_scales={opts['clean_scales']!r}: give component FWHMs as "
                                   "angles >= 0, e.g. [0, 2, 4] * u.arcsec")
-    ms = opts["mask_sigma"]
+    ms = opts["clean_mask_sigma"]
     if ms is not None and (isinstance(ms, bool) or not isinstance(ms, (int, float))
                            or not ms > 0):
-        raise InstrumentError(f"mask_sigma={ms!r} must be a number > 0 (the mask's level in "
+        raise InstrumentError(f"clean_mask_sigma={ms!r} must be a number > 0 (the mask's level in "
                               "units of the image noise)")
     phase = _quantity("phase_rms", opts["phase_rms"], u.rad, positive=False)
     if phase.value < 0:
@@ -386,7 +420,7 @@ def _seed(seed, noise):
 
 
 def observe_interferometric(cube, instrument, **kwargs):
-    """Observe ``cube`` with an Interferometer, several (joint imaging) and a dish (feathered):
+    """Observe ``cube`` with an Array, several (joint imaging) and a dish (feathered):
     see :func:`synth.instrument.array_observe.observe_interferometric`."""
     from .array_observe import observe_interferometric as _observe
     return _observe(cube, instrument, **kwargs)

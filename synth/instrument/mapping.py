@@ -13,7 +13,7 @@ The images are combined as a primary-beam-weighted linear mosaic (Cornwell 1988,
     sigma(x) = [sum_p A_p(x)^2 / s_p^2]^(-1/2)      (the sensitivity map),
 
 where s_p is pointing p's image noise. I is the **primary-beam-corrected** mosaic (NaN where
-the response below falls under ``pb_limit``); the **uncorrected** (flat-noise) mosaic is
+the response below falls under ``primary_beam_cutoff``); the **uncorrected** (flat-noise) mosaic is
 I(x) R(x) with the response R(x) = s_ref / sigma(x), s_ref the median s_p. For one pointing
 R = A and the uncorrected image is the usual dirty/CLEAN image of the attenuated sky.
 """
@@ -43,7 +43,7 @@ class MapOptions:
     """What area to map and on which pixels (angles in arcsec; None = the default)."""
 
     map_size: tuple = None
-    map_center: tuple = None
+    map_offset: tuple = None
     pixel: float = None
     beyond_box: str = "empty"
     pointing_pattern: str = "hexagonal"
@@ -69,7 +69,7 @@ def _arcsec(value, name, pair=False):
     return float(v[0])
 
 
-def map_options(map_size=None, map_center=None, pixel=None, beyond_box="empty",
+def map_options(map_size=None, map_offset=None, pixel=None, beyond_box="empty",
                 pointing_pattern="hexagonal", pointing_spacing=None, guard_band=None,
                 max_pointings=MAX_POINTINGS):
     """MapOptions from the keyword arguments of :func:`synth.observe` (Quantities)."""
@@ -81,11 +81,11 @@ def map_options(map_size=None, map_center=None, pixel=None, beyond_box="empty",
     if isinstance(max_pointings, bool) or not isinstance(max_pointings, (int, np.integer)) \
             or max_pointings < 1:
         raise InstrumentError(f"max_pointings: {max_pointings!r}; must be an integer >= 1")
-    center = _arcsec(map_center, "map_center", pair=True)
-    if map_center is not None and np.size(u.Quantity(map_center)) != 2:
-        raise InstrumentError(f"map_center: {map_center!r}; give (east, north) offsets, "
+    center = _arcsec(map_offset, "map_offset", pair=True)
+    if map_offset is not None and np.size(u.Quantity(map_offset)) != 2:
+        raise InstrumentError(f"map_offset: {map_offset!r}; give (east, north) offsets, "
                               "e.g. (30, -10) * u.arcsec")
-    return MapOptions(map_size=_arcsec(map_size, "map_size", pair=True), map_center=center,
+    return MapOptions(map_size=_arcsec(map_size, "map_size", pair=True), map_offset=center,
                       pixel=_arcsec(pixel, "pixel", pair=False), beyond_box=beyond_box,
                       pointing_pattern=pointing_pattern,
                       pointing_spacing=_arcsec(pointing_spacing, "pointing_spacing"),
@@ -132,16 +132,16 @@ def dish_layout(cube, dish, mopts, freq_hz, where="", model_size=None):
     center, size = _model_box(cube) if cube is not None else ((0.0, 0.0), model_size)
     return map_layout("dish", model_center=center, model_size=size, field_fwhm=fwhm,
                       beam_fwhm=fwhm, spacing_default=step, map_size=mopts.map_size,
-                      map_center=mopts.map_center, spacing=mopts.pointing_spacing,
+                      map_offset=mopts.map_offset, spacing=mopts.pointing_spacing,
                       guard_band=mopts.guard_band, max_pointings=mopts.max_pointings,
                       pixel=mopts.pixel, where=where)
 
 
 def primary_beam_fwhm_arcsec(arrays, freq_hz):
-    """Gaussian primary-beam FWHM (taper lambda / D) of the largest dish of the arrays."""
+    """Gaussian primary-beam FWHM (fwhm_factor lambda / D) of the largest dish of the arrays."""
     d = max(float(np.max(a.diameters_m)) for a in arrays)
-    taper = min(a.taper for a in arrays)
-    return taper * C_M_S / freq_hz / d * ARCSEC_PER_RAD, d
+    fwhm_factor = min(a.fwhm_factor for a in arrays)
+    return fwhm_factor * C_M_S / freq_hz / d * ARCSEC_PER_RAD, d
 
 
 def longest_baseline_m(arrays, dec_rad, opts):
@@ -178,7 +178,7 @@ def array_layout(cube, arrays, opts, mopts, dec_rad, freqs_hz, where="", model_s
     # without a primary beam (an idealisation for tests) one pointing sees everything
     layout = map_layout("array", model_center=center, model_size=size, field_fwhm=pb_fwhm,
                         beam_fwhm=beam_fwhm, spacing_default=step, map_size=mopts.map_size,
-                        map_center=mopts.map_center, pattern=pattern,
+                        map_offset=mopts.map_offset, pattern=pattern,
                         spacing=mopts.pointing_spacing, max_pointings=mopts.max_pointings,
                         pixel=mopts.pixel, where=where)
     if cube is None:

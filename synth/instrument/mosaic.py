@@ -131,7 +131,7 @@ def _pair(value, name, where):
 
 
 def map_layout(kind, *, model_center, model_size, field_fwhm, beam_fwhm, spacing_default,
-               map_size=None, map_center=None, pattern="hexagonal", spacing=None,
+               map_size=None, map_offset=None, pattern="hexagonal", spacing=None,
                guard_band=None, max_pointings=MAX_POINTINGS, pixel=None, where=""):
     """The MapLayout of a dish ("dish") or array ("array") setup. All angles in arcsec.
 
@@ -145,7 +145,7 @@ def map_layout(kind, *, model_center, model_size, field_fwhm, beam_fwhm, spacing
         Resolution of the result (the dish beam, or the synthesized-beam estimate).
     spacing_default : float
         Pointing (array) or position (dish) spacing when ``spacing`` is None.
-    map_size, map_center : float or (float, float), optional
+    map_size, map_offset : float or (float, float), optional
         The area to map; default the whole model.
     pattern : {"hexagonal", "rectangular", "single"}
         Array pointing pattern (a dish map is always rectangular); "single" is one pointing
@@ -162,7 +162,7 @@ def map_layout(kind, *, model_center, model_size, field_fwhm, beam_fwhm, spacing
     """
     from .grid import PIXELS_PER_BEAM
     size = _pair(map_size, "map_size", where)
-    center = _pair(map_center, "map_center", where) or tuple(model_center)
+    center = _pair(map_offset, "map_offset", where) or tuple(model_center)
     explicit = size is not None
     size = size or tuple(model_size)
     if min(size) <= 0:

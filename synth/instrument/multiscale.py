@@ -9,7 +9,7 @@ a component of the best amplitude) and the small-scale bias b_k = 1 - 0.6 s_k / 
 (Cornwell 2008, sec. III), adds gain x R_k / (G_k*G_k*PSF)(0) of
 that component to the model and subtracts its response, G_k * G_l * PSF shifted, from every
 R_l. It stops when the point-scale residual |R_0| falls below the threshold (or after
-``niter`` components). The model image is sum_k A_k * G_k; restored = model * clean beam +
+``max_components`` components). The model image is sum_k A_k * G_k; restored = model * clean beam +
 R_0, as for Högbom CLEAN.
 """
 
@@ -83,7 +83,7 @@ def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx, win
     return it
 
 
-def multiscale_clean(dirty, psf, threshold, scales, gain=0.1, niter=10000, beam_px=None,
+def multiscale_clean(dirty, psf, threshold, scales, loop_gain=0.1, max_components=10000, beam_px=None,
                      mask=None):
     """Multi-scale CLEAN of ``dirty`` (ny, nx) with ``psf`` (2ny, 2nx; peak 1 at its
     shape // 2 pixel) and ``scales`` (FWHM in pixels, the first 0). ``beam_px``, the
@@ -93,9 +93,9 @@ def multiscale_clean(dirty, psf, threshold, scales, gain=0.1, niter=10000, beam_
     scales = [float(s) for s in scales]
     ny, nx = dirty.shape
     if not scales or scales[0] != 0.0 or any(s < 0 for s in scales):
-        raise InstrumentError(f"scales: {scales}; give 0 (points) first, then FWHM > 0")
+        raise InstrumentError(f"clean_scales: {scales}; give 0 (points) first, then FWHM > 0")
     if max(scales) > max(ny, nx):
-        raise InstrumentError(f"scales: {max(scales):.4g} pixels is larger than the map "
+        raise InstrumentError(f"clean_scales: {max(scales):.4g} pixels is larger than the map "
                               f"({nx} x {ny} pixels)")
     py, px = psf.shape
     kernels = [None if s == 0 else _kernel(s) for s in scales]   # unit-flux components
@@ -131,9 +131,9 @@ def multiscale_clean(dirty, psf, threshold, scales, gain=0.1, niter=10000, beam_
     amps = np.zeros((ns, ny, nx))
     win = np.ones((ny, nx)) if mask is None else np.asarray(mask, dtype=np.float64)
     n, start = 0, float(np.abs(res[0]).max())
-    while n < niter:
-        step = min(REFRESH, niter - n)
-        done = _ms_kernel(res, cross, peak, bias, amps, float(gain), float(threshold), step,
+    while n < max_components:
+        step = min(REFRESH, max_components - n)
+        done = _ms_kernel(res, cross, peak, bias, amps, float(loop_gain), float(threshold), step,
                           py // 2, px // 2, win)
         n += done
         if done < step or float(np.abs(res[0]).max()) > 3.0 * start:

@@ -72,7 +72,7 @@ def radiometer_rms(tsys, efficiency, channel_width_hz, time, n_pol=1):
     time : Quantity (time)
         Effective on-source integration time.
     n_pol : {1, 2}
-        Polarisations averaged (a SingleDish records two by default).
+        Polarisations averaged (a Dish records two by default).
 
     Returns
     -------

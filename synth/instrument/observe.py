@@ -2,7 +2,7 @@
 
 It validates the cube and the options, applies the spectrometer's response (shared by every
 instrument: :mod:`synth.instrument.spectral`), then hands the cube to the instrument's own path:
-a :class:`~synth.instrument.single_dish.SingleDish` to
+a :class:`~synth.instrument.single_dish.Dish` to
 :func:`~synth.instrument.single_dish.observe_single_dish`, an interferometer (or a list of
 instruments to combine) to ``synth.instrument.interferometer.observe_interferometric``.
 Finally the spectral axis is given as radio velocity (km/s) or frequency (GHz).
@@ -16,7 +16,8 @@ from .cube_utils import check_cube, new_cube, cube_values, reference_frequency
 from .grid import SkyGrid, model_grid, observation_grid, place_model
 from .mapping import ObservedMap, dish_layout, map_options
 from .mosaic import MAX_POINTINGS
-from .single_dish import SingleDish, observe_single_dish
+from .interferometer import RENAMED_OPTIONS
+from .single_dish import Dish, observe_single_dish
 from .spectral import SPECTRAL_AXES, resample_spectral, to_spectral_axis
 
 __all__ = ["observe"]
@@ -25,12 +26,12 @@ __all__ = ["observe"]
 def _is_interferometric(instrument):
     if isinstance(instrument, (list, tuple)):
         return len(instrument) > 0
-    return type(instrument).__name__ == "Interferometer"
+    return type(instrument).__name__ == "Array"
 
 
 def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning=False,
             spectral_axis="velocity", integration_time=None, rms=None, noise=True,
-            seed=None, unit=None, map_size=None, map_center=None, pixel=None,
+            seed=None, unit=None, map_size=None, map_offset=None, pixel=None,
             beyond_box="empty", pointing_pattern="hexagonal", pointing_spacing=None,
             guard_band=None, max_pointings=MAX_POINTINGS, with_maps=False, **kwargs):
     """Observe a sky cube with a single dish, an interferometer or a combination.
@@ -40,7 +41,7 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
     cube : SpectralCube
         Any cube with a celestial WCS (square, north-up pixels), a radio-velocity or frequency
         axis with uniform channels, unit K or Jy/beam.
-    instrument : SingleDish, Interferometer, or list/tuple of instruments
+    instrument : Dish, Array, or list/tuple of instruments
     channel_width, channel_start : Quantity, optional
         Output channel grid (:func:`~synth.instrument.spectral.resample_spectral`); default the
         native channels. The width must be >= the native one.
@@ -61,7 +62,7 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
     map_size : Quantity (one or two angles), optional
         Width and height of the area to map; default the whole cube. An array maps an area
         larger than its primary beam as a mosaic; a dish maps it on the fly.
-    map_center : Quantity (two angles), optional
+    map_offset : Quantity (two angles), optional
         Centre of the area as (east, north) offsets from the cube's reference point.
     pixel : Quantity (angle), optional
         Output pixel; default the cube's own when it samples the beam with >= 4 pixels per
@@ -95,21 +96,23 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
     Examples
     --------
     >>> import astropy.units as u, synth
-    >>> dish = synth.SingleDish(diameter=30 * u.m, efficiency=0.7, tsys=120 * u.K)
+    >>> dish = synth.Dish(diameter=30 * u.m, main_beam_efficiency=0.7, tsys=120 * u.K)
     >>> obs = synth.observe(cube, dish, channel_width=0.5 * u.km / u.s,
     ...                     integration_time=2 * u.hr, seed=1)  # doctest: +SKIP
     """
+    for old in sorted(set(kwargs) & set(RENAMED_OPTIONS)):
+        raise InstrumentError(f"observe: {old}= was renamed to {RENAMED_OPTIONS[old]}")
     check_cube(cube)
     if spectral_axis not in SPECTRAL_AXES:
         raise InstrumentError(f"spectral_axis: {spectral_axis!r} is not one of "
                               f"{', '.join(SPECTRAL_AXES)}")
     if not isinstance(noise, bool):
         raise InstrumentError(f"noise: must be True or False, got {noise!r}")
-    mkw = dict(map_size=map_size, map_center=map_center, pixel=pixel, beyond_box=beyond_box,
+    mkw = dict(map_size=map_size, map_offset=map_offset, pixel=pixel, beyond_box=beyond_box,
                pointing_pattern=pointing_pattern, pointing_spacing=pointing_spacing,
                guard_band=guard_band, max_pointings=max_pointings)
     mopts = map_options(**mkw)
-    if isinstance(instrument, SingleDish):
+    if isinstance(instrument, Dish):
         if kwargs:
             raise InstrumentError(f"observe: unknown option(s) for a single dish: "
                                   f"{', '.join(sorted(kwargs))}")
@@ -124,7 +127,7 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
                                                            with_maps=True))
     else:
         raise InstrumentError(f"instrument: {type(instrument).__name__} is not an "
-                              "instrument; use SingleDish(...), Interferometer(...) or a list "
+                              "instrument; use Dish(...), Array(...) or a list "
                               "of them")
     final = _final_map(result, spectral_axis, spectral.meta)
     return final if with_maps else final.cube

@@ -14,32 +14,33 @@ import astropy.units as u
 from radio_beam import Beam
 
 from ..errors import InstrumentError
-from .beam import (TAPER_RANGE, convolve_beam, dish_beam, jy_per_k, sky_frequencies,
+from .beam import (FWHM_FACTOR_RANGE, convolve_beam, dish_beam, jy_per_k, sky_frequencies,
                    to_unit, unit_name)
 from .cube_utils import check_cube, cube_values, new_cube, pixel_scale, reference_frequency
 from .noise import correlated_noise, hanning_noise_factor, radiometer_rms
 from .spectral import channel_width_frequency, velocity_axis
 
-__all__ = ["SingleDish", "observe_single_dish", "noise_rms_for"]
+__all__ = ["Dish", "observe_single_dish", "noise_rms_for"]
 
 
 @dataclass(frozen=True)
-class SingleDish:
+class Dish:
     """A single-dish telescope.
 
     Parameters
     ----------
     diameter : Quantity (length), optional
-        Dish diameter; the beam FWHM is ``taper * lambda / D``.
-    efficiency : float in (0, 1]
-        Main-beam efficiency eta (divides the radiometer noise).
+        Dish diameter; the beam FWHM is ``fwhm_factor * lambda / D``.
+    main_beam_efficiency : float in (0, 1]
+        Main-beam efficiency eta_mb (divides the radiometer noise: the output is in main-beam
+        brightness temperature).
     tsys : Quantity (temperature), optional
         System temperature, needed for noise from the radiometer equation.
     beam : radio_beam.Beam, optional
         A fixed beam used at every frequency instead of the diameter.
-    taper : float
-        FWHM in units of lambda / D: 1.02 uniform illumination, ~1.13 typical taper,
-        1.2 strong taper (Goldsmith 1998, ch. 6; docs/references.md). Allowed range TAPER_RANGE.
+    fwhm_factor : float
+        Beam FWHM in units of lambda / D: 1.02 uniform illumination, ~1.13 typical taper,
+        1.2 strong taper (Goldsmith 1998, ch. 6; docs/references.md). Allowed range FWHM_FACTOR_RANGE.
     name : str
         Recorded in the output's INSTRUME card.
     n_pol : {1, 2}
@@ -48,41 +49,43 @@ class SingleDish:
     """
 
     diameter: u.Quantity = None
-    efficiency: float = 0.7
+    main_beam_efficiency: float = 0.7
     tsys: u.Quantity = None
     beam: Beam = None
-    taper: float = 1.13
+    fwhm_factor: float = 1.13
     name: str = "dish"
     n_pol: int = 2
 
     def __post_init__(self):
         if (self.diameter is None) == (self.beam is None):
-            raise InstrumentError("SingleDish: give exactly one of diameter (e.g. 30 * u.m) "
+            raise InstrumentError("Dish: give exactly one of diameter (e.g. 30 * u.m) "
                                   "or beam (a radio_beam.Beam)")
         if self.diameter is not None:
             _check_quantity(self.diameter, u.m, "diameter", "30 * u.m", allow_zero=False)
         if self.beam is not None and not isinstance(self.beam, Beam):
             raise InstrumentError(f"beam: expected a radio_beam.Beam, got "
                                   f"{type(self.beam).__name__}")
-        if not (isinstance(self.efficiency, (int, float)) and 0 < self.efficiency <= 1):
-            raise InstrumentError(f"efficiency: must be a number in (0, 1], "
-                                  f"got {self.efficiency!r}")
+        eff = self.main_beam_efficiency
+        if isinstance(eff, bool) or not (isinstance(eff, (int, float)) and 0 < eff <= 1):
+            raise InstrumentError(f"main_beam_efficiency: must be a number in (0, 1], "
+                                  f"got {eff!r}")
         if self.tsys is not None:
             _check_quantity(self.tsys, u.K, "tsys", "120 * u.K", allow_zero=False)
-        lo, hi = TAPER_RANGE
-        if not (isinstance(self.taper, (int, float)) and lo <= self.taper <= hi):
-            raise InstrumentError(f"taper: must be between {lo} and {hi} (FWHM in lambda/D; "
-                                  f"1.02 uniform, 1.13 typical), got {self.taper!r}")
+        lo, hi = FWHM_FACTOR_RANGE
+        if not (isinstance(self.fwhm_factor, (int, float)) and lo <= self.fwhm_factor <= hi):
+            raise InstrumentError(f"fwhm_factor: must be between {lo} and {hi} (FWHM in "
+                                  f"lambda/D; 1.02 uniform, 1.13 typical), got "
+                                  f"{self.fwhm_factor!r}")
         if not isinstance(self.name, str) or not self.name:
             raise InstrumentError(f"name: must be a non-empty string, got {self.name!r}")
         if isinstance(self.n_pol, bool) or self.n_pol not in (1, 2):
             raise InstrumentError(f"n_pol: {self.n_pol!r}; valid: 1 or 2 polarisations")
 
     def beam_at(self, freq):
-        """The beam at frequency ``freq`` (Quantity): the fixed beam, or taper * lambda / D."""
+        """The beam at frequency ``freq`` (Quantity): the fixed beam, or fwhm_factor * lambda / D."""
         if self.beam is not None:
             return self.beam
-        return dish_beam(self.diameter, freq, self.taper)
+        return dish_beam(self.diameter, freq, self.fwhm_factor)
 
 
 def _check_quantity(value, unit, field, hint, allow_zero=True):
@@ -116,7 +119,7 @@ def noise_rms_for(cube, dish, beam, *, integration_time=None, rms=None, hanning=
     v, _ = velocity_axis(cube)
     width = abs(v[1] - v[0])
     dnu = channel_width_frequency(width, reference_frequency(cube))
-    sigma = radiometer_rms(dish.tsys, dish.efficiency, dnu, integration_time, dish.n_pol)
+    sigma = radiometer_rms(dish.tsys, dish.main_beam_efficiency, dnu, integration_time, dish.n_pol)
     return sigma * hanning_noise_factor() if hanning else sigma
 
 
@@ -143,8 +146,8 @@ def observe_single_dish(cube, dish, *, integration_time=None, rms=None, noise=Tr
     noiseless), plus CHANWID/HANNING from the spectral step.
     """
     check_cube(cube)
-    if not isinstance(dish, SingleDish):
-        raise InstrumentError(f"instrument: expected SingleDish, got {type(dish).__name__}")
+    if not isinstance(dish, Dish):
+        raise InstrumentError(f"instrument: expected Dish, got {type(dish).__name__}")
     out_unit = unit_name(unit if unit is not None else "K")
     beam = dish.beam_at(reference_frequency(cube))
     smoothed = to_unit(convolve_beam(cube, beam), "K")

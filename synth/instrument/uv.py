@@ -27,7 +27,7 @@ from ..errors import InstrumentError
 from ..sky import C_M_S
 
 __all__ = ["UVTracks", "SIDEREAL_RATE_RAD_S", "sample_hour_angles", "enu_to_xyz", "xyz_to_uvw",
-           "elevation", "uv_tracks", "uv_coverage", "largest_recoverable_scale",
+           "elevation", "uv_tracks", "uv_coverage", "largest_scale",
            "synthesized_beam_estimate", "baseline_pairs"]
 
 #: Earth's rotation rate relative to the stars, 7.2921150e-5 rad/s (IERS Conventions 2010).
@@ -122,7 +122,7 @@ def _shadowed(uvw_m, i, j, diam_m, n_ant):
 
 
 def uv_tracks(arr, declination, hour_angles, sample_interval, flagged=True):
-    """uv tracks of ``arr`` (an Interferometer) toward ``declination``.
+    """uv tracks of ``arr`` (an Array) toward ``declination``.
 
     Returns a :class:`UVTracks`; see the module docstring for the row order. Raises
     InstrumentError when the source never rises above the array's elevation limit.
@@ -158,7 +158,7 @@ def uv_coverage(arr, declination, hour_angles, sample_interval):
     return uv_tracks(arr, declination, hour_angles, sample_interval).uvw_m * u.m
 
 
-def largest_recoverable_scale(arr, freq, declination, hour_angles, sample_interval=300 * u.s):
+def largest_scale(arr, freq, declination, hour_angles, sample_interval=300 * u.s):
     """Largest recoverable scale theta_LAS = 0.6 lambda / B_min (Wilner & Welch 1994, ApJ 427,
     898), B_min the shortest projected baseline over the track. Returns arcsec."""
     t = uv_tracks(arr, declination, hour_angles, sample_interval)

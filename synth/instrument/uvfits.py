@@ -98,7 +98,7 @@ def write_uvfits(path, tracks, vis, freqs_hz, arrays, ra_deg, dec_deg, hour_angl
     vis : ndarray (n_rows, n_channels) complex
     freqs_hz : ndarray (n_channels,)
         Uniformly spaced channel frequencies.
-    arrays : list of Interferometer (in the order of ``tracks``' antenna numbers)
+    arrays : list of Array (in the order of ``tracks``' antenna numbers)
     ra_deg, dec_deg : float
         Phase centre (the pointing).
     hour_angle_rad : ndarray (n_rows,)

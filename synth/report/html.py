@@ -235,7 +235,7 @@ def _planning(page, s):
              f"{_e(_fmt(st.get('percentile'), '{:g}'))}th percentile of the emitting voxels "
              "(above the emission floor, at each setup's resolution); rms(time) is the noise "
              "per channel in the time shown; a combination is planned for its own array. "
-             "LAS: largest recoverable scale. Methods: docs/planning.md. plan.csv and "
+             "largest scale: the largest recoverable scale, 0.6 lambda / shortest baseline. Methods: docs/planning.md. plan.csv and "
              "plan.txt hold the same rows.</p>")
     body = plan_cells(rows)
     if body:

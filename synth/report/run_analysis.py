@@ -174,7 +174,7 @@ def plan_config(conf, ideal, settings=None):
         inst = make_instrument(st)
         hours = settings["time_h"] or st["integration_time_h"]
         kw = {} if st["kind"] == "dish" else {
-            "hour_angles": (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
+            "hour_angles": tuple(st["hour_angles_h"]) * u.hourangle,
             "sample_interval": st["sample_interval_s"] * u.s}
         kw.update(_plan_map_keywords(st))
         for tname, cube in ideal.items():
@@ -204,7 +204,7 @@ def _plan_map_keywords(st):
     """The map options of a [[setup]] as plan() takes them (the same layout observe makes)."""
     from ..observing import map_keywords
     mk = map_keywords(st)
-    kw = {"field_size": mk.get("map_size"), "map_center": mk.get("map_center"),
+    kw = {"field_size": mk.get("map_size"), "map_offset": mk.get("map_offset"),
           "pointing_spacing": mk.get("pointing_spacing"), "guard_band": mk.get("guard_band"),
           "max_pointings": mk.get("max_pointings")}
     if st["kind"] == "array":
@@ -374,7 +374,7 @@ def survival_text(rows):
 #: are seconds in the rows and shown in s, min or h by their size
 PLAN_COLUMNS = (("tracer", "tracer", "{}"), ("setup", "setup", "{}"),
                 ("frequency_ghz", "GHz", "{:.3f}"), ("beam_major_arcsec", "beam\"", "{:.3g}"),
-                ("largest_scale_arcsec", "LAS\"", "{:.3g}"),
+                ("largest_scale_arcsec", "largest scale\"", "{:.3g}"),
                 ("channel_width_kms", "dv km/s", "{:.3g}"),
                 ("integration_time_s", "time", duration_text),
                 ("rms", "rms(time)", "{:.3g}"), ("target", "target", "{:.3g}"),

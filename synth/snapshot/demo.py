@@ -60,15 +60,15 @@ def demo_source():
     return {
         "name": "synth demo cloud (invented)",
         "distance": 2.4 * u.kpc,
-        "ra": 277.25 * u.deg,
-        "dec": -3.40 * u.deg,
+        "ra": 131.50 * u.deg,
+        "dec": 6.20 * u.deg,
         "v_sys": 42.0 * u.km / u.s,
     }
 
 
-@u.quantity_input(size="length", mean_density="number density", rotation=u.km / u.s / u.pc,
+@u.quantity_input(box="length", mean_n_h2="number density", rotation=u.km / u.s / u.pc,
                   shear=u.km / u.s / u.pc, t_range="temperature", t_ref="temperature")
-def demo_cloud(n=128, seed=1, size=4 * u.pc, mean_density=3e3 * u.cm**-3, mach=10.0,
+def demo_cloud(cells=128, seed=1, box=4 * u.pc, mean_n_h2=3e3 * u.cm**-3, mach=10.0,
                solenoidal_fraction=0.7, density_slope=3.5, velocity_slope=4.0,
                rotation=0.3 * u.km / u.s / u.pc, shear=0.15 * u.km / u.s / u.pc,
                t_range=(10.0, 60.0) * u.K, t_ref=10.0 * u.K, max_bytes=4e9):
@@ -76,13 +76,13 @@ def demo_cloud(n=128, seed=1, size=4 * u.pc, mean_density=3e3 * u.cm**-3, mach=1
 
     Parameters
     ----------
-    n : int
-        Cells per axis (the grid is n^3, cubic cells).
+    cells : int
+        Cells per axis (the grid is cells^3, cubic cells).
     seed : int
         Seed of :func:`numpy.random.default_rng`; the same seed gives the same bytes.
-    size : Quantity ``[length]``
+    box : Quantity ``[length]``
         Box edge length.
-    mean_density : Quantity ``[number density]``
+    mean_n_h2 : Quantity ``[number density]``
         Volume-averaged n(H2).
     mach : float
         3-D sonic Mach number of the turbulent velocity at ``t_ref``; sets the velocity
@@ -107,14 +107,15 @@ def demo_cloud(n=128, seed=1, size=4 * u.pc, mean_density=3e3 * u.cm**-3, mach=1
 
     Examples
     --------
-    >>> cloud = demo_cloud(n=32, seed=3)
+    >>> cloud = demo_cloud(cells=32, seed=3)
     >>> cloud.shape
     (32, 32, 32)
     """
+    n = cells
     _check_args(n, mach, solenoidal_fraction, density_slope, velocity_slope, t_range, max_bytes)
     rng = np.random.default_rng(seed)
-    n0_cm3 = float(mean_density.to_value(u.cm**-3))
-    dx_pc = float(size.to_value(u.pc)) / n
+    n0_cm3 = float(mean_n_h2.to_value(u.cm**-3))
+    dx_pc = float(box.to_value(u.pc)) / n
     sigma3d_kms = mach * float(sound_speed(t_ref).value)
     b = 1.0 - 2.0 / 3.0 * solenoidal_fraction
     width = np.sqrt(np.log1p((b * mach) ** 2))
@@ -132,7 +133,7 @@ def demo_cloud(n=128, seed=1, size=4 * u.pc, mean_density=3e3 * u.cm**-3, mach=1
 
 def _check_args(n, mach, f_sol, beta_n, beta_v, t_range, max_bytes):
     if not isinstance(n, (int, np.integer)) or n < 8:
-        raise SnapshotError(f"demo cloud n = {n!r} is not valid; use an integer >= 8")
+        raise SnapshotError(f"demo cloud cells = {n!r} is not valid; use an integer >= 8")
     if not np.isfinite(mach) or mach < 0:
         raise SnapshotError(f"demo cloud mach = {mach!r} is not valid; use a finite number >= 0")
     if not 0.0 <= f_sol <= 1.0:
@@ -148,8 +149,8 @@ def _check_args(n, mach, f_sol, beta_n, beta_v, t_range, max_bytes):
     need = _BYTES_PER_CELL * float(n) ** 3
     if need > max_bytes:
         raise MemoryBudgetError(
-            f"demo cloud n = {n} needs about {need / 1e9:.1f} GB of working memory, more than "
-            f"max_bytes = {max_bytes / 1e9:.1f} GB; lower n or raise max_bytes")
+            f"demo cloud cells = {n} needs about {need / 1e9:.1f} GB of working memory, more than "
+            f"max_bytes = {max_bytes / 1e9:.1f} GB; lower cells or raise max_bytes")
 
 
 def _wavenumbers(n):

@@ -84,7 +84,7 @@ def read_snapshot(path, fields=None, cell_size=None, format=None, *, units=None,
     >>> import tempfile, os
     >>> from synth.snapshot.demo import demo_cloud
     >>> path = os.path.join(tempfile.mkdtemp(), "cloud.npz")
-    >>> write_npz(demo_cloud(n=16), path)
+    >>> write_npz(demo_cloud(cells=16), path)
     >>> read_snapshot(path).shape
     (16, 16, 16)
     """

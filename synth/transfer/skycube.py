@@ -17,7 +17,7 @@ from ..errors import ConfigError
 __all__ = ["ChannelGrid", "channel_grid", "sky_wcs", "DEFAULT_POSITION"]
 
 #: Default source position (an arbitrary sky direction for invented sources).
-DEFAULT_POSITION = (83.0 * u.deg, -5.0 * u.deg)
+DEFAULT_POSITION = (120.0 * u.deg, 10.0 * u.deg)
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,7 @@ from astropy.wcs import WCS
 from spectral_cube import SpectralCube
 
 import synth.instrument.array_observe as ao
-from synth.instrument.interferometer import Interferometer, observe_interferometric
+from synth.instrument.interferometer import Array, observe_interferometric
 
 
 def make_cube(nch, n=192, pix=0.2):
@@ -45,10 +45,10 @@ def make_cube(nch, n=192, pix=0.2):
 
 def timed(cube, **kw):
     t0 = time.perf_counter()
-    obs = observe_interferometric(cube, Interferometer("ring-24"), noise=False, deconvolve=True,
+    obs = observe_interferometric(cube, Array("ring-24", tsys=90 * u.K), noise=False, deconvolver="hogbom",
                                   weighting="natural", sample_interval=300 * u.s,
                                   pointing_pattern="single", pixel=0.2 * u.arcsec,
-                                  primary_beam=False, **kw)
+                                  primary_beam=False, correct_primary_beam=False, **kw)
     return time.perf_counter() - t0, obs.meta["CLEANIT"]
 
 

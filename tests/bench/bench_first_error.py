@@ -38,7 +38,7 @@ excitation = "lvg"
 [[setup]]
 name = "arr"
 kind = "array"
-latitude_deg = -23
+latitude_deg = 8
 tsys_k = 90
 integration_time_h = 1
 """
@@ -46,7 +46,7 @@ integration_time_h = 1
 TINY = """
 [cloud]
 source = "demo"
-size = 16
+cells = 16
 [sky]
 distance_pc = 2000
 [channels]
@@ -76,7 +76,7 @@ def main():
     from synth.snapshot.demo import demo_cloud
     from synth.snapshot.readers import write_hdf5
     with tempfile.TemporaryDirectory() as tmp:
-        write_hdf5(demo_cloud(n=args.n, seed=1), os.path.join(tmp, "cloud.h5"))
+        write_hdf5(demo_cloud(cells=args.n, seed=1), os.path.join(tmp, "cloud.h5"))
         with open(os.path.join(tmp, "bad.toml"), "w") as fh:
             fh.write(BAD)
         with open(os.path.join(tmp, "tiny.toml"), "w") as fh:

@@ -20,7 +20,7 @@ import astropy.units as u
 def snapshot(n, seed=3):
     import synth
     try:
-        return synth.demo_cloud(n=n, seed=seed)
+        return synth.demo_cloud(cells=n, seed=seed)
     except (ImportError, AttributeError):  # demo cloud not available: a random stand-in
         rng = np.random.default_rng(seed)
         shape = (n, n, n)

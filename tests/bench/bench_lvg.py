@@ -20,7 +20,7 @@ def snapshot(n, seed=3):
     """The invented demo cloud, or a random stand-in if it is not available."""
     import synth
     try:
-        return synth.demo_cloud(n=n, seed=seed)
+        return synth.demo_cloud(cells=n, seed=seed)
     except (ImportError, AttributeError):
         rng = np.random.default_rng(seed)
         shape = (n, n, n)

@@ -18,7 +18,7 @@ from astropy.wcs import WCS
 from spectral_cube import SpectralCube
 
 from synth.instrument.arrays import spiral_layout
-from synth.instrument.interferometer import Interferometer, observe_interferometric
+from synth.instrument.interferometer import Array, observe_interferometric
 from synth.instrument.uv import uv_tracks
 from synth.instrument.visibilities import (NTHREADS, NTHREADS_GRID, cube_geometry, grid_dirty,
                                            predict)
@@ -35,14 +35,14 @@ def make_cube(nch, n=256, pix_arcsec=0.1):
     w.wcs.cunit = ["deg", "deg", "m/s"]
     w.wcs.cdelt = [-pix_arcsec / 3600, pix_arcsec / 3600, 250.0]
     w.wcs.crpix = [n // 2 + 1, n // 2 + 1, 1]
-    w.wcs.crval = [83.8, -30.0, 0.0]
+    w.wcs.crval = [120.0, -30.0, 0.0]
     w.wcs.restfrq = 230.538e9
     return SpectralCube(data=data * u.K, wcs=w)
 
 
 def main(nch=64):
     cube = make_cube(nch)
-    arr = Interferometer(spiral_layout(50, 20.0, 500.0, seed=5), name="bench-50")
+    arr = Array(spiral_layout(50, 20.0, 500.0, seed=5), name="bench-50", tsys=90 * u.K)
     # one pointing on the cube's own pixels, as the bare calls image it (observe would
     # otherwise resample onto 4 pixels per synthesized beam)
     kw = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s,
@@ -65,18 +65,18 @@ def main(nch=64):
 
     def observe_call():
         t0 = time.perf_counter()
-        observe_interferometric(cube, arr, seed=1, deconvolve=False, **kw)
+        observe_interferometric(cube, arr, seed=1, deconvolver="none", correct_primary_beam=False, **kw)
         return time.perf_counter() - t0
 
     import warnings
     warnings.simplefilter("ignore")          # this sky fills more than one primary beam
-    observe_interferometric(cube[:1], arr, seed=1, deconvolve=False, **kw)   # imports
+    observe_interferometric(cube[:1], arr, seed=1, deconvolver="none", correct_primary_beam=False, **kw)   # imports
     # alternate the two three times and take the medians: the shared machine's speed drifts
     pairs = [(bare_calls(), observe_call()) for _ in range(3)]
     bare = float(np.median([p[0] for p in pairs]))
     full = float(np.median([p[1] for p in pairs]))
     tracemalloc.start()
-    observe_interferometric(cube, arr, seed=1, deconvolve=False, **kw)
+    observe_interferometric(cube, arr, seed=1, deconvolver="none", correct_primary_beam=False, **kw)
     peak_mb = tracemalloc.get_traced_memory()[1] / 1e6
     tracemalloc.stop()
     print("runs (bare, observe) s: " + ", ".join(f"({a:.2f}, {b:.2f})" for a, b in pairs))
@@ -86,7 +86,7 @@ def main(nch=64):
           f"all visibilities would be {t.uvw_m.shape[0] * nch * 16 / 1e6:.0f} MB)")
     nd = min(nch, 8)
     t0 = time.perf_counter()
-    observe_interferometric(cube[:nd], arr, seed=1, deconvolve=True, niter=2000, **kw)
+    observe_interferometric(cube[:nd], arr, seed=1, deconvolver="hogbom", clean_max_components=2000, correct_primary_beam=False, **kw)
     print(f"deconvolved observe of {nd} channels (niter 2000): {time.perf_counter() - t0:.2f} s")
 
 

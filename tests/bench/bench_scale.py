@@ -65,7 +65,7 @@ def warm(grid, threads=None):
         numba.set_num_threads(threads)
     from synth.snapshot.demo import demo_cloud
     from synth.transfer.synthesize import synthesize_products
-    synthesize_products(demo_cloud(n=16, seed=SEED), line(), ABUNDANCE, **grid_kw(grid))
+    synthesize_products(demo_cloud(cells=16, seed=SEED), line(), ABUNDANCE, **grid_kw(grid))
     return os.getpid()
 
 
@@ -86,9 +86,9 @@ def figure(fig, key, label, value, op=None, target=None, note=""):
 def part_scaling(n, n_channels, fig):
     from synth.snapshot.demo import demo_cloud
     from synth.transfer.synthesize import synthesize_products
-    big = demo_cloud(n=n, seed=SEED)
+    big = demo_cloud(cells=n, seed=SEED)
     grid = channel_grid(big, n_channels)
-    small = demo_cloud(n=n // 2, seed=SEED)
+    small = demo_cloud(cells=n // 2, seed=SEED)
     warm(grid)
     times = {}
     for snap in (small, big):  # best of two runs each (the machine is shared)
@@ -151,7 +151,7 @@ def part_memory(n, n_channels, budgets, fig):
     from synth.transfer.tiles import parse_memory
     with tempfile.TemporaryDirectory(prefix="synth-bench-") as tmp:
         path = os.path.join(tmp, f"cloud{n}.h5")
-        snap = demo_cloud(n=n, seed=SEED)
+        snap = demo_cloud(cells=n, seed=SEED)
         grid = channel_grid(snap, n_channels)
         sigma_kms = float(snap.sigma_turb_cms) / 1e5
         write_hdf5(snap, path)
@@ -228,7 +228,7 @@ def _cluster_times(snap, sources, grid, rows, n_channels):
     for workers in (1, 2):
         with executor_context(workers=workers) as ex:
             pids = ex.client.run(warm, grid, 1)  # numba compiled (or cache-loaded) everywhere
-            small = demo_cloud(n=32, seed=SEED)  # and the scatter/submit path warmed
+            small = demo_cloud(cells=32, seed=SEED)  # and the scatter/submit path warmed
             synthesize_products(small, line(), ABUNDANCE, executor=ex, **kw)
             budget = same_tiles_budget(snap.shape, n_channels, rows, workers)
             for name, source in sources.items():
@@ -246,7 +246,7 @@ def part_dask(n, n_channels, fig):
     from synth.transfer.synthesize import synthesize_products
     import numba
     logging.getLogger("distributed").setLevel(logging.ERROR)  # nanny shutdown chatter
-    snap = demo_cloud(n=n, seed=SEED)
+    snap = demo_cloud(cells=n, seed=SEED)
     grid = channel_grid(snap, n_channels)
     warm(grid)
     rows = max(1, n // 16)
