@@ -31,7 +31,7 @@ class Plan:
 
     setup: str
     line: str
-    kind: str                      # "single dish" or "interferometer"
+    kind: str                      # "dish" or "array"
     frequency: u.Quantity          # GHz
     resolution: object             # radio_beam.Beam (dish beam or synthesized-beam estimate)
     largest_scale: u.Quantity      # arcsec; NaN for a single dish (no interferometric limit)
@@ -55,7 +55,7 @@ class Plan:
         ``brightness_unit``."""
         def val(q, unit):
             return None if q is None else float(u.Quantity(q).to_value(unit))
-        unit = "K" if self.kind == "single dish" else "Jy/beam"
+        unit = "K" if self.kind == "dish" else "Jy/beam"
         return {"setup": self.setup, "line": self.line, "kind": self.kind,
                 "frequency_ghz": val(self.frequency, u.GHz),
                 "beam_major_arcsec": val(self.resolution.major, u.arcsec),
@@ -157,7 +157,7 @@ def _target(cube, beam, kind, freq, percentile, floor, dv_kms):
         data = convolve_gaussian(data, pixel_scale_arcsec(cube), kernel, x_sign(cube))
     emitting = data[data >= floor * data.max()]
     value_k = float(np.percentile(emitting, percentile))
-    if kind == "single dish":
+    if kind == "dish":
         return value_k * u.K
     return value_k * jy_per_beam_per_k(freq.to_value(u.Hz), beam)[0] * u.Jy / u.beam
 
@@ -221,7 +221,7 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
                pointing_spacing=pointing_spacing, guard_band=guard_band)
     if max_pointings is not None:
         mkw["max_pointings"] = max_pointings
-    if kind == "single dish":
+    if kind == "dish":
         beam, largest, rms_of, time_of = _dish_model(setup, freq, n_pol)
         layout = _layout(setup, cube, freq, mkw, None)
     else:
@@ -250,9 +250,9 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
 def _kind(setup):
     name = type(setup).__name__
     if name == "Dish":
-        return "single dish"
+        return "dish"
     if name == "Array":
-        return "interferometer"
+        return "array"
     raise InstrumentError(f"setup: {name} cannot be planned; give a Dish or an "
                           "Array (plan each instrument of a combination separately)")
 

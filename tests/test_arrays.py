@@ -95,7 +95,7 @@ def test_bad_csv_rows_name_the_line(tmp_path, body, match):
 ])
 def test_bad_interferometer_input(kw, match):
     with pytest.raises(InstrumentError, match=match):
-        Array(**kw)
+        Array(**{"antennas": "ring-24", **kw})
 
 
 def test_interferometer_from_quantity_pickles_and_is_read_only():

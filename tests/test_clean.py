@@ -23,14 +23,18 @@ def _field():
 
 
 def test_clean_point_field_fluxes_and_residuals():
-    """Restored fluxes of four point sources within 1 % (noise 1.5 mJy, 3 sigma threshold);
-    the CLEAN stops with every residual below the threshold (Högbom 1974)."""
+    """Restored fluxes of four point sources within 0.5 % + 4 sigma of the image noise
+    (1.5 mJy: a peak pixel carries the noise, so a 0.2 Jy source cannot be held to 1 % by
+    less than 1.3 sigma), 3 sigma threshold; the CLEAN stops with every residual below the
+    threshold (Högbom 1974)."""
     arr = Array("ring-24", tsys=66 * u.K)
     obs = observe_interferometric(make_cube(_field()), arr, seed=11, deconvolver="hogbom",
                                   primary_beam=False, sample_interval=300 * u.s, clean_stop_sigma=3.0, correct_primary_beam=False)
     img = obs.unmasked_data[:].value
+    sigma = obs.meta["THEORMS"]
+    assert sigma == pytest.approx(1.5e-3, rel=0.02)
     for (y, x), s in SOURCES:
-        np.testing.assert_allclose(img[:, y, x], s, rtol=0.01)
+        np.testing.assert_allclose(img[:, y, x], s, rtol=0.005, atol=4 * sigma)
     assert obs.meta["DECONV"] and obs.meta["CLEANIT"] > 0
 
     # the same CLEAN on its own: residuals below threshold, model flux ~ input

@@ -113,7 +113,7 @@ def test_plan_cli_matches_plan(conf_path, capsys):
     direct = _direct_plans(conf_path, 4.0, 2.0)
     for key, cells in rows.items():
         p = direct[key].as_row()
-        unit = "K" if p["kind"] == "single dish" else "Jy/beam"
+        unit = "K" if p["kind"] == "dish" else "Jy/beam"
         assert p["brightness_unit"] == unit
         assert cells[7].endswith(" " + unit) and cells[8].endswith(" " + unit)
         got = {"beam": float(cells[3]), "rms": float(cells[7].split()[0]),

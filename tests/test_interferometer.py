@@ -125,6 +125,7 @@ def test_cube_wcs_checks():
     cube = _point_cube()
     w = cube.wcs.deepcopy()
     w.wcs.ctype = ["RA---CAR", "DEC--CAR", "VRAD"]
+    w.wcs.crval[1] = 0.0          # a plate carree grid about the equator
     from spectral_cube import SpectralCube
     bad = SpectralCube(data=cube.unmasked_data[:], wcs=w)
     with pytest.raises(InstrumentError, match="needs RA---SIN/DEC--SIN"):

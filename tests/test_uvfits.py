@@ -26,7 +26,7 @@ def _read(path):
 def test_uvfits_round_trip_through_pyuvdata(tmp_path):
     """Written visibilities of ring-24 (3 channels, noise on) read back by pyuvdata: uvw within
     1e-6 m, visibilities within 1e-6 relative, frequencies, antenna pairs, phase centre and
-    weights 1/sigma^2 (random-group UVFITS, Greisen 2012, AIPS Memo 117)."""
+    weights 1/sigma^2 (random-group UVFITS, Greisen 2012, technical memo 117)."""
     cube = make_cube(gaussian_sky(64, 6.0, 2.0, nch=3), pix_arcsec=0.2)
     arr = Array("ring-24", tsys=90 * u.K)
     p = simulate_visibilities(cube, arr, seed=3, sample_interval=600 * u.s,

@@ -104,7 +104,7 @@ def half_recovery_scale(table, level=0.5, column="recovered_power"):
 
 def fidelity_map(obs, ref):
     """Image fidelity F = |M| / |M - I| with M the reference (beam-convolved model) and I the
-    image (Pety, Gueth & Guilloteau 2001, ALMA Memo 398, their definition of the fidelity
+    image (Pety, Gueth & Guilloteau 2001, technical memo 398, their definition of the fidelity
     image; reference from memory). Infinite where the image equals the reference."""
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.abs(ref) / np.abs(obs - ref)

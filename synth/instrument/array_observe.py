@@ -318,9 +318,11 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
 
     Imaging options (defaults in ``OBSERVE_OPTIONS``): ``hour_angles`` (start, stop)
     Quantity; ``sample_interval`` time per sample; ``weighting`` natural / uniform / robust
-    with ``robust`` (Briggs R); ``deconvolve`` (Högbom CLEAN) with ``clean_stop_sigma`` (in units of
-    the image noise), ``clean_max_components``, ``clean_loop_gain``; ``correct_primary_beam`` returns the primary-beam-corrected
-    product (NaN where the response is < ``primary_beam_cutoff``) instead of the flat-noise one;
+    with ``robust`` (Briggs R); ``deconvolver`` ("hogbom", "multiscale" or "none") with
+    ``clean_stop_sigma`` (in units of the image noise), ``clean_max_components``,
+    ``clean_loop_gain``, ``clean_scales``, ``clean_mask_sigma``; ``correct_primary_beam``
+    (default True) returns the primary-beam-corrected product (NaN where the response is <
+    ``primary_beam_cutoff``), False the flat-noise one;
     ``primary_beam`` (False ignores it: an idealisation for tests); ``bandwidth`` channel
     width for single-channel cubes; ``declination`` overrides the WCS phase centre's;
     ``integration_time`` the on-source time of each pointing (default: the track, shared in

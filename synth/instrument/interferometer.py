@@ -117,7 +117,7 @@ class Array:
         T_rx, and the atmosphere's effective temperature (270 K, common practice).
     """
 
-    antennas: object = "ring-24"
+    antennas: object
     diameter: u.Quantity = None
     latitude: u.Quantity = 8 * u.deg
     aperture_efficiency: float = 0.7

@@ -1,11 +1,11 @@
 """Visibilities out: the simulated visibilities of an array setup as a random-group UVFITS file.
 
-The file follows the random-group UVFITS convention (Greisen 2012, AIPS Memo 117, "The FITS
+The file follows the random-group UVFITS convention (Greisen 2012, technical memo 117, "The FITS
 interferometry data interchange format"; Wells, Greisen & Harten 1981, A&AS 44, 363 for
 random groups): one group per visibility row with the parameters UU, VV, WW (light seconds),
 DATE (Julian date, split into two parameters), BASELINE (256 a1 + a2, antennas numbered from
 1) and INTTIM (s); the data axes COMPLEX (real, imaginary, weight), STOKES (I = 1), FREQ,
-IF, RA and DEC; and an AIPS AN table with the antenna positions relative to the array centre
+IF, RA and DEC; and an antenna table (EXTNAME "AIPS AN", the name the UVFITS convention requires) with the antenna positions relative to the array centre
 in the Earth-centred frame (rotated to the site's meridian; the invented site sits at
 longitude 0). Weights are 1 / sigma^2 (sigma per real and imaginary part, Jy). The UVFITS
 baseline direction is opposite synth's (and the usual reader's): the file holds -uvw and the
@@ -43,7 +43,7 @@ def _row_jd(hour_angle_rad, ra_deg):
 
 
 def _antenna_table(arrays, freq_hz, t0):
-    """The AIPS AN table of every array's antennas (numbered from 1 in order)."""
+    """The antenna table (EXTNAME "AIPS AN", as the convention names it) of every array's antennas (numbered from 1 in order)."""
     lat = arrays[0].latitude.to_value(u.rad)
     if any(abs(a.latitude.to_value(u.rad) - lat) > 1e-12 for a in arrays):
         raise InstrumentError("visibilities out: the arrays of one file must share a site "
@@ -120,7 +120,7 @@ def write_uvfits(path, tracks, vis, freqs_hz, arrays, ra_deg, dec_deg, hour_angl
     jd = _row_jd(hour_angle_rad, ra_deg)
     jd_day = np.floor(jd - 0.5) + 0.5
     data = np.zeros((n_rows, 1, 1, 1, n_chan, 1, 3))
-    # the UVFITS direction convention is opposite ours (Greisen 2012, AIPS Memo 117): write
+    # the UVFITS direction convention is opposite ours (Greisen 2012, technical memo 117): write
     # -uvw and the conjugate visibilities, which describe the same measurement
     data[..., 0] = vis.real[:, None, None, None, :, None]
     data[..., 1] = -vis.imag[:, None, None, None, :, None]

@@ -151,7 +151,7 @@ def visibility_sigma_jy(tsys_k, area1_m2, area2_m2, efficiency, channel_width_hz
     sigma = sqrt(2) k T_sys / (eta sqrt(A_i A_j) sqrt(n_pol dnu t))
 
     (Thompson, Moran & Swenson 2017, 3rd ed., eq. 6.50 per polarisation, averaged over
-    n_pol polarisations); eta = eta_q eta_c eta_a.
+    n_pol polarisations); eta = system_efficiency x aperture_efficiency (eta_q eta_c eta_a in TMS).
     """
     a = np.sqrt(np.asarray(area1_m2) * np.asarray(area2_m2))
     return (np.sqrt(2.0) * K_B_SI * tsys_k / (efficiency * a
@@ -189,7 +189,7 @@ def _array_factor(arr, n_pol, tsys_k=None):
 def interferometer_rms(arr, channel_width, time, n_pol=None, tsys_k=None):
     """Point-source sensitivity of the whole array per channel (natural weighting), in Jy:
 
-    sigma_S = 2 k T_sys / (eta_q eta_c eta_a A sqrt(N (N - 1) n_pol dnu t))
+    sigma_S = 2 k T_sys / (eta_s eta_a A sqrt(N (N - 1) n_pol dnu t)), eta_s = system_efficiency
 
     for identical dishes (Thompson, Moran & Swenson 2017, 3rd ed., eq. 6.62); dishes of
     mixed size combine per baseline with A_ij = sqrt(A_i A_j).

@@ -387,7 +387,7 @@ def plan_cells(rows):
     """The planning rows as table cells (strings, noise and targets with their unit)."""
     cells = []
     for r in rows:
-        unit = r.get("brightness_unit") or ("K" if r.get("kind") == "single dish"
+        unit = r.get("brightness_unit") or ("K" if r.get("kind") == "dish"
                                             else "Jy/beam")
         cells.append([cell_text(r, k, f) + (f" {unit}" if k in ("rms", "target")
                                             and r.get(k) is not None else "")
