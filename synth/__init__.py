@@ -21,6 +21,7 @@ _API = {
     "Excitation": "synth.excitation.product",
     "lte_excitation": "synth.excitation.lte",
     "excite": "synth.excitation.lvg",
+    "OneZoneExcitation": "synth.excitation.lvg",
     "synthesize": "synth.transfer.synthesize",
     "SingleDish": "synth.instrument.single_dish",
     "Interferometer": "synth.instrument.interferometer",
