@@ -39,6 +39,8 @@ _API = {
     "builtin_species": "synth.molecules.registry",
     "synthesize_products": "synth.transfer.synthesize",
     "critical_density": "synth.excitation.lvg",
+    "effective_excitation_density": "synth.excitation.line_ratios",
+    "line_ratio_grid": "synth.excitation.line_ratios",
     "interferometer_rms": "synth.instrument.visibilities",
     "largest_recoverable_scale": "synth.instrument.uv",
     "plot_uv_and_beam": "synth.instrument.imaging",

@@ -6,6 +6,10 @@
     synth excite SPECIES --density N --temperature T --column-per-width X
                                     one uniform zone in statistical equilibrium: critical and
                                     effective excitation densities, T_ex, tau, brightness
+    synth ratios SPECIES --lines 2-1/1-0 --density LO HI --temperature LO HI
+                 --column-per-width X --out DIR
+                                    line-ratio grids of one uniform zone: CSV, figure, and
+                                    which densities each pair responds to
     synth plan CONFIG               planning estimates per tracer x setup of a config
     synth compare A.fits B.fits     the same statistics of two cubes, side by side
 
@@ -86,8 +90,42 @@ def build_parser():
     p.add_argument("--datafile", default=None, help="a Leiden-format molecular data file")
     p.add_argument("--max-lines", type=int, default=10, metavar="N",
                    help="transitions to show (default 10; 0 = all)")
+    _add_ratios(sub)
     _add_plan_compare(sub)
     return ap
+
+
+def _add_ratios(sub):
+    p = sub.add_parser("ratios", help="line-ratio grids of one uniform zone",
+                       description="Integrated-intensity ratios of pairs of transitions over "
+                                   "a grid of H2 density x kinetic temperature (x column per "
+                                   "velocity width), from the one-zone escape-probability "
+                                   "solver, with each line's critical and effective "
+                                   "excitation densities. Writes line_ratios.csv and "
+                                   "line_ratios.png into --out (see docs/line_ratios.md).")
+    p.add_argument("species")
+    p.add_argument("--lines", nargs="+", required=True, metavar="UP/LOW",
+                   help="transition pairs NUMERATOR/DENOMINATOR, e.g. 2-1/1-0 3-2/1-0")
+    p.add_argument("--density", nargs=2, type=float, required=True, metavar=("LO", "HI"),
+                   help="n(H2) range, cm^-3 (log-spaced)")
+    p.add_argument("--temperature", nargs=2, type=float, required=True, metavar=("LO", "HI"),
+                   help="T_kin range, K (log-spaced)")
+    p.add_argument("--column-per-width", nargs="+", type=float, required=True,
+                   metavar="X", help="N(species)/dv values, cm^-2 per km/s (dv = FWHM)")
+    p.add_argument("--density-points", type=int, default=41, metavar="N",
+                   help="densities in the grid (default 41)")
+    p.add_argument("--temperature-points", type=int, default=11, metavar="N",
+                   help="temperatures in the grid (default 11)")
+    p.add_argument("--geometry", default="expanding",
+                   help='escape-probability geometry: "expanding" (default), "uniform-sphere" '
+                        'or "plane-slab"')
+    p.add_argument("--ortho-para-ratio", type=float, default=None, metavar="R",
+                   help="fixed H2 ortho/para ratio (default: thermal)")
+    p.add_argument("--datafile", default=None, help="a Leiden-format molecular data file")
+    p.add_argument("--out", required=True, metavar="DIR",
+                   help="write line_ratios.csv and line_ratios.png into this new folder")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --out folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def _add_plan_compare(sub):
@@ -164,16 +202,69 @@ def _cmd_lines(args):
 
 def _cmd_excite(args):
     import astropy.units as u
+    import numpy as np
     from .excitation.escape import check_geometry
     from .excitation.lvg import excite, format_excitation_table
+    from .excitation.line_ratios import effective_excitation_density
     check_geometry(args.geometry, "--geometry")
     if args.max_lines < 0:
         raise SynthError(f"--max-lines must be >= 0 (0 = all), got {args.max_lines}")
+    ndv = args.column_per_width * u.cm**-2 / (u.km / u.s)
     res = excite(args.species, n_h2=args.density * u.cm**-3, t_kin=args.temperature * u.K,
-                 column_per_width=args.column_per_width * u.cm**-2 / (u.km / u.s),
-                 geometry=args.geometry, ortho_para_ratio=args.ortho_para_ratio,
-                 datafile=args.datafile)
-    print(format_excitation_table(res, max_lines=args.max_lines or None))
+                 column_per_width=ndv, geometry=args.geometry,
+                 ortho_para_ratio=args.ortho_para_ratio, datafile=args.datafile)
+    shown = res.transitions[:args.max_lines or None]
+    n_eff = effective_excitation_density(
+        args.species, res.t_kin, ndv, list(shown), geometry=args.geometry,
+        ortho_para_ratio=args.ortho_para_ratio, datafile=args.datafile) if ndv.value > 0 \
+        else np.full(len(shown), np.nan) * u.cm**-3
+    print(format_excitation_table(res, max_lines=len(shown), effective_density=n_eff))
+    return 0
+
+
+def _cmd_ratios(args):
+    import astropy.units as u
+    import numpy as np
+    from .excitation.escape import check_geometry
+    from .excitation.line_ratios import MAX_GRID_ZONES, line_ratio_grid, parse_pairs
+    from .molecules.registry import molecule
+    from .report.comparison import check_out_dir
+    from .report.line_ratios import ratio_summary, write_line_ratios
+    check_geometry(args.geometry, "--geometry")
+    for flag, (lo, hi) in (("--density", args.density), ("--temperature", args.temperature)):
+        if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo < hi):
+            raise SynthError(f"{flag} {lo:g} {hi:g}: give LO HI with 0 < LO < HI")
+    for flag, n in (("--density-points", args.density_points),
+                    ("--temperature-points", args.temperature_points)):
+        if not 2 <= n <= 400:
+            raise SynthError(f"{flag} must be 2..400, got {n}")
+    cols = args.column_per_width
+    if not all(np.isfinite(c) and c > 0 for c in cols):
+        raise SynthError(f"--column-per-width must be > 0, got {' '.join(f'{c:g}' for c in cols)}")
+    if len(cols) > 6:
+        raise SynthError(f"--column-per-width takes at most 6 values (one figure column "
+                         f"each), got {len(cols)}")
+    zones = args.density_points * args.temperature_points * len(cols)
+    if zones > MAX_GRID_ZONES:
+        raise SynthError(f"the grid has {zones:,} zones; at most {MAX_GRID_ZONES:,} (fewer "
+                         "--density-points or --temperature-points)")
+    mol = molecule(args.species, datafile=args.datafile, need_collisions=True)
+    try:
+        pairs = parse_pairs(args.lines, mol)
+    except SynthError as exc:
+        raise SynthError(f"--lines: {exc}") from None
+    check_out_dir(args.out, args.overwrite)
+    from tqdm.auto import tqdm
+    with tqdm(total=1.0, desc="line ratios", disable=args.quiet,
+              bar_format="{l_bar}{bar}| {elapsed}") as bar:
+        grid = line_ratio_grid(
+            mol, pairs, np.geomspace(*args.density, args.density_points) * u.cm**-3,
+            np.geomspace(*args.temperature, args.temperature_points) * u.K,
+            np.array(cols) * u.cm**-2 / (u.km / u.s), geometry=args.geometry,
+            ortho_para_ratio=args.ortho_para_ratio, progress=bar)
+    print(ratio_summary(grid))
+    files = write_line_ratios(grid, args.out, overwrite=args.overwrite)
+    print(f"wrote {', '.join(files)} into {args.out}")
     return 0
 
 
@@ -277,7 +368,7 @@ def _cmd_compare(args):
 
 
 _COMMANDS = {"demo": _cmd_demo, "run": _cmd_run, "lines": _cmd_lines, "excite": _cmd_excite,
-             "plan": _cmd_plan, "compare": _cmd_compare}
+             "ratios": _cmd_ratios, "plan": _cmd_plan, "compare": _cmd_compare}
 
 #: Former command and option names, refused in one line with the name to use now.
 RENAMED_COMMANDS = {"zone": "excite"}

@@ -361,6 +361,20 @@ def test_bad_file(case, files, edit, fragment, clean_dirs, capsys):
     check(["run.toml", *files])
 
 
+def _ratios(*override):
+    """argv of a small valid `synth ratios` call with the options in ``override`` replaced."""
+    opts = {"--lines": ["2-1/1-0"], "--density": ["1e2", "1e5"], "--temperature": ["10", "30"],
+            "--column-per-width": ["1e15"], "--out": ["out"]}
+    i = 0
+    while i < len(override):
+        j = i + 1
+        while j < len(override) and not str(override[j]).startswith("--"):
+            j += 1
+        opts[override[i]] = list(override[i + 1:j])
+        i = j
+    return ["ratios", "CO", "--quiet"] + [w for k, v in opts.items() for w in (k, *v)]
+
+
 CLI_CASES = [
     # (id, argv after writing run.toml from BASE, fragment)
     ("config-is-folder", ["run", ".", "--out", "out"], "is a folder; give the path of a TOML"),
@@ -403,6 +417,20 @@ CLI_CASES = [
      "the option --max-jup was renamed to --max-lines"),
     ("lines-max-lines-negative", ["lines", "CO", "--max-lines", "-1"],
      "--max-lines must be >= 0 (0 = all), got -1"),
+    ("ratios-pair-syntax", _ratios("--lines", "2-1:1-0"),
+     "--lines: line pair '2-1:1-0' is not NUMERATOR/DENOMINATOR"),
+    ("ratios-pair-unknown", _ratios("--lines", "9-7/1-0"), "unknown transition '9-7'"),
+    ("ratios-density-reversed", _ratios("--density", "1e5", "1e2"),
+     "--density 100000 100: give LO HI with 0 < LO < HI"),
+    ("ratios-temperature-zero", _ratios("--temperature", "0", "30"),
+     "--temperature 0 30: give LO HI with 0 < LO < HI"),
+    ("ratios-points", _ratios("--density-points", "1"), "--density-points must be 2..400, got 1"),
+    ("ratios-columns", _ratios("--column-per-width", *["1e15"] * 7), "at most 6 values"),
+    ("ratios-column-negative", _ratios("--column-per-width", "1e15", "-5"),
+     "--column-per-width must be > 0, got 1e+15 -5"),
+    ("ratios-geometry-renamed", _ratios("--geometry", "sphere"),
+     '--geometry "sphere" was renamed to "uniform-sphere"'),
+    ("ratios-out-exists", _ratios("--out", "."), "exists; choose another --out"),
 ]
 
 

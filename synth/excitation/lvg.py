@@ -187,17 +187,10 @@ def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="expandin
     dens = partner_densities(system, [n], [t], ortho_para_ratio, partners)
     used = {p for p, d in zip(system.partners, dens) if np.any(d > 0)}
     check_temperature_range(system, t, t, used)
-    res = solve_levels(system, [n], [t], [ncol / GAUSS_AREA], geometry=geometry, t_bg_k=tb,
-                       ortho_para_ratio=ortho_para_ratio, partners=partners)
-    x = res.populations[0]
-    t_ex = excitation_temperature(system, x)
-    reached = np.isfinite(t_ex)
-    tau = np.where(reached, res.tau[0], 0.0)
+    res, t_ex, tau, t_r = zone_lines(system, [n], [t], [ncol], geometry=geometry, t_bg_k=tb,
+                                     ortho_para_ratio=ortho_para_ratio, partners=partners)
+    x, t_ex, tau, t_r = res.populations[0], t_ex[0], tau[0], t_r[0]
     n_crit, n_crit_all = _critical_densities(system, t, ortho_para_ratio)
-    j_ex = np.where(reached, radiation_temperature(system.freq_hz, np.where(reached, t_ex, 1.0)),
-                    0.0)
-    j_bg = radiation_temperature(system.freq_hz, tb) if tb > 0 else 0.0
-    t_r = np.where(reached, (j_ex - j_bg) * -np.expm1(-tau), 0.0)
     labels = mol.level_labels
     return OneZoneExcitation(
         species=mol.name, transitions=tuple(mol.transition_labels),
@@ -211,6 +204,26 @@ def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="expandin
         fwhm=fwhm, t_bg=tb * u.K, geometry=geometry,
         partners={p: float(d[0]) * u.cm**-3 for p, d in zip(system.partners, dens) if p in used},
         converged=True, iterations=int(res.iterations[0]))
+
+
+def zone_lines(system, n_h2_cm3, t_kin_k, column_per_width_cm3s, *, geometry="expanding",
+               t_bg_k=T_CMB_K, ortho_para_ratio=None, partners=None, x0=None):
+    """Many uniform zones at once, each as :func:`excite` solves one (module docstring).
+
+    ``column_per_width_cm3s`` is N/dv in cm^-2 per (cm/s), dv the FWHM. Returns the solver's
+    result and, per zone and line, T_ex (K; NaN where a population underflows), the
+    line-centre optical depth (0 there) and T_R (K, above the background)."""
+    kcol = np.asarray(column_per_width_cm3s, dtype=np.float64) / GAUSS_AREA
+    res = solve_levels(system, n_h2_cm3, t_kin_k, kcol, geometry=geometry, t_bg_k=t_bg_k,
+                       ortho_para_ratio=ortho_para_ratio, partners=partners, x0=x0)
+    t_ex = excitation_temperature(system, res.populations)
+    reached = np.isfinite(t_ex)
+    tau = np.where(reached, res.tau, 0.0)
+    j_ex = np.where(reached, radiation_temperature(system.freq_hz, np.where(reached, t_ex, 1.0)),
+                    0.0)
+    j_bg = radiation_temperature(system.freq_hz, t_bg_k) if t_bg_k > 0 else 0.0
+    t_r = np.where(reached, (j_ex - j_bg) * -np.expm1(-tau), 0.0)
+    return res, t_ex, tau, t_r
 
 
 def _fmt(v, spec):
@@ -289,8 +302,8 @@ def format_excitation_table(result, max_lines=None, effective_density=None):
             "  n_crit: A / downward collision rates of the upper level; n_crit,all: / every "
             "collision rate out of it (Shirley 2015)"]
     if effective_density is not None:
-        head.append(f"  n_eff: n(H2) at which W reaches 1 K km/s at this T_kin and N/dv "
-                    f"(Shirley 2015)")
+        head.append("  n_eff: n(H2) at which W reaches 1 K km/s at this T_kin and N/dv "
+                    "(Shirley 2015)")
     cols = [("upper", 6), ("lower", 6), ("n_crit [cm-3]", 14), ("n_crit,all [cm-3]", 18)]
     if effective_density is not None:
         cols.append(("n_eff [cm-3]", 13))
