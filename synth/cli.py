@@ -3,8 +3,13 @@
     synth demo --out DIR            the built-in demo (invented cloud, several tracers)
     synth run CONFIG --out DIR      a TOML run configuration
     synth lines [SPECIES ...]       built-in species and transitions
-    synth zone SPECIES --density N --temperature T --column-per-width X
-                                    one-zone escape-probability excitation table
+    synth excite SPECIES --density N --temperature T --column-per-width X
+                                    one uniform zone in statistical equilibrium: critical and
+                                    effective excitation densities, T_ex, tau, brightness
+    synth ratios SPECIES --lines 2-1/1-0 --density LO HI --temperature LO HI
+                 --column-per-width X --out DIR
+                                    line-ratio grids of one uniform zone: CSV, figure, and
+                                    which densities each pair responds to
     synth plan CONFIG               planning estimates per tracer x setup of a config
     synth compare A.fits B.fits     the same statistics of two cubes, side by side
 
@@ -63,23 +68,64 @@ def build_parser():
     p = sub.add_parser("lines", help="list built-in species and transitions",
                        description="Frequency, E_up/k, A_ul and g_up of built-in transitions.")
     p.add_argument("species", nargs="*", help="only these species")
-    p.add_argument("--max-jup", type=int, default=5, metavar="J",
-                   help="show transitions up to this upper level (default 5; 0 = all)")
+    p.add_argument("--max-lines", type=int, default=5, metavar="N",
+                   help="transitions to show per species (default 5; 0 = all)")
 
-    p = sub.add_parser("zone", help="one-zone escape-probability excitation table",
-                       description="T_ex, tau, T_R and integrated intensity of every "
-                                   "transition of one uniform zone (see docs/lvg.md).")
+    p = sub.add_parser("excite", help="excitation of one uniform zone, line by line",
+                       description="Statistical equilibrium of one uniform zone with an "
+                                   "escape probability. Per transition: the critical "
+                                   "densities and the effective excitation density, then "
+                                   "T_ex, optical depth, brightness and integrated intensity "
+                                   "(see docs/lvg.md).")
     p.add_argument("species")
     p.add_argument("--density", type=float, required=True, metavar="CM-3", help="n(H2), cm^-3")
     p.add_argument("--temperature", type=float, required=True, metavar="K", help="T_kin, K")
     p.add_argument("--column-per-width", type=float, required=True, metavar="CM-2/(KM/S)",
                    help="N(species)/dv, cm^-2 per km/s (dv = FWHM)")
-    p.add_argument("--geometry", default="lvg", help='"lvg", "sphere" or "slab"')
-    p.add_argument("--ortho-para", type=float, default=None, help="H2 ortho/para ratio")
+    p.add_argument("--geometry", default="expanding",
+                   help='escape-probability geometry: "expanding" (Sobolev / LVG flow, the '
+                        'default), "uniform-sphere" or "plane-slab"')
+    p.add_argument("--ortho-para-ratio", type=float, default=None, metavar="R",
+                   help="fixed H2 ortho/para ratio (default: thermal at --temperature)")
     p.add_argument("--datafile", default=None, help="a Leiden-format molecular data file")
-    p.add_argument("--max-rows", type=int, default=10, help="transitions to show (0 = all)")
+    p.add_argument("--max-lines", type=int, default=10, metavar="N",
+                   help="transitions to show (default 10; 0 = all)")
+    _add_ratios(sub)
     _add_plan_compare(sub)
     return ap
+
+
+def _add_ratios(sub):
+    p = sub.add_parser("ratios", help="line-ratio grids of one uniform zone",
+                       description="Integrated-intensity ratios of pairs of transitions over "
+                                   "a grid of H2 density x kinetic temperature (x column per "
+                                   "velocity width), from the one-zone escape-probability "
+                                   "solver, with each line's critical and effective "
+                                   "excitation densities. Writes line_ratios.csv and "
+                                   "line_ratios.png into --out (see docs/line_ratios.md).")
+    p.add_argument("species")
+    p.add_argument("--lines", nargs="+", required=True, metavar="UP/LOW",
+                   help="transition pairs NUMERATOR/DENOMINATOR, e.g. 2-1/1-0 3-2/1-0")
+    p.add_argument("--density", nargs=2, type=float, required=True, metavar=("LO", "HI"),
+                   help="n(H2) range, cm^-3 (log-spaced)")
+    p.add_argument("--temperature", nargs=2, type=float, required=True, metavar=("LO", "HI"),
+                   help="T_kin range, K (log-spaced)")
+    p.add_argument("--column-per-width", nargs="+", type=float, required=True,
+                   metavar="X", help="N(species)/dv values, cm^-2 per km/s (dv = FWHM)")
+    p.add_argument("--density-points", type=int, default=41, metavar="N",
+                   help="densities in the grid (default 41)")
+    p.add_argument("--temperature-points", type=int, default=11, metavar="N",
+                   help="temperatures in the grid (default 11)")
+    p.add_argument("--geometry", default="expanding",
+                   help='escape-probability geometry: "expanding" (default), "uniform-sphere" '
+                        'or "plane-slab"')
+    p.add_argument("--ortho-para-ratio", type=float, default=None, metavar="R",
+                   help="fixed H2 ortho/para ratio (default: thermal)")
+    p.add_argument("--datafile", default=None, help="a Leiden-format molecular data file")
+    p.add_argument("--out", required=True, metavar="DIR",
+                   help="write line_ratios.csv and line_ratios.png into this new folder")
+    p.add_argument("--overwrite", action="store_true", help="replace an existing --out folder")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def _add_plan_compare(sub):
@@ -145,30 +191,80 @@ def _run(conf, args, run_config):
 
 def _cmd_lines(args):
     from .molecules.registry import format_line_table, line_table
+    if args.max_lines < 0:
+        raise SynthError(f"--max-lines must be >= 0 (0 = all), got {args.max_lines}")
     rows = []
     for species in (args.species or [None]):
-        rows += line_table(species)
-    if args.max_jup > 0:
-        rows = [r for r in rows if _jup(r["transition"]) <= args.max_jup]
+        rows += line_table(species, max_lines=args.max_lines or None)
     print(format_line_table(rows))
     return 0
 
 
-def _jup(label):
-    try:
-        return int(str(label).split("-")[0])
-    except ValueError:
-        return 0
-
-
-def _cmd_zone(args):
+def _cmd_excite(args):
     import astropy.units as u
-    from .excitation.lvg import excite, format_zone_table
+    import numpy as np
+    from .excitation.escape import check_geometry
+    from .excitation.lvg import excite, format_excitation_table
+    from .excitation.line_ratios import effective_excitation_density
+    check_geometry(args.geometry, "--geometry")
+    if args.max_lines < 0:
+        raise SynthError(f"--max-lines must be >= 0 (0 = all), got {args.max_lines}")
+    ndv = args.column_per_width * u.cm**-2 / (u.km / u.s)
     res = excite(args.species, n_h2=args.density * u.cm**-3, t_kin=args.temperature * u.K,
-                 column_per_width=args.column_per_width * u.cm**-2 / (u.km / u.s),
-                 geometry=args.geometry, ortho_para_ratio=args.ortho_para,
-                 datafile=args.datafile)
-    print(format_zone_table(res, max_lines=args.max_rows or None))
+                 column_per_width=ndv, geometry=args.geometry,
+                 ortho_para_ratio=args.ortho_para_ratio, datafile=args.datafile)
+    shown = res.transitions[:args.max_lines or None]
+    n_eff = effective_excitation_density(
+        args.species, res.t_kin, ndv, list(shown), geometry=args.geometry,
+        ortho_para_ratio=args.ortho_para_ratio, datafile=args.datafile) if ndv.value > 0 \
+        else np.full(len(shown), np.nan) * u.cm**-3
+    print(format_excitation_table(res, max_lines=len(shown), effective_density=n_eff))
+    return 0
+
+
+def _cmd_ratios(args):
+    import astropy.units as u
+    import numpy as np
+    from .excitation.escape import check_geometry
+    from .excitation.line_ratios import MAX_GRID_ZONES, line_ratio_grid, parse_pairs
+    from .molecules.registry import molecule
+    from .report.comparison import check_out_dir
+    from .report.line_ratios import ratio_summary, write_line_ratios
+    check_geometry(args.geometry, "--geometry")
+    for flag, (lo, hi) in (("--density", args.density), ("--temperature", args.temperature)):
+        if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo < hi):
+            raise SynthError(f"{flag} {lo:g} {hi:g}: give LO HI with 0 < LO < HI")
+    for flag, n in (("--density-points", args.density_points),
+                    ("--temperature-points", args.temperature_points)):
+        if not 2 <= n <= 400:
+            raise SynthError(f"{flag} must be 2..400, got {n}")
+    cols = args.column_per_width
+    if not all(np.isfinite(c) and c > 0 for c in cols):
+        raise SynthError(f"--column-per-width must be > 0, got {' '.join(f'{c:g}' for c in cols)}")
+    if len(cols) > 6:
+        raise SynthError(f"--column-per-width takes at most 6 values (one figure column "
+                         f"each), got {len(cols)}")
+    zones = args.density_points * args.temperature_points * len(cols)
+    if zones > MAX_GRID_ZONES:
+        raise SynthError(f"the grid has {zones:,} zones; at most {MAX_GRID_ZONES:,} (fewer "
+                         "--density-points or --temperature-points)")
+    mol = molecule(args.species, datafile=args.datafile, need_collisions=True)
+    try:
+        pairs = parse_pairs(args.lines, mol)
+    except SynthError as exc:
+        raise SynthError(f"--lines: {exc}") from None
+    check_out_dir(args.out, args.overwrite)
+    from tqdm.auto import tqdm
+    with tqdm(total=1.0, desc="line ratios", disable=args.quiet,
+              bar_format="{l_bar}{bar}| {elapsed}") as bar:
+        grid = line_ratio_grid(
+            mol, pairs, np.geomspace(*args.density, args.density_points) * u.cm**-3,
+            np.geomspace(*args.temperature, args.temperature_points) * u.K,
+            np.array(cols) * u.cm**-2 / (u.km / u.s), geometry=args.geometry,
+            ortho_para_ratio=args.ortho_para_ratio, progress=bar)
+    print(ratio_summary(grid))
+    files = write_line_ratios(grid, args.out, overwrite=args.overwrite)
+    print(f"wrote {', '.join(files)} into {args.out}")
     return 0
 
 
@@ -271,8 +367,25 @@ def _cmd_compare(args):
     return 0
 
 
-_COMMANDS = {"demo": _cmd_demo, "run": _cmd_run, "lines": _cmd_lines, "zone": _cmd_zone,
-             "plan": _cmd_plan, "compare": _cmd_compare}
+_COMMANDS = {"demo": _cmd_demo, "run": _cmd_run, "lines": _cmd_lines, "excite": _cmd_excite,
+             "ratios": _cmd_ratios, "plan": _cmd_plan, "compare": _cmd_compare}
+
+#: Former command and option names, refused in one line with the name to use now.
+RENAMED_COMMANDS = {"zone": "excite"}
+RENAMED_OPTIONS = {"--ortho-para": "--ortho-para-ratio", "--max-rows": "--max-lines",
+                   "--max-jup": "--max-lines"}
+
+
+def _renamed(argv):
+    """The one-line message for a former command or option name in ``argv``, else None."""
+    words = [a for a in argv if not a.startswith("-")]
+    if words and words[0] in RENAMED_COMMANDS:
+        return f"the command `synth {words[0]}` was renamed to `synth {RENAMED_COMMANDS[words[0]]}`"
+    for a in argv:
+        old = a.split("=", 1)[0]
+        if old in RENAMED_OPTIONS:
+            return f"the option {old} was renamed to {RENAMED_OPTIONS[old]}"
+    return None
 
 
 def _one_line_warnings():
@@ -318,6 +431,10 @@ def _terminated(cleanup):
 def main(argv=None):
     import signal
     from .rundir import cleanup_registered
+    hint = _renamed(sys.argv[1:] if argv is None else list(argv))
+    if hint is not None:
+        print(f"synth: error: {hint}", file=sys.stderr)
+        return 2
     args = build_parser().parse_args(argv)
     _one_line_warnings()
     _SIGNALLED.clear()

@@ -63,7 +63,8 @@ TRACER = {
     "excitation": (str, "lte", '"lte" or "lvg"'),
     "t_ex_k": (_NUM, None, "LTE only: a fixed excitation temperature instead of T_kin"),
     "datafile": (str, None, "a Leiden-format molecular data file for this species"),
-    "geometry": (str, None, 'LVG escape-probability geometry: "lvg", "sphere" or "slab"'),
+    "geometry": (str, None, 'LVG escape-probability geometry: "expanding" (Sobolev flow, '
+                 'the default), "uniform-sphere" or "plane-slab"'),
     "ortho_para_ratio": (_NUM, None, "LVG: fixed H2 ortho/para ratio (default thermal)"),
     "accuracy": (_NUM, None, "LVG: table accuracy in T_R (default 0.01)"),
     "max_escape_length_pc": (_NUM, None, "LVG: cap on the Sobolev length, pc (default box size)"),

@@ -113,7 +113,7 @@ def _line(tr, i):
 
 
 def _check_tracer_values(tr, where):
-    from .excitation.escape import GEOMETRIES
+    from .excitation.escape import GEOMETRIES, RENAMED_GEOMETRIES
     checks = (("t_ex_k", lambda v: v > 0, "> 0 K"),
               ("ortho_para_ratio", lambda v: v >= 0, ">= 0"),
               ("accuracy", lambda v: 0 < v < 1, "0 < accuracy < 1"),
@@ -121,6 +121,9 @@ def _check_tracer_values(tr, where):
     for key, ok, valid in checks:
         if tr[key] is not None and not ok(tr[key]):
             raise ConfigError(f"{where}.{key} is {tr[key]}; valid: {valid}")
+    if tr["geometry"] in RENAMED_GEOMETRIES:
+        raise ConfigError(f'{where}.geometry "{tr["geometry"]}" was renamed to '
+                          f'"{RENAMED_GEOMETRIES[tr["geometry"]]}"')
     if tr["geometry"] is not None and tr["geometry"] not in GEOMETRIES:
         raise ConfigError(f"{where}.geometry is '{tr['geometry']}'; valid: "
                           f"{', '.join(GEOMETRIES)}")

@@ -138,9 +138,15 @@ CONFIG_CASES = [
     ("unknown-species", _tracer(species="XYZ"), "unknown species 'XYZ'"),
     ("unknown-transition", _tracer(transition="9-7"), "unknown transition '9-7'"),
     ("unknown-excitation", _tracer(excitation="nlte"), "excitation is 'nlte'; valid"),
-    ("lvg-option-on-lte", _tracer(geometry="slab"), "sets LVG options geometry"),
+    ("lvg-option-on-lte", _tracer(geometry="plane-slab"), "sets LVG options geometry"),
     ("lvg-no-rates", _tracer(species="HCN", excitation="lvg"), "no collision rates"),
     ("lvg-geometry", _tracer(excitation="lvg", geometry="cube"), "geometry is 'cube'; valid"),
+    ("lvg-geometry-renamed-slab", _tracer(excitation="lvg", geometry="slab"),
+     '13CO_1-0\'.geometry "slab" was renamed to "plane-slab"'),
+    ("lvg-geometry-renamed-sphere", _tracer(excitation="lvg", geometry="sphere"),
+     'geometry "sphere" was renamed to "uniform-sphere"'),
+    ("lvg-geometry-renamed-lvg", _tracer(excitation="lvg", geometry="lvg"),
+     'geometry "lvg" was renamed to "expanding"'),
     ("lvg-accuracy", _tracer(excitation="lvg", accuracy=2.0), "accuracy is 2.0; valid"),
     ("t-ex-zero", _tracer(t_ex_k=0.0), "t_ex_k is 0.0; valid: > 0 K"),
     ("hyperfine-no-data", _tracer(hyperfine=True),
@@ -368,6 +374,20 @@ def test_bad_file(case, files, edit, fragment, clean_dirs, capsys):
     check(["run.toml", *files])
 
 
+def _ratios(*override):
+    """argv of a small valid `synth ratios` call with the options in ``override`` replaced."""
+    opts = {"--lines": ["2-1/1-0"], "--density": ["1e2", "1e5"], "--temperature": ["10", "30"],
+            "--column-per-width": ["1e15"], "--out": ["out"]}
+    i = 0
+    while i < len(override):
+        j = i + 1
+        while j < len(override) and not str(override[j]).startswith("--"):
+            j += 1
+        opts[override[i]] = list(override[i + 1:j])
+        i = j
+    return ["ratios", "CO", "--quiet"] + [w for k, v in opts.items() for w in (k, *v)]
+
+
 CLI_CASES = [
     # (id, argv after writing run.toml from BASE, fragment)
     ("config-is-folder", ["run", ".", "--out", "out"], "is a folder; give the path of a TOML"),
@@ -391,6 +411,39 @@ CLI_CASES = [
      "--target-snr must be > 0"),
     ("plan-no-setup", ["plan", "run.toml"], "has no [[setup]] tables"),
     ("plan-array-without-antennas", ["plan", "noants.toml"], "'arr' (array) needs 'antennas'"),
+    ("zone-renamed", ["zone", "CO", "--density", "1e4", "--temperature", "20",
+                      "--column-per-width", "1e16"],
+     "the command `synth zone` was renamed to `synth excite`"),
+    ("excite-geometry-renamed", ["excite", "CO", "--density", "1e4", "--temperature", "20",
+                                 "--column-per-width", "1e16", "--geometry", "slab"],
+     '--geometry "slab" was renamed to "plane-slab"'),
+    ("excite-geometry-unknown", ["excite", "CO", "--density", "1e4", "--temperature", "20",
+                                 "--column-per-width", "1e16", "--geometry", "cube"],
+     "--geometry 'cube' unknown; valid: expanding, uniform-sphere, plane-slab"),
+    ("excite-ortho-para-renamed", ["excite", "CO", "--density", "1e4", "--temperature", "20",
+                                   "--column-per-width", "1e16", "--ortho-para", "3"],
+     "the option --ortho-para was renamed to --ortho-para-ratio"),
+    ("excite-max-rows-renamed", ["excite", "CO", "--density", "1e4", "--temperature", "20",
+                                 "--column-per-width", "1e16", "--max-rows", "3"],
+     "the option --max-rows was renamed to --max-lines"),
+    ("lines-max-jup-renamed", ["lines", "CO", "--max-jup=3"],
+     "the option --max-jup was renamed to --max-lines"),
+    ("lines-max-lines-negative", ["lines", "CO", "--max-lines", "-1"],
+     "--max-lines must be >= 0 (0 = all), got -1"),
+    ("ratios-pair-syntax", _ratios("--lines", "2-1:1-0"),
+     "--lines: line pair '2-1:1-0' is not NUMERATOR/DENOMINATOR"),
+    ("ratios-pair-unknown", _ratios("--lines", "9-7/1-0"), "unknown transition '9-7'"),
+    ("ratios-density-reversed", _ratios("--density", "1e5", "1e2"),
+     "--density 100000 100: give LO HI with 0 < LO < HI"),
+    ("ratios-temperature-zero", _ratios("--temperature", "0", "30"),
+     "--temperature 0 30: give LO HI with 0 < LO < HI"),
+    ("ratios-points", _ratios("--density-points", "1"), "--density-points must be 2..400, got 1"),
+    ("ratios-columns", _ratios("--column-per-width", *["1e15"] * 7), "at most 6 values"),
+    ("ratios-column-negative", _ratios("--column-per-width", "1e15", "-5"),
+     "--column-per-width must be > 0, got 1e+15 -5"),
+    ("ratios-geometry-renamed", _ratios("--geometry", "sphere"),
+     '--geometry "sphere" was renamed to "uniform-sphere"'),
+    ("ratios-out-exists", _ratios("--out", "."), "exists; choose another --out"),
 ]
 
 

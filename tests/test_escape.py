@@ -10,11 +10,12 @@ from synth.excitation.escape import (GEOMETRIES, TAU_MIN, escape_probability,
 mpmath = pytest.importorskip("mpmath")
 
 # Check values (computed from the closed forms of Osterbrock's uniform
-# sphere, the LVG form of Castor 1970 and the slab of de Jong, Boland & Dalgarno 1980).
+# sphere, the expanding-flow (LVG) form of Castor 1970 and the slab of de Jong, Boland &
+# Dalgarno 1980).
 CHECK = {
-    0.1: {"sphere": 0.96348, "lvg": 0.95163, "slab": 0.86394},
-    1.0: {"sphere": 0.70728, "lvg": 0.63212, "slab": 0.31674},
-    10.0: {"sphere": 0.14700, "lvg": 0.10000, "slab": 0.03333},
+    0.1: {"uniform-sphere": 0.96348, "expanding": 0.95163, "plane-slab": 0.86394},
+    1.0: {"uniform-sphere": 0.70728, "expanding": 0.63212, "plane-slab": 0.31674},
+    10.0: {"uniform-sphere": 0.14700, "expanding": 0.10000, "plane-slab": 0.03333},
 }
 
 
@@ -29,9 +30,9 @@ def test_check_values(tau, geometry):
 def _mp_beta(tau, geometry):
     """The published closed forms in 50-digit arithmetic (no cancellation problem)."""
     t = mpmath.mpf(tau)
-    if geometry == "lvg":
+    if geometry == "expanding":
         return (1 - mpmath.exp(-t)) / t
-    if geometry == "slab":
+    if geometry == "plane-slab":
         return (1 - mpmath.exp(-3 * t)) / (3 * t)
     return 1.5 / t * (1 - 2 / t**2 + (2 / t + 2 / t**2) * mpmath.exp(-t))
 
@@ -55,7 +56,7 @@ def test_stable_against_high_precision(geometry):
 
 
 @pytest.mark.parametrize("geometry, thin, thick", [
-    ("lvg", 0.5, 1.0), ("sphere", 3.0 / 8.0, 1.5), ("slab", 1.5, 1.0 / 3.0)])
+    ("expanding", 0.5, 1.0), ("uniform-sphere", 3.0 / 8.0, 1.5), ("plane-slab", 1.5, 1.0 / 3.0)])
 def test_limits(geometry, thin, thick):
     """Thin limit 1 - a tau and thick limit b / tau (closed forms: LVG 1 - tau/2, 1/tau;
     sphere 1 - 3 tau/8, 1.5/tau; slab 1 - 3 tau/2, 1/(3 tau))."""
@@ -79,16 +80,19 @@ def test_monotone_and_bounded(geometry):
 
 def test_inversion_floor_and_shape():
     """Below TAU_MIN tau is held at TAU_MIN (module docstring); shapes are kept."""
-    b = escape_probability(np.array([[TAU_MIN, TAU_MIN - 5.0]]), "lvg")
+    b = escape_probability(np.array([[TAU_MIN, TAU_MIN - 5.0]]), "expanding")
     assert b.shape == (1, 2)
     assert b[0, 0] == b[0, 1] == pytest.approx(np.expm1(1.0), rel=1e-14)  # (1 - e)/(-1)
-    assert escape_probability_derivative(TAU_MIN - 1.0, "slab") == 0.0
+    assert escape_probability_derivative(TAU_MIN - 1.0, "plane-slab") == 0.0
     assert np.ndim(escape_probability(0.3)) == 0
 
 
 @pytest.mark.parametrize("tau, geometry, match", [
-    (1.0, "cylinder", "geometry 'cylinder' unknown; valid: lvg, sphere, slab"),
-    (np.nan, "lvg", "tau holds NaN"),
+    (1.0, "cylinder", "geometry 'cylinder' unknown; valid: expanding, uniform-sphere, plane-slab"),
+    (np.nan, "expanding", "tau holds NaN"),
+    (1.0, "slab", 'geometry "slab" was renamed to "plane-slab"'),
+    (1.0, "sphere", 'geometry "sphere" was renamed to "uniform-sphere"'),
+    (1.0, "lvg", 'geometry "lvg" was renamed to "expanding"'),
 ])
 def test_bad_input(tau, geometry, match):
     with pytest.raises(ExcitationError, match=match):

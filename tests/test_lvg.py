@@ -10,7 +10,8 @@ from synth.molecules.data_model import CollisionRates, MolecularData
 from synth.molecules.registry import molecule
 from synth.radiation import C_CGS, H_CGS, K_CGS, radiation_temperature
 from synth.excitation.escape import GEOMETRIES, escape_probability
-from synth.excitation.lvg import (GAUSS_AREA, critical_density, excite, format_zone_table)
+from synth.excitation.lvg import (GAUSS_AREA, critical_density, excite,
+                                  format_excitation_table)
 from synth.excitation.statistical_equilibrium import (collision_matrix, level_system,
                                                       lte_populations, partner_densities,
                                                       solve_levels, thermal_ortho_para_ratio)
@@ -109,7 +110,7 @@ def test_co_critical_density(co):
     nc = critical_density(co, 20 * u.K, ortho_para_ratio=0.0)
     assert nc[0].to_value(CM3) == pytest.approx(7.203e-8 / 3.249e-11, rel=1e-6)
     assert 1e3 < critical_density(co, 20 * u.K)[0].to_value(CM3) < 4e3
-    nc_all = critical_density(co, 10 * u.K, ortho_para_ratio=0.0, include_upward=True)
+    nc_all = critical_density(co, 10 * u.K, ortho_para_ratio=0.0, form="all-levels")
     assert nc_all[0].to_value(CM3) == pytest.approx(9.0e2, rel=0.01)
 
 
@@ -136,7 +137,7 @@ def _leiden_file(path, name, mass, levels, lines, rates, temps):
     ("HCN", 1.4782, 2.407e-5, 2.0e-11, 3.0e-11, 2.0e-11, 4.7e5),
 ])
 def test_dense_gas_critical_densities(tmp_path, name, b_cm, a10, k10, k21, k20, shirley):
-    """n_crit (all j != u, Shirley 2015 eq. 4) from a user file of invented rates agrees with
+    """n_crit (all j != u, form="all-levels") from a user file of invented rates agrees with
     Shirley's 10 K values within a factor 2 (order of magnitude, values from memory)."""
     levels = [(b_cm * j * (j + 1), 2 * j + 1) for j in range(4)]
     nu = [2 * b_cm * j * 29.9792458 for j in (1, 2, 3)]
@@ -145,7 +146,7 @@ def test_dense_gas_critical_densities(tmp_path, name, b_cm, a10, k10, k21, k20, 
              (4, 2, [k20] * 3), (4, 3, [k21] * 3)]
     path = _leiden_file(tmp_path / f"{name.lower()}.dat", name, 29.0, levels, lines, rates,
                         [5.0, 10.0, 20.0])
-    nc = critical_density(name, 10 * u.K, include_upward=True, datafile=path)[0]
+    nc = critical_density(name, 10 * u.K, form="all-levels", datafile=path)[0]
     assert shirley / 2 < nc.to_value(CM3) < shirley * 2
 
 
@@ -186,20 +187,34 @@ def test_populations_valid_on_random_zones(co):
     np.testing.assert_allclose(again.populations[big], res.populations[big], rtol=1e-5)
 
 
-def test_zone_result_units_and_table(co):
+def test_one_zone_result_units_and_table(co):
     """T_R = [J(T_ex) - J(T_bg)](1 - e^-tau) (Mangum & Shirley 2015, eq. 27 uniform slab) and
-    flux = 1.0645 T_R FWHM; units on every field; the table lists every transition."""
+    integrated intensity = 1.0645 T_R FWHM; units on every field; the table lists every
+    transition, its level labels and the critical densities of critical_density()."""
     res = excite("CO", 1e4 * CM3, 20 * u.K, 1e16 * NDV, fwhm=2 * u.km / u.s)
     nu = res.frequency.to_value(u.Hz)
     t_r = (radiation_temperature(nu[:3], res.t_ex[:3].to_value(u.K))
            - radiation_temperature(nu[:3], 2.725)) * -np.expm1(-res.tau[:3])
     np.testing.assert_allclose(res.t_r[:3].to_value(u.K), t_r, rtol=1e-12)
-    np.testing.assert_allclose(res.flux.to_value(u.K * u.km / u.s),
+    np.testing.assert_allclose(res.integrated_intensity.to_value(u.K * u.km / u.s),
                                1.0645 * 2 * res.t_r.to_value(u.K), rtol=1e-4)
     assert res.transitions[:2] == ("1-0", "2-1") and res.frequency.unit == u.GHz
-    table = format_zone_table(res)
-    assert len(table.splitlines()) == 3 + len(res.transitions)
-    assert "1-0" in table.splitlines()[3]
+    assert res.upper_levels[:2] == ("1", "2") and res.lower_levels[:2] == ("0", "1")
+    np.testing.assert_allclose(res.critical_density.to_value(CM3),
+                               critical_density("CO", 20 * u.K).to_value(CM3), rtol=1e-12)
+    np.testing.assert_allclose(res.critical_density_all.to_value(CM3),
+                               critical_density("CO", 20 * u.K, form="all-levels").to_value(CM3),
+                               rtol=1e-12)
+    lines = format_excitation_table(res).splitlines()
+    header = next(i for i, ln in enumerate(lines) if ln.split()[:2] == ["upper", "lower"])
+    assert "n_crit [cm-3]" in lines[header] and "W [K km/s]" in lines[header]
+    assert len(lines) == header + 1 + len(res.transitions)
+    first = lines[header + 1].split()
+    assert first[:2] == ["1", "0"]
+    assert float(first[2]) == pytest.approx(res.critical_density[0].to_value(CM3), rel=1e-3)
+    assert float(first[-1]) == pytest.approx(res.integrated_intensity[0].to_value(u.K * u.km / u.s),
+                                             abs=1e-4)
+    assert len(format_excitation_table(res, max_lines=3).splitlines()) == header + 4
 
 
 def test_opr_and_extra_partners(co):
@@ -239,7 +254,8 @@ def test_convergence_error(co):
     ({"n_h2": -1 * CM3}, "n_h2 must be one finite value > 0"),
     ({"t_kin": 20 * u.s}, "t_kin has unit 's'"),
     ({"column_per_width": 1e15 * u.cm**-2}, "column_per_width has unit"),
-    ({"geometry": "cube"}, "geometry 'cube' unknown; valid: lvg, sphere, slab"),
+    ({"geometry": "cube"}, "geometry 'cube' unknown; valid: expanding, uniform-sphere, plane-slab"),
+    ({"geometry": "slab"}, 'geometry "slab" was renamed to "plane-slab"'),
     ({"ortho_para_ratio": -1.0}, "ortho_para_ratio must be a finite number >= 0"),
     ({"partners": {"He": 0.1}}, r"partners\['He'\]: no such extra collision partner.*none"),
     ({"partners": {"oH2": 0.1}}, r"partners\['oH2'\]"),

@@ -176,6 +176,30 @@ def test_cli_lines_lists_co(capsys):
     assert cli.main(["lines", "CO"]) == 0
     out = capsys.readouterr().out
     assert "115.27" in out and "1-0" in out
+    assert cli.main(["lines", "CO", "13CO", "--max-lines", "2"]) == 0
+    rows = [ln.split()[:2] for ln in capsys.readouterr().out.splitlines()[2:]]
+    assert rows == [["CO", "1-0"], ["CO", "2-1"], ["13CO", "1-0"], ["13CO", "2-1"]]
+
+
+def test_cli_excite_table(capsys):
+    """`synth excite` prints one row per transition (--max-lines of them) whose numbers are
+    those of synth.excite (the API) with the same inputs; the critical densities lead."""
+    import astropy.units as u
+    assert cli.main(["excite", "CO", "--density", "1e4", "--temperature", "20",
+                     "--column-per-width", "1e15", "--geometry", "uniform-sphere",
+                     "--ortho-para-ratio", "3", "--max-lines", "3"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    head = next(i for i, ln in enumerate(lines) if ln.split()[:2] == ["upper", "lower"])
+    assert lines[head].split()[2:4] == ["n_crit", "[cm-3]"]
+    rows = [ln.split() for ln in lines[head + 1:]]
+    assert [r[:2] for r in rows] == [["1", "0"], ["2", "1"], ["3", "2"]]
+    res = synth.excite("CO", 1e4 * u.cm**-3, 20 * u.K, 1e15 * u.cm**-2 / (u.km / u.s),
+                       geometry="uniform-sphere", ortho_para_ratio=3.0)
+    for i, r in enumerate(rows):
+        assert float(r[-1]) == pytest.approx(
+            res.integrated_intensity[i].to_value(u.K * u.km / u.s), abs=1e-4)
+        assert float(r[2]) == pytest.approx(res.critical_density[i].to_value(u.cm**-3),
+                                            rel=1e-3)
 
 
 def test_cli_run_writes(conf_file, tmp_path, capsys):
@@ -324,6 +348,6 @@ def test_lvg_tracer_in_config(tmp_path):
 
 def test_lvg_options_on_lte_tracer_refused(tmp_path):
     p = tmp_path / "c.toml"
-    p.write_text(MINIMAL.replace('abundance = 2e-6', 'abundance = 2e-6\ngeometry = "slab"'))
+    p.write_text(MINIMAL.replace('abundance = 2e-6', 'abundance = 2e-6\ngeometry = "plane-slab"'))
     with pytest.raises(ConfigError, match="sets LVG options geometry but its excitation is 'lte'"):
         synth.run_config(str(p), str(tmp_path / "o"), progress=False)

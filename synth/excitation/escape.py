@@ -8,25 +8,28 @@ with S the line source function and beta the probability that a line photon leav
 region (e.g. Draine 2011, "Physics of the Interstellar and Intergalactic Medium", ch. 19).
 The three forms provided:
 
-``"lvg"``
-    Large velocity gradient / expanding sphere (Sobolev 1960; Castor 1970, MNRAS 149, 111;
+``"expanding"``
+    Sobolev / large-velocity-gradient (LVG) expanding flow (Sobolev 1960; Castor 1970, MNRAS 149, 111;
     Goldreich & Kwan 1974, ApJ 189, 441): ``beta = (1 - exp(-tau)) / tau``.
-``"sphere"``
+``"uniform-sphere"``
     Static uniform sphere, tau the optical depth across the diameter (Osterbrock,
     "Astrophysics of Gaseous Nebulae"; Osterbrock & Ferland 2006):
     ``beta = (1.5/tau) [1 - 2/tau^2 + (2/tau + 2/tau^2) exp(-tau)]``.
-``"slab"``
+``"plane-slab"``
     Plane-parallel slab (de Jong, Boland & Dalgarno 1980, A&A 91, 68):
     ``beta = (1 - exp(-3 tau)) / (3 tau)``.
 
-All three tend to 1 as tau -> 0 and are evaluated without cancellation there: the LVG and
-slab forms through ``expm1``, the sphere through its Taylor series for |tau| < 0.1,
+All three tend to 1 as tau -> 0 and are evaluated without cancellation there: the expanding
+and plane-slab forms through ``expm1``, the sphere through its Taylor series for |tau| < 0.1,
 
     beta_sphere = 3 sum_j (-1)^j (j + 2) / (j + 3)! tau^j = 1 - 3 tau/8 + tau^2/10 - ...
 
 (derived from the closed form). A negative tau (population inversion) is evaluated at
 ``max(tau, TAU_MIN)``: a bounded choice that keeps the iteration stable; strong masers are
 outside what an escape probability can describe.
+
+The values were called "lvg", "sphere" and "slab" before; those spellings are refused with a
+one-line hint to the new name (:data:`RENAMED_GEOMETRIES`).
 """
 
 import math
@@ -35,10 +38,14 @@ import numpy as np
 
 from ..errors import ExcitationError
 
-__all__ = ["GEOMETRIES", "TAU_MIN", "escape_probability", "escape_probability_derivative"]
+__all__ = ["GEOMETRIES", "RENAMED_GEOMETRIES", "TAU_MIN", "check_geometry",
+           "escape_probability", "escape_probability_derivative"]
 
 #: Escape-probability geometries, see the module docstring.
-GEOMETRIES = ("lvg", "sphere", "slab")
+GEOMETRIES = ("expanding", "uniform-sphere", "plane-slab")
+
+#: Former spellings of the geometry values -> their names now (refused with this hint).
+RENAMED_GEOMETRIES = {"lvg": "expanding", "sphere": "uniform-sphere", "slab": "plane-slab"}
 
 #: Lower bound on the optical depth used in beta (inverted lines), see module docstring.
 TAU_MIN = -1.0
@@ -72,7 +79,7 @@ def _beta_sphere(tau):
     return out
 
 
-_FORMS = {"lvg": _beta_lvg, "sphere": _beta_sphere, "slab": _beta_slab}
+_FORMS = {"expanding": _beta_lvg, "uniform-sphere": _beta_sphere, "plane-slab": _beta_slab}
 
 _LVG_DSERIES = np.array([-1.0 / 2.0, 1.0 / 3.0, -1.0 / 8.0, 1.0 / 30.0, -1.0 / 144.0])
 _SPHERE_DSERIES = np.array([j * c for j, c in enumerate(_SPHERE_SERIES)][1:])
@@ -104,19 +111,28 @@ def _dbeta_sphere(tau):
     return out
 
 
-_DERIVS = {"lvg": _dbeta_lvg, "sphere": _dbeta_sphere, "slab": _dbeta_slab}
+_DERIVS = {"expanding": _dbeta_lvg, "uniform-sphere": _dbeta_sphere, "plane-slab": _dbeta_slab}
+
+
+def check_geometry(geometry, name="geometry"):
+    """Refuse anything but one of :data:`GEOMETRIES` in one line (a former spelling gets the
+    "renamed to" hint); ``name`` is how the caller spells the option."""
+    if isinstance(geometry, str) and geometry in RENAMED_GEOMETRIES:
+        raise ExcitationError(f'{name} "{geometry}" was renamed to '
+                              f'"{RENAMED_GEOMETRIES[geometry]}"')
+    if geometry not in GEOMETRIES:
+        raise ExcitationError(f"{name} {geometry!r} unknown; valid: {', '.join(GEOMETRIES)}")
 
 
 def _prepare(tau, geometry):
-    if geometry not in _FORMS:
-        raise ExcitationError(f"geometry {geometry!r} unknown; valid: {', '.join(GEOMETRIES)}")
+    check_geometry(geometry)
     t = np.asarray(tau, dtype=np.float64)
     if np.isnan(t).any():
         raise ExcitationError("tau holds NaN; escape probabilities need finite optical depths")
     return np.atleast_1d(t)
 
 
-def escape_probability(tau, geometry="lvg"):
+def escape_probability(tau, geometry="expanding"):
     """Photon escape probability beta(tau) for a geometry in :data:`GEOMETRIES`.
 
     Parameters
@@ -124,10 +140,10 @@ def escape_probability(tau, geometry="lvg"):
     tau : float or array_like
         Line-centre optical depth (dimensionless). Values below :data:`TAU_MIN` are raised
         to it (population inversion, see module docstring).
-    geometry : {"lvg", "sphere", "slab"}
-        ``"lvg"``: beta = (1 - e^-tau)/tau (Castor 1970); ``"sphere"``: uniform sphere with
-        tau across the diameter (Osterbrock); ``"slab"``: (1 - e^{-3 tau})/(3 tau)
-        (de Jong, Boland & Dalgarno 1980).
+    geometry : {"expanding", "uniform-sphere", "plane-slab"}
+        ``"expanding"``: beta = (1 - e^-tau)/tau (Sobolev / LVG flow, Castor 1970);
+        ``"uniform-sphere"``: static uniform sphere with tau across the diameter (Osterbrock);
+        ``"plane-slab"``: (1 - e^{-3 tau})/(3 tau) (de Jong, Boland & Dalgarno 1980).
 
     Returns
     -------
@@ -135,14 +151,14 @@ def escape_probability(tau, geometry="lvg"):
 
     Examples
     --------
-    >>> float(escape_probability(1.0, "lvg"))  # 1 - 1/e
+    >>> float(escape_probability(1.0, "expanding"))  # 1 - 1/e
     0.6321205588285577
     """
     t = np.maximum(_prepare(tau, geometry), TAU_MIN)
     return _FORMS[geometry](t).reshape(np.shape(tau))
 
 
-def escape_probability_derivative(tau, geometry="lvg"):
+def escape_probability_derivative(tau, geometry="expanding"):
     """d beta / d tau for :func:`escape_probability` (0 below :data:`TAU_MIN`, where beta is
     held constant). Used by the Newton solver; closed forms differentiated analytically,
     Taylor series at small tau."""

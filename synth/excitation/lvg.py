@@ -1,4 +1,4 @@
-"""Non-LTE excitation of one zone with escape probabilities (LVG, sphere, slab), and snapshots.
+"""Non-LTE excitation of one zone with escape probabilities, and of every cell of a snapshot.
 
 :func:`excite` solves statistical equilibrium (:mod:`synth.excitation.statistical_equilibrium`)
 for one zone of given n(H2), T_kin and N/dv and returns excitation temperature, optical depth,
@@ -12,11 +12,11 @@ Conventions of the single-zone query
 
   (1.0645 = sqrt(pi / (4 ln 2)), the FWHM of a unit-area Gaussian times its peak; Mangum &
   Shirley 2015, PASP 127, 266, eq. 29 at line centre). The same tau enters beta for every
-  geometry; for ``"sphere"`` it is read as the optical depth across the diameter.
+  geometry; for ``"uniform-sphere"`` it is read as the optical depth across the diameter.
 - Radiation temperature above the background, T_R = [J(T_ex) - J(T_bg)] (1 - e^-tau)
   (the same paper, their uniform-slab solution; J from :mod:`synth.radiation`).
-- ``flux``: integrated intensity of a Gaussian line, int T_R dv = 1.0645 T_R dv in K km/s,
-  with dv = ``fwhm`` (default 1 km/s; N = column_per_width * fwhm).
+- ``integrated_intensity``: of a Gaussian line, int T_R dv = 1.0645 T_R dv in K km/s, with
+  dv = ``fwhm`` (default 1 km/s; N = column_per_width * fwhm).
 - A line whose upper or lower population underflows to zero (levels far above kT and without
   collision rates) has T_ex = NaN, tau = 0 and T_R = 0.
 
@@ -31,35 +31,41 @@ import astropy.units as u
 
 from ..errors import ExcitationError
 from ..radiation import T_CMB_K, radiation_temperature
-from .escape import GEOMETRIES
+from .escape import GEOMETRIES, check_geometry
 from .statistical_equilibrium import (check_temperature_range, collision_matrix,
                                       excitation_temperature, level_system, partner_densities,
                                       solve_levels, H2_SPECIES)
 
-__all__ = ["GEOMETRIES", "ZoneResult", "excite", "format_zone_table", "critical_density",
-           "lvg_excitation", "GAUSS_AREA"]
+__all__ = ["GEOMETRIES", "CRITICAL_DENSITY_FORMS", "OneZoneExcitation", "excite",
+           "format_excitation_table", "critical_density", "lvg_excitation", "GAUSS_AREA"]
 
 #: int of a Gaussian of unit peak over velocity / FWHM = sqrt(pi / (4 ln 2)).
 GAUSS_AREA = float(np.sqrt(np.pi / (4.0 * np.log(2.0))))
 
 
 @dataclass(frozen=True, eq=False)
-class ZoneResult:
-    """Excitation of one zone, per radiative transition in the molecule's order.
+class OneZoneExcitation:
+    """Excitation of one uniform zone, per radiative transition in the molecule's order
+    (what :func:`excite` and ``synth excite`` return; the per-cell product of a snapshot is
+    :class:`synth.Excitation`).
 
     Attributes
     ----------
     species : str
     transitions : tuple of str
         Labels "upper-lower".
+    upper_levels, lower_levels : tuple of str
+        The level labels of each transition's upper and lower level.
     frequency : Quantity (GHz)
     e_up : Quantity (K)
         Upper level energies E_u/k.
     t_ex, tau, t_r : Quantity (K), ndarray, Quantity (K)
         Excitation temperature, line-centre optical depth and radiation temperature above the
         background (module docstring).
-    flux : Quantity (K km/s)
-        Integrated intensity 1.0645 T_R fwhm.
+    integrated_intensity : Quantity (K km/s)
+        1.0645 T_R fwhm (module docstring).
+    critical_density, critical_density_all : Quantity (cm^-3)
+        The "downward" and "all-levels" forms of :func:`critical_density` at ``t_kin``.
     populations : ndarray (n_levels,)
         Fractional level populations (sum 1).
     n_h2, t_kin, column_per_width, fwhm, t_bg : Quantity
@@ -74,12 +80,16 @@ class ZoneResult:
 
     species: str
     transitions: tuple
+    upper_levels: tuple
+    lower_levels: tuple
     frequency: u.Quantity
     e_up: u.Quantity
     t_ex: u.Quantity
     tau: np.ndarray
     t_r: u.Quantity
-    flux: u.Quantity
+    integrated_intensity: u.Quantity
+    critical_density: u.Quantity
+    critical_density_all: u.Quantity
     populations: np.ndarray
     n_h2: u.Quantity
     t_kin: u.Quantity
@@ -120,16 +130,15 @@ def _resolve_molecule(species_or_moldata, datafile):
 
 
 def check_options(geometry, ortho_para_ratio):
-    """Validate the geometry and ortho/para options shared by zone and snapshot solves."""
-    if geometry not in GEOMETRIES:
-        raise ExcitationError(f"geometry {geometry!r} unknown; valid: {', '.join(GEOMETRIES)}")
+    """Validate the geometry and ortho/para options shared by one-zone and snapshot solves."""
+    check_geometry(geometry)
     if ortho_para_ratio is not None and not (np.isfinite(ortho_para_ratio)
                                              and ortho_para_ratio >= 0):
         raise ExcitationError(f"ortho_para_ratio must be a finite number >= 0 or None (thermal), "
                               f"got {ortho_para_ratio!r}")
 
 
-def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="lvg",
+def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="expanding",
            ortho_para_ratio=None, t_bg=T_CMB_K * u.K, partners=None, datafile=None,
            fwhm=1.0 * u.km / u.s):
     """Statistical-equilibrium excitation of one zone with an escape probability.
@@ -142,7 +151,7 @@ def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="lvg",
     t_kin : Quantity ``[temperature]``
     column_per_width : Quantity, e.g. ``cm-2 / (km/s)``
         N(species) / dv with dv the line FWHM (module docstring for the tau convention).
-    geometry : {"lvg", "sphere", "slab"}
+    geometry : {"expanding", "uniform-sphere", "plane-slab"}
         Escape-probability form (:mod:`synth.excitation.escape`).
     ortho_para_ratio : float, optional
         Fixed H2 ortho/para ratio; default thermal, min(9 exp(-170.5/T), 3).
@@ -154,11 +163,11 @@ def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="lvg",
     datafile : path, optional
         Leiden-format file (when a name is given).
     fwhm : Quantity ``[speed]``
-        Line width used only for ``flux`` (default 1 km/s).
+        Line width used only for ``integrated_intensity`` (default 1 km/s).
 
     Returns
     -------
-    ZoneResult
+    OneZoneExcitation
 
     Examples
     --------
@@ -178,84 +187,143 @@ def excite(species_or_moldata, n_h2, t_kin, column_per_width, geometry="lvg",
     dens = partner_densities(system, [n], [t], ortho_para_ratio, partners)
     used = {p for p, d in zip(system.partners, dens) if np.any(d > 0)}
     check_temperature_range(system, t, t, used)
-    res = solve_levels(system, [n], [t], [ncol / GAUSS_AREA], geometry=geometry, t_bg_k=tb,
-                       ortho_para_ratio=ortho_para_ratio, partners=partners)
-    x = res.populations[0]
-    t_ex = excitation_temperature(system, x)
-    reached = np.isfinite(t_ex)
-    tau = np.where(reached, res.tau[0], 0.0)
-    j_ex = np.where(reached, radiation_temperature(system.freq_hz, np.where(reached, t_ex, 1.0)),
-                    0.0)
-    j_bg = radiation_temperature(system.freq_hz, tb) if tb > 0 else 0.0
-    t_r = np.where(reached, (j_ex - j_bg) * -np.expm1(-tau), 0.0)
-    return ZoneResult(
+    res, t_ex, tau, t_r = zone_lines(system, [n], [t], [ncol], geometry=geometry, t_bg_k=tb,
+                                     ortho_para_ratio=ortho_para_ratio, partners=partners)
+    x, t_ex, tau, t_r = res.populations[0], t_ex[0], tau[0], t_r[0]
+    n_crit, n_crit_all = _critical_densities(system, t, ortho_para_ratio)
+    labels = mol.level_labels
+    return OneZoneExcitation(
         species=mol.name, transitions=tuple(mol.transition_labels),
+        upper_levels=tuple(labels[i] for i in mol.upper),
+        lower_levels=tuple(labels[i] for i in mol.lower),
         frequency=(system.freq_hz * u.Hz).to(u.GHz), e_up=system.energy_k[system.upper] * u.K,
-        t_ex=t_ex * u.K, tau=tau, t_r=t_r * u.K, flux=GAUSS_AREA * t_r * dv * u.K * u.km / u.s,
+        t_ex=t_ex * u.K, tau=tau, t_r=t_r * u.K,
+        integrated_intensity=GAUSS_AREA * t_r * dv * u.K * u.km / u.s,
+        critical_density=n_crit * u.cm**-3, critical_density_all=n_crit_all * u.cm**-3,
         populations=x, n_h2=n * u.cm**-3, t_kin=t * u.K, column_per_width=column_per_width,
         fwhm=fwhm, t_bg=tb * u.K, geometry=geometry,
         partners={p: float(d[0]) * u.cm**-3 for p, d in zip(system.partners, dens) if p in used},
         converged=True, iterations=int(res.iterations[0]))
 
 
+def zone_lines(system, n_h2_cm3, t_kin_k, column_per_width_cm3s, *, geometry="expanding",
+               t_bg_k=T_CMB_K, ortho_para_ratio=None, partners=None, x0=None):
+    """Many uniform zones at once, each as :func:`excite` solves one (module docstring).
+
+    ``column_per_width_cm3s`` is N/dv in cm^-2 per (cm/s), dv the FWHM. Returns the solver's
+    result and, per zone and line, T_ex (K; NaN where a population underflows), the
+    line-centre optical depth (0 there) and T_R (K, above the background)."""
+    kcol = np.asarray(column_per_width_cm3s, dtype=np.float64) / GAUSS_AREA
+    res = solve_levels(system, n_h2_cm3, t_kin_k, kcol, geometry=geometry, t_bg_k=t_bg_k,
+                       ortho_para_ratio=ortho_para_ratio, partners=partners, x0=x0)
+    t_ex = excitation_temperature(system, res.populations)
+    reached = np.isfinite(t_ex)
+    tau = np.where(reached, res.tau, 0.0)
+    j_ex = np.where(reached, radiation_temperature(system.freq_hz, np.where(reached, t_ex, 1.0)),
+                    0.0)
+    j_bg = radiation_temperature(system.freq_hz, t_bg_k) if t_bg_k > 0 else 0.0
+    t_r = np.where(reached, (j_ex - j_bg) * -np.expm1(-tau), 0.0)
+    return res, t_ex, tau, t_r
+
+
 def _fmt(v, spec):
     return "-" if not np.isfinite(v) else format(v, spec)
 
 
-def format_zone_table(result, max_lines=None):
-    """Plain-text table of a :class:`ZoneResult`: one row per transition.
-
-    Columns: transition, frequency (GHz), E_u/k (K), T_ex (K), tau, T_R (K), integrated
-    intensity (K km/s). ``max_lines`` keeps the first rows only.
-    """
-    r = result
-    partners = ", ".join(f"{p} {d.to_value('cm-3'):.3g}" for p, d in r.partners.items())
-    head = [f"{r.species}: n(H2) = {r.n_h2.to_value('cm-3'):.4g} cm-3, T_kin = "
-            f"{r.t_kin.to_value('K'):.4g} K, N/dv = "
-            f"{r.column_per_width.to_value('cm-2 s / km'):.4g} cm-2 / (km/s), geometry "
-            f"{r.geometry}, T_bg = {r.t_bg.to_value('K'):.4g} K",
-            f"collision partners (cm-3): {partners}; {r.iterations} iterations; flux for "
-            f"FWHM {r.fwhm.to_value('km/s'):.4g} km/s",
-            f"{'line':>10} {'freq/GHz':>12} {'E_u/K':>9} {'T_ex/K':>9} {'tau':>10} "
-            f"{'T_R/K':>10} {'flux/K km/s':>12}"]
-    n = len(r.transitions) if max_lines is None else min(int(max_lines), len(r.transitions))
-    rows = []
-    for i in range(n):
-        rows.append(f"{r.transitions[i]:>10} {r.frequency[i].to_value('GHz'):12.6f} "
-                    f"{r.e_up[i].to_value('K'):9.2f} {_fmt(r.t_ex[i].to_value('K'), '9.3f'):>9} "
-                    f"{r.tau[i]:10.3e} {r.t_r[i].to_value('K'):10.4f} "
-                    f"{r.flux[i].to_value('K km/s'):12.4f}")
-    return "\n".join(head + rows)
+#: Forms of the critical density, see :func:`critical_density`.
+CRITICAL_DENSITY_FORMS = ("downward", "all-levels")
 
 
-def critical_density(species_or_moldata, t_kin, ortho_para_ratio=None, include_upward=False,
+def _critical_densities(system, t_k, ortho_para_ratio):
+    """Both forms of :func:`critical_density` for every line of ``system`` at ``t_k``:
+    (downward, all-levels), cm^-3 (inf where the upper level has no collision rates)."""
+    dens = partner_densities(system, [1.0], [t_k], ortho_para_ratio)
+    c = collision_matrix(system, [t_k], dens)[0]  # c[i, j]: rate i -> j per unit n(H2)
+    below = system.energy_k[None, :] < system.energy_k[:, None]  # below[i, j]: E_j < E_i
+    out_down = np.where(below, c, 0.0).sum(axis=1)
+    out_all = c.sum(axis=1) - np.diag(c)
+    a_out = np.zeros(system.n_levels)
+    np.add.at(a_out, system.upper, system.a_ul_s)  # all radiative decays of each level
+    up = system.upper
+    with np.errstate(divide="ignore"):
+        return a_out[up] / out_down[up], a_out[up] / out_all[up]
+
+
+def critical_density(species_or_moldata, t_kin, ortho_para_ratio=None, form="downward",
                      datafile=None):
-    """Critical density of every radiative transition, n_crit = A_ul / sum_j gamma_uj(T).
+    """Critical density of every radiative transition's upper level, per H2 molecule.
 
-    The sum runs over the downward collisional transitions out of the upper level (common
-    practice) or, with ``include_upward``, over every j != u with upward coefficients by
-    detailed balance (Shirley 2015, PASP 127, 299, eq. 4). gamma per H2 molecule: with pH2
-    and oH2 rates the ortho/para mix of :func:`partner_densities`.
+    ``form="downward"``: n_crit = sum_{l<u} A_ul / sum_{l<u} gamma_ul(T), the radiative
+    decay rate of the upper level u over its collisional de-excitation rate coefficient to
+    all lower levels (Shirley 2015, PASP 127, 299, eq. 4, from memory; the usual textbook
+    form). ``form="all-levels"``: n_crit = sum_{l<u} A_ul / sum_{j != u} gamma_uj(T), every
+    collisional rate out of u, upward ones by detailed balance included (Shirley 2015, eq. 5,
+    from memory), which is the smaller of the two. Where u has a single radiative decay (every
+    linear rotor) the numerator is that transition's A_ul. gamma is per H2 molecule: pH2 and
+    oH2 rates mixed with ``ortho_para_ratio`` (thermal by default), interpolated in T as the
+    solver does; other partners are not counted. Optical depth is not included: these are
+    the optically thin values.
 
     Returns
     -------
-    Quantity (cm^-3), one per radiative transition in the molecule's order.
+    Quantity (cm^-3), one per radiative transition in the molecule's order; inf where the
+    upper level has no collision rates.
     """
+    if form not in CRITICAL_DENSITY_FORMS:
+        raise ExcitationError(f"form {form!r} unknown; valid: {', '.join(CRITICAL_DENSITY_FORMS)}")
     mol = _resolve_molecule(species_or_moldata, datafile)
-    check_options("lvg", ortho_para_ratio)
+    check_options("expanding", ortho_para_ratio)
     t = _scalar(t_kin, "K", "t_kin", equivalencies=u.temperature())
     system = level_system(mol)
-    dens = partner_densities(system, [1.0], [t], ortho_para_ratio)
     check_temperature_range(system, t, t, {p for p in system.partners if p in H2_SPECIES})
-    c = collision_matrix(system, [t], dens)[0]  # c[i, j]: rate i -> j per unit n(H2)
-    out = []
-    for up in system.upper:
-        mask = np.ones(system.n_levels, dtype=bool) if include_upward else (
-            system.energy_k < system.energy_k[up])
-        mask[up] = False
-        out.append(c[up, mask].sum())
-    with np.errstate(divide="ignore"):
-        return system.a_ul_s / np.array(out) * u.cm**-3
+    down, every = _critical_densities(system, t, ortho_para_ratio)
+    return (down if form == "downward" else every) * u.cm**-3
+
+
+def format_excitation_table(result, max_lines=None, effective_density=None):
+    """Plain-text table of a :class:`OneZoneExcitation`, one row per transition.
+
+    The columns lead with the densities that say where each line is excited: the two
+    critical densities (``critical_density``, ``critical_density_all``) and, when given, the
+    effective excitation density (``effective_density``, Quantity per transition from
+    :func:`synth.excitation.line_ratios.effective_excitation_density`); then the level labels,
+    frequency, E_up/k, T_ex, line-centre optical depth, Rayleigh-Jeans brightness above the
+    background and integrated intensity, units in the header. ``max_lines`` keeps the first
+    rows only.
+    """
+    r = result
+    partners = ", ".join(f"{p} {d.to_value('cm-3'):.3g}" for p, d in r.partners.items())
+    head = [f"{r.species} one-zone excitation, escape probability of the {r.geometry} geometry",
+            f"  n(H2) {r.n_h2.to_value('cm-3'):.4g} cm-3 | T_kin {r.t_kin.to_value('K'):.4g} K"
+            f" | N/dv {r.column_per_width.to_value('cm-2 s / km'):.4g} cm-2 per km/s | "
+            f"background {r.t_bg.to_value('K'):.4g} K | line FWHM "
+            f"{r.fwhm.to_value('km/s'):.4g} km/s",
+            f"  partners (cm-3): {partners} | {r.iterations} Newton steps",
+            "  n_crit: A / downward collision rates of the upper level; n_crit,all: / every "
+            "collision rate out of it (Shirley 2015)"]
+    if effective_density is not None:
+        head.append("  n_eff: n(H2) at which W reaches 1 K km/s at this T_kin and N/dv "
+                    "(Shirley 2015)")
+    cols = [("upper", 6), ("lower", 6), ("n_crit [cm-3]", 14), ("n_crit,all [cm-3]", 18)]
+    if effective_density is not None:
+        cols.append(("n_eff [cm-3]", 13))
+    cols += [("freq [GHz]", 12), ("E_up/k [K]", 11), ("T_ex [K]", 9), ("tau_0", 10),
+             ("T_RJ [K]", 10), ("W [K km/s]", 11)]
+    head.append(" ".join(f"{name:>{w}}" for name, w in cols))
+    n = len(r.transitions) if max_lines is None else min(int(max_lines), len(r.transitions))
+    rows = []
+    for i in range(n):
+        cells = [f"{r.upper_levels[i]:>6}", f"{r.lower_levels[i]:>6}",
+                 f"{_fmt(r.critical_density[i].to_value('cm-3'), '14.3e'):>14}",
+                 f"{_fmt(r.critical_density_all[i].to_value('cm-3'), '18.3e'):>18}"]
+        if effective_density is not None:
+            cells.append(f"{_fmt(effective_density[i].to_value('cm-3'), '13.3e'):>13}")
+        cells += [f"{r.frequency[i].to_value('GHz'):12.6f}", f"{r.e_up[i].to_value('K'):11.2f}",
+                  f"{_fmt(r.t_ex[i].to_value('K'), '9.3f'):>9}", f"{r.tau[i]:10.3e}",
+                  f"{r.t_r[i].to_value('K'):10.4f}",
+                  f"{r.integrated_intensity[i].to_value('K km/s'):11.4f}"]
+        rows.append(" ".join(cells))
+    return "\n".join(head + rows)
 
 
 def _progress(progress):
@@ -306,7 +374,7 @@ def _check_snapshot_options(abundance, accuracy, t_bg_k, max_escape_length, n_ch
     return _scalar(max_escape_length, "cm", "max_escape_length")
 
 
-def lvg_excitation(snapshot, line, abundance, *, geometry="lvg", ortho_para_ratio=None,
+def lvg_excitation(snapshot, line, abundance, *, geometry="expanding", ortho_para_ratio=None,
                    t_bg_k=T_CMB_K, max_escape_length=None, accuracy=0.01, partners=None,
                    seed=0, progress=None, n_check=1000, max_table_nodes=60000):
     """Non-LTE (escape-probability) excitation of one line in every cell of a snapshot.

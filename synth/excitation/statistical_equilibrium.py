@@ -381,7 +381,7 @@ def _polish(system, c_gain, kcol, x, geometry, n_bg):
     return xs / xs.sum(axis=1, keepdims=True)
 
 
-def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="lvg", t_bg_k=2.725,
+def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="expanding", t_bg_k=2.725,
                  ortho_para_ratio=None, partners=None, tol=1e-6, max_iter=100, x0=None):
     """Solve statistical equilibrium for many zones at once (see module docstring).
 

@@ -250,24 +250,29 @@ class Line:
         return self.molecule.mass_amu
 
 
-def line_table(species=None, max_e_up_k=None):
+def line_table(species=None, max_e_up_k=None, max_lines=None):
     """Rows describing the lines of ``species`` (a name or names; default all built-in).
 
     Each row is a dict with keys species, transition, frequency_ghz, e_up_k, a_ul_s, g_up.
-    Lines with E_u/k above ``max_e_up_k`` (K, optional) are left out.
+    Lines with E_u/k above ``max_e_up_k`` (K, optional) are left out; ``max_lines`` keeps the
+    first that many lines of each species (in the molecule's order).
     """
     names = builtin_species() if species is None else (
         (species,) if isinstance(species, str) else tuple(species))
     rows = []
     for name in names:
         mol = molecule(name)
+        kept = 0
         for k, label in enumerate(mol.transition_labels):
+            if max_lines is not None and kept >= max_lines:
+                break
             e_up = float(mol.energy_k[mol.upper[k]])
             if max_e_up_k is not None and e_up > max_e_up_k:
                 continue
             rows.append({"species": canonical_species(name) or mol.name, "transition": label,
                          "frequency_ghz": float(mol.freq_hz[k]) / 1e9, "e_up_k": e_up,
                          "a_ul_s": float(mol.a_ul_s[k]), "g_up": float(mol.g[mol.upper[k]])})
+            kept += 1
     return rows
 
 
