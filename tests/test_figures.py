@@ -153,3 +153,23 @@ def test_compare_moment_maps_in_arcsec_with_the_common_beam():
         assert ax.get_xlabel() == "RA offset (arcsec)"
         (beam,) = [p for p in ax.patches if isinstance(p, Ellipse)]
         assert (beam.width, beam.height) == pytest.approx((5, 5))
+
+
+def test_moment0_noise_is_measured_per_pixel_from_line_free_channels():
+    """A corrected mosaic is noisier at its edges: with 40 line-free channels the moment-0
+    noise is the per-pixel rms over them x dv x sqrt(N_line) (independent channels), so a
+    half of the map with twice the noise gets twice the sigma (within 10 %, the scatter of an
+    rms over 40 Gaussian samples averaged over 32 rows)."""
+    rng = np.random.default_rng(4)
+    sig = np.ones((32, 64))
+    sig[:, 32:] = 2.0
+    data = rng.normal(size=(60, 32, 64)) * sig
+    line = np.zeros(60, bool)
+    line[25:35] = True
+    _, sigma = line_moment0(data, line, 0.5, noise=1.0)
+    expect = 0.5 * np.sqrt(10) * sig
+    assert np.median(sigma[:, :32] / expect[:, :32]) == pytest.approx(1.0, rel=0.1)
+    assert np.median(sigma[:, 32:] / expect[:, 32:]) == pytest.approx(1.0, rel=0.1)
+    few = np.zeros(60, bool)
+    few[3:] = True                      # 3 line-free channels: the cube's one rms
+    assert line_moment0(data, few, 0.5, noise=1.0)[1] == pytest.approx(0.5 * np.sqrt(57))

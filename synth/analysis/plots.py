@@ -10,6 +10,8 @@ drawn with a diverging colour map on limits symmetric about zero; spectra carry 
 1, 2 and 5 times powers of ten, so that even a short range shows more than one label.
 """
 
+import warnings
+
 import numpy as np
 from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
@@ -21,6 +23,8 @@ __all__ = ["moment_figure", "recovery_figure", "fidelity_figure", "structure_fig
 
 #: moment 1 of an observed cube is shown where moment 0 >= MOM1_NSIGMA x its noise
 MOM1_NSIGMA = 3.0
+#: line-free channels needed to measure the noise per pixel (else the cube's one rms)
+MIN_FREE_CHANNELS = 8
 #: a moment-0 map whose lowest pixel is below -BOWL_NSIGMA x its noise has negative bowls
 #: (drawn on a diverging colour map, limits symmetric about zero); noise alone rarely
 #: reaches 5 sigma over a map of 10^4 pixels
@@ -30,12 +34,23 @@ BOWL_NSIGMA = 5.0
 def line_moment0(data, line_channels, channel_kms, noise):
     """Integrated intensity over the line's channels with no signal mask, so that negative
     bowls stay visible, and its noise: rms per channel x channel width x sqrt(number of
-    channels) (independent channels). Blank (NaN) voxels count as 0; a pixel blank in every
-    channel stays NaN. Returns (map, sigma) in the data's unit x km/s."""
-    sel = np.asarray(data, dtype=float)[np.asarray(line_channels, dtype=bool)]
+    channels) (independent channels). The rms per channel is measured per pixel over the
+    line-free channels when there are at least MIN_FREE_CHANNELS of them (a primary-beam-
+    corrected mosaic is noisier at its edges), else ``noise`` everywhere. Blank (NaN) voxels
+    count as 0; a pixel blank in every channel stays NaN. Returns (map, sigma) in the data's
+    unit x km/s; sigma is a map or a number."""
+    data = np.asarray(data, dtype=float)
+    line = np.asarray(line_channels, dtype=bool)
+    sel = data[line]
     mom0 = np.nansum(sel, axis=0) * float(channel_kms)
     mom0[~np.isfinite(sel).any(axis=0)] = np.nan
-    return mom0, float(noise) * float(channel_kms) * np.sqrt(max(sel.shape[0], 1))
+    rms = float(noise)
+    if (~line).sum() >= MIN_FREE_CHANNELS:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)    # all-NaN (blank) pixels
+            per_pixel = np.nanstd(data[~line], axis=0)
+        rms = np.where(np.isfinite(per_pixel) & (per_pixel > 0), per_pixel, float(noise))
+    return mom0, rms * float(channel_kms) * np.sqrt(max(sel.shape[0], 1))
 
 
 def masked_moment1(mom1, mom0, sigma0, nsigma=MOM1_NSIGMA):
@@ -136,7 +151,7 @@ def moment_figure(survival, path=None, title="", observed=None):
     top = np.nanmax(mi.mom0.value) if np.isfinite(np.nanmax(mi.mom0.value)) else None
     low = np.nanmin(obs0) if np.isfinite(obs0).any() else 0.0
     unit0 = _unit_label(mi.mom0.unit)
-    if low < -BOWL_NSIGMA * sigma0:   # negative bowls: a diverging map, symmetric limits
+    if low < -BOWL_NSIGMA * float(np.nanmedian(sigma0)):   # negative bowls: a diverging map, symmetric limits
         peak = max(abs(low), top or 0.0, float(np.nanmax(obs0)))
         cmap0, lo0, hi0 = "RdBu_r", -peak, peak
     else:
