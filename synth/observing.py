@@ -270,7 +270,8 @@ def _write_observation(omap, base, chash, extra):
 def _obs_summary(obs):
     beam = obs.beam
     meta = {k.upper(): v for k, v in obs.meta.items()}
-    return {"unit": obs.unit.to_string(),
+    from .instrument.beam import unit_name
+    return {"unit": unit_name(obs.unit),
             "beam_major_arcsec": float(beam.major.to_value(u.arcsec)),
             "beam_minor_arcsec": float(beam.minor.to_value(u.arcsec)),
             "beam_pa_deg": float(beam.pa.to_value(u.deg)),

@@ -90,3 +90,16 @@ def gaussian_transfer(shape, pixscale_arcsec, beam, sign=-1.0):
     k_maj = kx * dx + ky * dy
     k_min = -kx * dy + ky * dx
     return np.exp(-2.0 * np.pi**2 * (s_maj**2 * k_maj**2 + s_min**2 * k_min**2))
+
+
+#: how units are written in text, tables and figures (one spelling each)
+_UNIT_TEXT = {"K km / s": "K km/s", "km / s": "km/s", "km2 / s2": "(km/s)^2",
+              "Jy / beam": "Jy/beam", "Jy km / (beam s)": "Jy/beam km/s", "beam / Jy": "beam/Jy"}
+
+
+def unit_text(unit):
+    """A unit as synth writes it in text: ``Jy/beam``, ``K km/s``, ``km/s`` (astropy writes
+    "Jy / beam"); FITS cards keep the FITS spelling."""
+    import astropy.units as u
+    text = u.Unit(unit).to_string()
+    return _UNIT_TEXT.get(text, text)

@@ -106,8 +106,8 @@ def _beam_ellipse(ax, beam, extent, colour):
 
 
 def _unit_label(unit):
-    text = unit.to_string()
-    return {"K km / s": "K km/s", "Jy km / (beam s)": "Jy/beam km/s"}.get(text, text)
+    from ..sky import unit_text
+    return unit_text(unit)
 
 
 def _extent(shape, pixel_arcsec):
@@ -260,7 +260,7 @@ def spectra_figure(ideal, observed, positions, path=None, title="Spectra: ideal 
         for cube, label in ((ideal, "ideal"), (observed, "observed")):
             v = cube.spectral_axis
             ax.step(v.value, cube.unmasked_data[:, y, x].value, where="mid",
-                    label=f"{label} ({cube.unit.to_string()})")
+                    label=f"{label} ({_unit_label(cube.unit)})")
         ax.set_title(f"pixel ({x}, {y})", fontsize=9)
         ax.set_ylabel(_brightness_label(observed.unit), fontsize=8)
         ax.legend(fontsize=7)
@@ -272,7 +272,7 @@ def spectra_figure(ideal, observed, positions, path=None, title="Spectra: ideal 
 
 
 def _brightness_label(unit):
-    text = unit.to_string()
+    text = _unit_label(unit)
     if text == "K":
         return "T_B (K)"
-    return f"intensity ({'Jy/beam' if text == 'Jy / beam' else text})"
+    return f"intensity ({text})"

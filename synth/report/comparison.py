@@ -72,9 +72,8 @@ def statistic_units(stats):
 
 
 def _unit_text(unit):
-    text = unit.to_string()
-    return {"K km / s": "K km/s", "km / s": "km/s", "km2 / s2": "(km/s)^2",
-            "Jy km / (beam s)": "Jy/beam km/s"}.get(text, text)
+    from ..sky import unit_text
+    return unit_text(unit)
 
 
 #: why a value can be missing ("-" in the table), per statistic
