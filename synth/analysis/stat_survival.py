@@ -23,7 +23,7 @@ import astropy.units as u
 
 from .statistics import STATISTICS, measure_statistics
 
-__all__ = ["observation_statistics", "statistics_survival", "survival_line",
+__all__ = ["observation_statistics", "measure_observed", "statistics_survival", "survival_line",
            "statistics_figure", "statistics_columns", "SHIFT_COLUMNS"]
 
 #: per-statistic columns added to a survival-matrix row (suffixes of ``<statistic>_``)
@@ -170,3 +170,12 @@ def statistics_figure(rows, title="Survival of statistics: |shift| / uncertainty
         fig.colorbar(image, cax=cax, label="|shift| / uncertainty (clipped at 5)")
     fig.suptitle(title, fontsize=11)
     return fig
+
+
+def measure_observed(observed, statistics=None, dendrogram=None):
+    """The statistics of one observed cube (or ObservedMap: its primary-beam-corrected map)
+    with its beam and recorded noise, as :func:`observation_statistics` measures it."""
+    from .matching import cube_beam
+    cube = observed.corrected if hasattr(observed, "layout") else observed
+    return measure_statistics(cube, beam=cube_beam(cube), noise=_noise_of(cube),
+                              statistics=statistics, dendrogram=dendrogram)
