@@ -28,7 +28,8 @@ from .moments import noise_rms, signal_mask, moments_from_arrays
 from .pdfs import lognormal_histogram_fit, pdf_width, powerlaw_tail_fit
 from .power import fit_power_slope, power_spectrum
 from .stats import default_scale_range
-from .structure import DENDRO_DEFAULTS, dendrogram_structures, size_linewidth_slope
+from .structure import (DENDRO_DEFAULTS, block_sum, dendrogram_structures,
+                        size_linewidth_slope, spectral_sums)
 
 __all__ = ["Stat", "STATISTICS", "TRUE_STATISTICS", "GROUPS", "measure_statistics",
            "snapshot_statistics", "MEAN_MOLECULAR_WEIGHT"]
@@ -171,8 +172,9 @@ def measure_statistics(cube, *, beam=None, noise=None, scale_range=None, dendrog
         max(3 pixels, 2 beam FWHM) to a third of the map).
     dendrogram : dict, optional
         ``min_value_sigma``, ``min_delta_sigma`` (moment-0 noise units) and
-        ``min_npix_beams`` (beam areas); defaults :data:`DENDRO_DEFAULTS`. Without noise,
-        the noise unit is 1 % of the moment-0 peak.
+        ``min_npix_beams`` (beam areas), ``fwhm_pixels`` (the map is block-averaged to about
+        that many pixels per beam FWHM first; 0 = not); defaults :data:`DENDRO_DEFAULTS`.
+        Without noise, the noise unit is 1 % of the moment-0 peak.
     statistics : iterable of str, optional
         Groups (:data:`GROUPS`) or names to measure; default all.
     info : dict, optional
@@ -280,15 +282,24 @@ def measure_statistics(cube, *, beam=None, noise=None, scale_range=None, dendrog
 
     def dendrogram_group():
         unit = sigma_w if sigma_w > 0 else 0.01 * float(np.nanmax(mom0_b))
+        b = 1
+        if dendro["fwhm_pixels"] > 0 and fwhm > 0:
+            b = max(int(np.floor(fwhm / pix / dendro["fwhm_pixels"])), 1)
+        # block sums: moment 0 per block is the mean, so thresholds keep their meaning;
+        # a block with a blank pixel is blank
+        img = block_sum(mom0_b, b) / (b * b)
+        sums = [block_sum(x, b) for x in spectral_sums(data, signal(), v_kms)]
+        # the noise of a block mean falls by the number of independent beams in it (<= 1
+        # beam for b <= FWHM / 2): thresholds stay in units of the per-pixel moment-0 noise
         settings = dict(min_value=dendro["min_value_sigma"] * unit,
                         min_delta=dendro["min_delta_sigma"] * unit,
-                        min_npix=max(int(np.ceil(dendro["min_npix_beams"] * ppb)), MIN_NPIX))
-        info["dendrogram"] = settings
-        st = dendrogram_structures(mom0_b, data=data, mask=signal(), v_kms=v_kms,
-                                   pixel_area=pix * pix, **settings)
+                        min_npix=max(int(np.ceil(dendro["min_npix_beams"] * ppb / (b * b))),
+                                     MIN_NPIX))
+        info["dendrogram"] = dict(settings, block=b)
+        st = dendrogram_structures(img, sums=sums, pixel_area=(pix * b) ** 2, **settings)
         t = st.table
         info["structures"] = t
-        r_arcsec = np.asarray(t["radius_pix"], dtype=float) * pix
+        r_arcsec = np.asarray(t["radius_pix"], dtype=float) * pix * b
         sv = np.asarray(t["sigma_v_kms"], dtype=float)
         beam_sigma_r = fwhm / np.sqrt(8 * np.log(2)) * 1.91  # R of a beam-sized structure
         s, e, _ = size_linewidth_slope(r_arcsec, sv, min_radius=beam_sigma_r)
@@ -308,7 +319,7 @@ def measure_statistics(cube, *, beam=None, noise=None, scale_range=None, dendrog
         out["dendro_leaves"] = Stat(float(st.n_leaves), np.sqrt(st.n_leaves), "")
         out["dendro_structures"] = Stat(float(n), np.sqrt(n), "")
         out["size_linewidth_slope"] = Stat(s, e, "")
-        out["dendro_radius_median"] = Stat(*med("radius_pix", pix), "arcsec")
+        out["dendro_radius_median"] = Stat(*med("radius_pix", pix * b), "arcsec")
         out["dendro_linewidth_median"] = Stat(*med("sigma_v_kms"), "km/s")
         out["dendro_aspect_median"] = Stat(*med("aspect"), "")
         out["dendro_luminosity_median"] = Stat(*med("luminosity"), "K km/s arcsec2")

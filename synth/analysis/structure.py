@@ -9,9 +9,12 @@ the moment-0 map, with thresholds that scale with the data:
 - ``min_npix`` in beam areas (pi FWHM_maj FWHM_min / (4 ln 2) over the pixel area).
 
 Why the map and not the PPV cube: astrodendro visits every voxel above ``min_value`` in
-Python order; on a 512^2 x 128 cube that is ~10^7 voxels and minutes per realisation, while
-the map (~10^5 pixels) takes seconds. The velocity information enters through the spectra of
-each structure's footprint.
+Python order (~20-70 microseconds each); on a 512^2 x 128 cube that is ~10^7 voxels and
+minutes per realisation, while the map takes seconds. The velocity information enters
+through the spectra of each structure's footprint. For the same reason the map is first
+block-summed to about ``fwhm_pixels`` (default 2, Nyquist sampling of the beam) pixels per
+beam FWHM: the cost then scales with the number of beams, not of pixels, and no structure
+smaller than the beam is lost.
 
 Per structure, with the "bijection" paradigm of Rosolowsky et al. (2008, sect. 2.4; the
 emission of a structure is everything inside its isocontour, no extrapolation):
@@ -36,13 +39,16 @@ from astropy.table import Table
 
 from .._optional import require
 
-__all__ = ["StructureSet", "dendrogram_structures", "size_linewidth_slope", "ETA_RADIUS",
-           "DENDRO_DEFAULTS"]
+__all__ = ["StructureSet", "dendrogram_structures", "size_linewidth_slope", "spectral_sums",
+           "block_sum", "ETA_RADIUS", "DENDRO_DEFAULTS"]
 
 #: R = ETA_RADIUS * sigma_r (Solomon et al. 1987; Rosolowsky et al. 2008, eq. 5)
 ETA_RADIUS = 1.91
 #: default thresholds: min_value and min_delta in noise units, min_npix in beam areas
-DENDRO_DEFAULTS = {"min_value_sigma": 3.0, "min_delta_sigma": 2.0, "min_npix_beams": 1.0}
+#: and fwhm_pixels: the map is block-summed to about this many pixels per beam FWHM first
+#: (0: as it is)
+DENDRO_DEFAULTS = {"min_value_sigma": 3.0, "min_delta_sigma": 2.0, "min_npix_beams": 1.0,
+                   "fwhm_pixels": 2.0}
 
 
 @dataclass(frozen=True, eq=False)
@@ -59,13 +65,30 @@ class StructureSet:
         return len(self.table)
 
 
-def dendrogram_structures(mom0, *, min_value, min_delta, min_npix, data=None, mask=None,
-                          v_kms=None, pixel_area=1.0):
+def spectral_sums(data, mask, v_kms):
+    """Per-pixel sums over the masked channels: (sum T, sum T v, sum T v^2), each (y, x);
+    what :func:`dendrogram_structures` needs for the linewidths."""
+    w = np.where(mask, data, 0.0)
+    v = np.asarray(v_kms, dtype=np.float64)[:, None, None]
+    s0 = w.sum(axis=0)
+    wv = w * v
+    return s0, wv.sum(axis=0), (wv * v).sum(axis=0)
+
+
+def block_sum(image, b):
+    """Sum of ``b`` x ``b`` blocks of a 2-D array (edges that do not fill a block dropped)."""
+    if b <= 1:
+        return image
+    ny, nx = (image.shape[0] // b) * b, (image.shape[1] // b) * b
+    return image[:ny, :nx].reshape(ny // b, b, nx // b, b).sum(axis=(1, 3))
+
+
+def dendrogram_structures(mom0, *, min_value, min_delta, min_npix, sums=None, pixel_area=1.0):
     """Dendrogram of ``mom0`` (2-D) and the properties of every structure.
 
-    ``data`` (v, y, x), ``mask`` (bool, same shape) and ``v_kms`` (channel velocities) give
-    the linewidths; without them sigma_v is NaN. ``pixel_area`` multiplies luminosity and
-    inertia (e.g. arcsec^2 per pixel).
+    ``sums`` = :func:`spectral_sums` of the cube gives the linewidths; without it sigma_v is
+    NaN. ``pixel_area`` multiplies luminosity and inertia (e.g. arcsec^2 per pixel); sizes
+    are in pixels of ``mom0``.
     """
     astrodendro = require("astrodendro")
     img = np.asarray(mom0, dtype=np.float64)
@@ -88,10 +111,8 @@ def dendrogram_structures(mom0, *, min_value, min_delta, min_npix, data=None, ma
     yy, xx = np.nonzero(sel)
     w = img[sel]
     cols = [np.ones_like(w), w, w * xx, w * yy, w * xx * xx, w * yy * yy, w * xx * yy]
-    if data is not None:
-        w3 = np.where(mask if mask is not None else data > 0, data, 0.0)[:, sel]
-        v = np.asarray(v_kms, dtype=np.float64)[:, None]
-        cols += [w3.sum(axis=0), (w3 * v).sum(axis=0), (w3 * v * v).sum(axis=0)]
+    if sums is not None:
+        cols += [np.asarray(c, dtype=np.float64)[sel] for c in sums]
     own = np.array([np.bincount(lab, weights=c, minlength=nlab) for c in cols])
     peak = np.full(nlab, -np.inf)
     np.maximum.at(peak, lab, w)
@@ -118,7 +139,7 @@ def dendrogram_structures(mom0, *, min_value, min_delta, min_npix, data=None, ma
         sig_r = np.sqrt(sig_maj * sig_min)
         lum = float(sw * pixel_area)
         sv = np.nan
-        if data is not None and a[7] > 0:
+        if sums is not None and a[7] > 0:
             vm = a[8] / a[7]
             sv = float(np.sqrt(max(a[9] / a[7] - vm * vm, 0.0)))
         rows.append((s.idx, s.is_leaf, float(pk), int(n), lum, sig_maj, sig_min, sig_r,
