@@ -70,6 +70,17 @@ def test_delta_variance_tolerates_blanks_and_edges():
     assert fit_delta_slope(lags, s2, (4, 32))[0] == pytest.approx(-2.0, abs=0.1)
 
 
+def test_delta_variance_of_a_flat_map_with_holes_is_zero():
+    """Edges and blanks add no structure (Ossenkopf et al. 2008, sect. 2.2): a constant map
+    with a blanked hole and irregular edges has Delta-variance 0 at every lag (to round-off,
+    1e-20 of the square of the level), where an unweighted filter sees the edges."""
+    img = np.full((96, 128), 5.0)
+    img[30:50, 40:70] = np.nan
+    img[:10, :20] = np.nan
+    _, s2 = delta_variance(img, np.geomspace(2, 40, 8))
+    assert np.all(s2 < 25.0 * 1e-20)
+
+
 def test_lognormal_field_pdf_width():
     """exp(0.6 g), g a unit-variance Gaussian random field: ln(W/<W>) has standard deviation
     0.6 (a log-normal of known sigma_ln); width and log-normal fit within 5 %."""
