@@ -202,6 +202,10 @@ def measure_statistics(cube, *, beam=None, noise=None, scale_range=None, dendrog
                               f"{tuple(DENDRO_DEFAULTS)}")
     if any(not (np.isfinite(v) and v >= 0) for v in dendro.values()):
         raise InstrumentError(f"dendrogram: {dendro}; every setting must be a number >= 0")
+    if scale_range is not None and not (len(scale_range) == 2
+                                        and 0 < scale_range[0] < scale_range[1]):
+        raise InstrumentError(f"scale_range: {scale_range}; give (smallest, largest) in "
+                              "arcsec with 0 < smallest < largest")
     timings = {} if timings is None else timings
     info = {} if info is None else info
 
@@ -218,9 +222,6 @@ def measure_statistics(cube, *, beam=None, noise=None, scale_range=None, dendrog
     mom0 = data.sum(axis=0) * dv
     mom0_b = np.where(blank, np.nan, mom0)
     rng = scale_range or default_scale_range(mom0.shape, pix, beam)
-    if scale_range is not None and not (0 < scale_range[0] < scale_range[1]):
-        raise InstrumentError(f"scale_range: {scale_range}; give (smallest, largest) in "
-                              "arcsec with 0 < smallest < largest")
     info.update(noise_k=sigma, mom0_noise_k_kms=sigma_w, pixel_arcsec=pix,
                 beam_pixels=ppb, scale_range_arcsec=None if rng is None else tuple(rng))
     timings["moments"] = timings.get("moments", 0.0) + time.perf_counter() - t0
