@@ -17,6 +17,7 @@ OPTIONAL = {
     "distributed": (None, "running on a dask.distributed cluster"),
     "reproject": (None, "regridding one cube onto another in `synth compare`"),
     "zarr": ("zarr", "reading snapshots stored as zarr"),
+    "astrodendro": (None, "dendrograms in the statistics layer"),
 }
 
 

@@ -173,6 +173,8 @@ ANALYSIS = {
     "spectra_positions": (list, None, "spectra pixels [[x, y], ...] (default: centre, brightest)"),
     "noise_realisations": (int, 1, "survival metrics over this many seeded noise realisations "
                            "(mean and _std columns); 1 = the one observation"),
+    "statistics": (bool, False, "survival of statistics: power and Delta-variance slopes, "
+                   "PDFs, centroids, dendrograms, ideal vs observed (docs/analysis.md)"),
 }
 SCHEMA = {"cloud": CLOUD, "sky": SKY, "channels": CHANNELS, "tracer": TRACER,
           "output": OUTPUT, "setup": SETUP, "analysis": ANALYSIS}

@@ -11,8 +11,9 @@
 4. channels: the cube with the narrower channels is averaged onto the other's channels
    inside their common velocity range (overlap average).
 
-Then :func:`synth.analysis.stats.structure_statistics` runs on both with the same scale
-range.
+Then :func:`synth.analysis.stats.structure_statistics` and the statistics layer
+(:func:`synth.analysis.statistics.measure_statistics`) run on both with the same scale range,
+the common beam and one noise level (the larger of the two), so thresholds match.
 """
 
 from dataclasses import dataclass
@@ -42,6 +43,7 @@ class Comparison:
     matched: dict           # label -> the matched SpectralCube (K, common beam, common grid)
     beam: object            # the common beam (or None)
     steps: tuple            # what compare did, in words
+    measured: dict = None   # label -> {name: Stat} of the statistics layer
 
     def table(self):
         """Side-by-side table: statistic, value for each cube, ratio second / first."""
@@ -49,6 +51,11 @@ class Comparison:
         keys = [k for k in a if k in b]
         va = np.array([a[k] for k in keys], dtype=float)
         vb = np.array([b[k] for k in keys], dtype=float)
+        if self.measured:
+            ma, mb = (self.measured[n] for n in self.names)
+            keys += [k for k in ma if k in mb]
+            va = np.concatenate([va, [ma[k].value for k in ma if k in mb]])
+            vb = np.concatenate([vb, [mb[k].value for k in ma if k in mb]])
         with np.errstate(divide="ignore", invalid="ignore"):
             ratio = vb / va
         return Table({"statistic": keys, self.names[0]: va, self.names[1]: vb,
@@ -167,7 +174,12 @@ def compare(a, b, *, names=("a", "b"), scale_range=None, noise=(None, None)):
     stats = {n: structure_statistics(cubes[n], scale_range=rng, noise=nz,
                                      automatic_range=scale_range is None)
              for n, nz in zip(names, noise)}
-    return Comparison(names=names, stats=stats, matched=cubes, beam=beam, steps=tuple(steps))
+    from .statistics import measure_statistics
+    common = max(stats[n].moments.noise.to_value(u.K) for n in names)
+    measured = {n: measure_statistics(cubes[n], beam=beam, noise=common * u.K,
+                                      scale_range=rng) for n in names}
+    return Comparison(names=names, stats=stats, matched=cubes, beam=beam, steps=tuple(steps),
+                      measured=measured)
 
 
 def _same_grid(a, b):

@@ -36,6 +36,7 @@ class Realisations:
     scale_arcsec: np.ndarray
     recovered_power_mean: np.ndarray
     recovered_power_std: np.ndarray
+    measured: tuple = ()     # what ``measure`` returned for each realisation, in seed order
 
     def as_row(self):
         """``<metric>`` (the mean) and ``<metric>_std`` for a survival row."""
@@ -52,11 +53,14 @@ def _check_n(n):
     return int(n)
 
 
-def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, **observe_kw):
+def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, measure=None,
+                        **observe_kw):
     """Observe ``cube`` with ``instrument`` ``n`` times (seeds ``seed`` ... ``seed + n - 1``)
     and summarise the survival metrics (see the module docstring).
 
-    ``observe_kw`` are :func:`synth.observe` options (the noise must be on)."""
+    ``measure``, a callable, is also applied to each ObservedMap (e.g. the statistics layer);
+    its results are kept in ``measured``. ``observe_kw`` are :func:`synth.observe` options
+    (the noise must be on)."""
     from ..instrument.observe import observe
     from .survival import assess_map
     n = _check_n(n)
@@ -64,9 +68,11 @@ def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, **o
         raise InstrumentError("realisations: noise = False gives n identical observations; "
                               "realisations need the noise on")
     observe_kw = {k: v for k, v in observe_kw.items() if k not in ("seed", "with_maps")}
-    rows, curves, scales = [], [], None
+    rows, curves, scales, measured = [], [], None, []
     for i in range(n):
         omap = observe(cube, instrument, seed=int(seed) + i, with_maps=True, **observe_kw)
+        if measure is not None:
+            measured.append(measure(omap))
         m = assess_map(omap, emission_floor)
         rows.append(m.as_row())
         t = m.recovery
@@ -81,4 +87,5 @@ def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, **o
     curves = np.array(curves)
     return Realisations(n=n, mean=mean, std=std, scale_arcsec=scales,
                         recovered_power_mean=curves.mean(axis=0),
-                        recovered_power_std=curves.std(axis=0, ddof=1))
+                        recovered_power_std=curves.std(axis=0, ddof=1),
+                        measured=tuple(measured))

@@ -50,7 +50,10 @@ def comparison_json(comparison):
                 "minor_arcsec": float(beam.minor.to_value("arcsec")),
                 "pa_deg": float(beam.pa.to_value("deg"))},
             "stats": {n: {k: _num(v) for k, v in comparison.stats[n].as_dict().items()}
-                      for n in comparison.names}}
+                      for n in comparison.names},
+            "statistics": {n: {k: {"value": _num(v.value), "error": _num(v.error),
+                                   "unit": v.unit} for k, v in m.items()}
+                           for n, m in (comparison.measured or {}).items()}}
 
 
 def statistic_units(stats):
@@ -82,6 +85,8 @@ _MISSING = {
              "max(3 pixels, 2 beams) to a third of the map; docs/analysis.md)",
     "moment": "fewer than 4 finite pixels in that moment map",
     "ratio": "ratio undefined: the first cube's value is 0 or missing",
+    "layer": "not measurable on this map (too few pixels above the threshold, structures or "
+             "scales for the fit; docs/analysis.md)",
 }
 
 
@@ -91,6 +96,7 @@ def comparison_text(comparison):
     a, b = comparison.names
     t = comparison.table()
     units = statistic_units(comparison.stats[a])
+    units.update({k: v.unit or "none" for k, v in (comparison.measured or {}).get(a, {}).items()})
     rows = [(str(r["statistic"]), _g(r[a]), _g(r[b]), _g(r["ratio"]),
              units.get(str(r["statistic"]), "")) for r in t]
     head = ("statistic", a, b, f"{b} / {a}", "unit")
@@ -102,7 +108,8 @@ def comparison_text(comparison):
     notes = []
     for stat, va, vb, ratio, _ in rows:
         if "-" in (va, vb):
-            why = _MISSING["slope" if stat.startswith("slope") else "moment"]
+            why = _MISSING["slope" if stat.startswith("slope") else
+                           "moment" if stat.startswith("mom") else "layer"]
         elif ratio == "-":
             why = _MISSING["ratio"]
         else:

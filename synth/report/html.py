@@ -223,6 +223,41 @@ def _survival(page, s):
     page.add(_table([h for _, h, _ in SURVIVAL_COLUMNS], body, left=2))
 
 
+def _statistics(page, s):
+    """Survival of statistics ([analysis] statistics = true; synth/report/run_statistics.py)."""
+    st = (s.get("analysis") or {}).get("statistics")
+    if not st:
+        return
+    page.add('<h2 id="statistics">Survival of statistics</h2>')
+    page.add("<p>Each statistic measured alike on the ideal cube (the model on the observed "
+             "grid, at its own resolution) and on the observed cube, with the observed beam "
+             "and noise setting the fitting ranges and thresholds. observed: mean over the "
+             "noise realisations, uncertainty = their spread and the fit error in "
+             "quadrature; shift in sigma = (observed - ideal) / (both uncertainties in "
+             "quadrature). statistics.csv holds these rows, statistics.txt the lines. "
+             "Definitions: docs/analysis.md.</p>")
+    page.add(page.img("statistics.png", "|shift| / uncertainty per statistic, tracer x setup"))
+    body = [[r["tracer"], r["setup"], r["statistic"],
+             _fmt(r["ideal"]) + " ± " + _fmt(r["ideal_err"], "{:.2g}"),
+             _fmt(r["observed"]) + " ± " + _fmt(r["observed_err"], "{:.2g}"),
+             _fmt(r["shift_sigma"], "{:+.1f}"), _fmt(r["realisations"], "{}")]
+            for r in st.get("rows", [])]
+    page.add(_table(["tracer", "setup", "statistic", "ideal", "observed", "shift (σ)", "N"],
+                    body, left=3))
+    page.add("<ul>" + "".join(f"<li>{_e(r['line'])}</li>" for r in st.get("rows", [])
+                              if abs(r.get("shift_sigma") or 0) >= 1) + "</ul>")
+    truth = st.get("truth") or {}
+    if truth:
+        from ..analysis.statistics import TRUE_STATISTICS
+        page.add("<p>True values from the snapshot along the line of sight (what the tracers "
+                 "see of them):</p>")
+        page.add(_table(["quantity", "value", "unit", "meaning"],
+                        [[k, _fmt(v), TRUE_STATISTICS[k][0], TRUE_STATISTICS[k][1]]
+                         for k, v in truth.items()], left=1))
+    elif st.get("truth_note"):
+        page.add(f'<p class="note">{_e(st["truth_note"])}</p>')
+
+
 def _planning(page, s):
     an = s.get("analysis") or {}
     rows = an.get("plan", [])
@@ -288,7 +323,8 @@ def report_html(run_dir, summary):
                  ("job", "job"), ("config", "configuration"), ("tracers", "tracers"),
                  ("instruments", "maps and uv coverage"), ("survival", "survival matrix"),
                  ("planning", "planning"), ("provenance", "provenance"))) + "</p>")
-    for section in (_job, _config, _tracers, _instruments, _survival, _planning, _provenance):
+    for section in (_job, _config, _tracers, _instruments, _survival, _statistics, _planning,
+                    _provenance):
         section(page, summary)
     _others(page)
     page.add("</body></html>\n")

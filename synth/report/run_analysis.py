@@ -26,7 +26,7 @@ __all__ = ["run_analysis", "analysis_settings", "assess_observation", "plan_conf
 
 #: [analysis] defaults when a config dict has no such section
 _DEFAULTS = {"target_snr": 5.0, "percentile": 50.0, "emission_floor": 0.01, "time_h": None,
-             "spectra_positions": None, "noise_realisations": 1}
+             "spectra_positions": None, "noise_realisations": 1, "statistics": False}
 
 
 def analysis_settings(conf):
@@ -247,16 +247,20 @@ def _spreads(conf, ideal, observed, settings):
             dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
             if dish:
                 kw["dish_options"] = _dish_options(setups[dish[0]])
+        if settings.get("statistics"):
+            from ..analysis.stat_survival import measure_observed
+            kw["measure"] = measure_observed
         out[(tname, sname)] = assess_realisations(
             ideal[tname], inst, n, seed=int(st["seed"]) + 1000,
             emission_floor=float(settings["emission_floor"]), **kw)
     return out
 
 
-def _survival_files(results, tmp, spreads=None):
+def _survival_files(results, tmp, spreads=None, columns=None):
     from ..analysis.survival import matrix_csv, matrix_json_rows, survival_matrix
     rows = survival_matrix(results)
     for row in rows:
+        row.update((columns or {}).get((row["tracer"], row["setup"]), {}))
         r = (spreads or {}).get((row["tracer"], row["setup"]))
         if r is not None:
             row.update({f"{k}_mean": v for k, v in r.mean.items()})
@@ -322,7 +326,13 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
         out["tracers"][tname] = entry
     out["uv"] = {s: f"uv_{s}.png" for s, st in setups.items()
                  if st["kind"] == "array" and os.path.exists(run_path(tmp, f"uv_{s}.png"))}
-    out["survival"] = _survival_files(results, tmp, spreads) if results else []
+    columns = None
+    if results and settings.get("statistics"):
+        from .run_statistics import run_statistics
+        out["statistics"] = run_statistics(conf, ideal, observed, spreads, tmp, figures)
+        columns = out["statistics"].pop("columns")
+        out["files"] += out["statistics"]["files"]
+    out["survival"] = _survival_files(results, tmp, spreads, columns) if results else []
     out["files"] += ["survival.csv", "survival.json"] if results else []
     _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)
     out["plan"] = _write_plan(rows, tmp) if setups else []
