@@ -12,7 +12,7 @@ from synth.analysis.stat_survival import (SHIFT_COLUMNS, observation_statistics,
                                           statistics_columns, statistics_figure,
                                           statistics_survival)
 from synth.analysis.statistics import STATISTICS, Stat, measure_statistics
-from synth.instrument.single_dish import SingleDish
+from synth.instrument.single_dish import Dish
 
 NU0 = 230.538 * u.GHz
 
@@ -33,7 +33,7 @@ def test_noise_spread_shrinks_as_one_over_sqrt_time():
     noise patterns differ only by the radiometer-equation factor sigma ~ t^-1/2): the spread
     of the moment-0 PDF width and of the power slope over the realisations halves, within 20 %
     (issue 15; the radiometer equation, e.g. Wilson, Rohlfs & Hüttemeister 2013, eq. 4.41)."""
-    cube, dish = _sky(), SingleDish(diameter=40 * u.m, tsys=150 * u.K)
+    cube, dish = _sky(), Dish(diameter=40 * u.m, tsys=150 * u.K)
     kw = dict(seed=100, guard_band=0 * u.arcsec)
 
     def measure(omap):
@@ -121,7 +121,7 @@ def test_run_writes_statistics(tmp_path):
     import csv
     import json
     from synth.pipeline import run_config
-    conf = {"cloud": {"source": "demo", "size": 32, "box_pc": 1.0},
+    conf = {"cloud": {"source": "demo", "cells": 32, "box_pc": 1.0},
             "sky": {"distance_pc": 1000.0, "dec_deg": -20.0},
             "channels": {"width_kms": 0.5, "velocity_min_kms": -4.0, "velocity_max_kms": 4.0},
             "tracer": [{"species": "CO", "transition": "1-0", "abundance": 1e-4}],
