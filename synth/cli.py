@@ -145,6 +145,10 @@ def _add_plan_compare(sub):
     p.add_argument("--figures", default=None, metavar="DIR",
                    help="write layout_<setup>.png into DIR (a new or existing folder): each "
                         "setup's pointings over the first tracer's moment-0 map")
+    p.add_argument("--from-run", default=None, metavar="DIR",
+                   help="also print the observing time each statistic needs to reach its "
+                        "[analysis] statistic_targets, from a finished run's noise "
+                        "realisations (DIR/statistics.csv)")
     p = sub.add_parser("compare", help="compare two cubes with the same statistics",
                        description="Match two FITS cubes (unit, beam, grid, channels) and "
                                    "measure both the same way (see docs/report.md).")
@@ -304,6 +308,7 @@ def _cmd_plan(args):
     preflight(conf, observing=False)
     if args.figures is not None:
         _check_figure_dir(args.figures)
+    stat_rows = _run_statistics_rows(args.from_run) if args.from_run is not None else None
     ideal = ideal_cubes(conf)
     plans, rows, skipped = plan_config(conf, ideal, settings)
     print(f"target: S/N {settings['target_snr']:g} per channel on the "
@@ -325,7 +330,37 @@ def _cmd_plan(args):
             print(f"wrote {path}")
     for sk in skipped:
         print(f"not planned: {sk['setup']} / {sk['tracer']}: {sk['reason']}")
+    if stat_rows is not None:
+        from .analysis.stat_survival import planning_lines
+        lines = planning_lines(stat_rows)
+        print(f"time for each statistic to reach its target ({args.from_run}):")
+        print("\n".join(f"  {line}" for line in lines) if lines else
+              "  none: the run had no [analysis] statistic_targets")
     return 0
+
+
+def _run_statistics_rows(folder):
+    """The rows of a run's statistics.csv, numbers as floats (blank = NaN, and a blank
+    time_for_target_s with a target = not reachable); refused in one line when absent."""
+    import csv
+    path = os.path.join(folder, "statistics.csv")
+    if not os.path.isfile(path):
+        raise SynthError(f"--from-run {folder}: no statistics.csv there (a run with "
+                         "[analysis] statistics = true writes it)")
+    rows = []
+    with open(path, newline="") as fh:
+        for r in csv.DictReader(fh):
+            out = {}
+            for k, v in r.items():
+                try:
+                    out[k] = float(v) if v != "" else None
+                except ValueError:
+                    out[k] = v
+            if out.get("target") is not None and out.get("time_for_target_s") is None:
+                out["time_for_target_s"] = float("inf")
+            out["realisations"] = int(out.get("realisations") or 0)
+            rows.append(out)
+    return rows
 
 
 def _check_figure_dir(path):

@@ -171,6 +171,10 @@ ANALYSIS = {
     "emission_floor": (_NUM, 0.01, "voxels above this fraction of the peak count as emitting"),
     "time_h": (_NUM, None, "planning: hours for the noise column (default: each setup's)"),
     "spectra_positions": (list, None, "spectra pixels [[x, y], ...] (default: centre, brightest)"),
+    "statistic_targets": (dict, None, "planning: {statistic = uncertainty}, e.g. {power_slope "
+                          "= 0.05}: the observing time for each to be measured that well, "
+                          "from the noise realisations (needs statistics = true and "
+                          "noise_realisations >= 2)"),
     "noise_realisations": (int, 1, "survival metrics over this many seeded noise realisations "
                            "(mean and _std columns); 1 = the one observation"),
     "statistics": (bool, False, "survival of statistics: power and Delta-variance slopes, "
@@ -464,6 +468,21 @@ def _check_analysis(an):
     if an["noise_realisations"] < 1:
         raise ConfigError(f"[analysis].noise_realisations must be >= 1 (1 = none repeated), "
                           f"got {an['noise_realisations']}")
+    targets = an["statistic_targets"]
+    if targets is not None:
+        from .analysis.statistics import STATISTICS
+        for name, value in targets.items():
+            if name not in STATISTICS:
+                raise ConfigError(f"[analysis].statistic_targets has '{name}'; valid: "
+                                  f"{', '.join(STATISTICS)}")
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
+                raise ConfigError(f"[analysis].statistic_targets.{name} = {value!r}; valid: "
+                                  "an uncertainty > 0 in the statistic's unit")
+        if not an["statistics"] or an["noise_realisations"] < 2:
+            raise ConfigError("[analysis].statistic_targets needs statistics = true and "
+                              f"noise_realisations >= 2 (got statistics = "
+                              f"{str(an['statistics']).lower()}, noise_realisations = "
+                              f"{an['noise_realisations']})")
     for pos in an["spectra_positions"] or []:
         if not (isinstance(pos, list) and len(pos) == 2
                 and all(isinstance(v, int) and not isinstance(v, bool) for v in pos)):

@@ -24,7 +24,8 @@ import astropy.units as u
 from .statistics import STATISTICS, measure_statistics
 
 __all__ = ["observation_statistics", "measure_observed", "statistics_survival", "survival_line",
-           "statistics_figure", "statistics_columns", "SHIFT_COLUMNS"]
+           "statistics_figure", "statistics_columns", "SHIFT_COLUMNS", "time_for_uncertainty",
+           "planning_lines"]
 
 #: per-statistic columns added to a survival-matrix row (suffixes of ``<statistic>_``)
 SHIFT_COLUMNS = ("ideal", "ideal_err", "observed", "observed_err", "shift", "shift_sigma")
@@ -179,3 +180,53 @@ def measure_observed(observed, statistics=None, dendrogram=None):
     cube = observed.corrected if hasattr(observed, "layout") else observed
     return measure_statistics(cube, beam=cube_beam(cube), noise=_noise_of(cube),
                               statistics=statistics, dendrogram=dendrogram)
+
+
+def time_for_uncertainty(row, target, time_s):
+    """Observing time (s) for a statistic to be measured to ``target`` (its unit), from one
+    survival row measured with ``time_s`` of observing and N >= 2 noise realisations.
+
+    The observed uncertainty has two parts (module docstring): the spread over noise
+    realisations s, which scales as 1/sqrt(time) (radiometer noise; tested for the power
+    slope and the PDF width), and the fit uncertainty f, the sampling variance of one sky,
+    which observing longer does not shrink. So
+
+        t = time_s * s^2 / (target^2 - f^2),
+
+    inf when target <= f (the sky itself limits the statistic), NaN without a spread (one
+    realisation) or a time. An estimate: the observatory's own official tools and policies
+    decide a proposal."""
+    s, f = float(row.get("observed_spread", np.nan)), float(row.get("observed_fit_err", 0.0))
+    target, time_s = float(target), float(time_s) if time_s is not None else np.nan
+    if not (target > 0 and np.isfinite(time_s) and time_s > 0 and row.get("realisations", 0) >= 2
+            and np.isfinite(s)):
+        return np.nan
+    f = f if np.isfinite(f) else 0.0
+    if target <= f:
+        return np.inf
+    return time_s * s * s / (target * target - f * f)
+
+
+def planning_lines(rows):
+    """Plain-language planning lines of rows that carry ``target`` and ``time_for_target_s``,
+    e.g. "CO_1-0 power_slope to ± 0.05 with compact: 3.2 h (spread ± 0.080 in 1.25 h, fit
+    ± 0.010)"."""
+    from ..planning import duration_text as readable_time
+    out = []
+    for r in rows:
+        if r.get("target") is None:
+            continue
+        t = r.get("time_for_target_s")
+        if t is None or not np.isfinite(t):
+            what = ("not reachable: the fit uncertainty (the sky's own sampling variance) "
+                    "is larger" if t is not None and np.isinf(t) else
+                    "needs >= 2 noise realisations and a known time")
+        else:
+            what = readable_time(t)
+        out.append(f"{r['tracer']} {r['statistic']} to ± {r['target']:g} with {r['setup']}: "
+                   f"{what} (spread ± {r['observed_spread']:.3g} in "
+                   f"{readable_time(r['time_s'])}, fit ± {r['observed_fit_err']:.3g})"
+                   if r.get("time_s") else
+                   f"{r['tracer']} {r['statistic']} to ± {r['target']:g} with {r['setup']}: "
+                   f"{what}")
+    return out

@@ -48,10 +48,18 @@ def run_statistics(conf, ideal, observed, spreads, tmp, figures=True):
         ide, first = observation_statistics(sky, obs)
         more = list(getattr(spreads.get((tname, sname)), "measured", ()) or ())
         rows += statistics_survival(ide, [first] + more, tracer=tname, setup=sname)
+    _add_time_for_targets(rows, conf)
     clean = [{k: (None if isinstance(v, float) and not np.isfinite(v) else v)
               for k, v in r.items()} for r in rows]
     write_text(rows_csv(clean), run_path(tmp, "statistics.csv"))
-    write_text("\n".join(r["line"] for r in rows) + "\n", run_path(tmp, "statistics.txt"))
+    from ..analysis.stat_survival import planning_lines
+    text = "\n".join(r["line"] for r in rows) + "\n"
+    plan = planning_lines(rows)
+    if plan:
+        text += ("\nObserving time for each statistic to reach its target uncertainty "
+                 "([analysis] statistic_targets; estimates only: the observatory's own official "
+                 "tools and policies decide a proposal):\n" + "\n".join(plan) + "\n")
+    write_text(text, run_path(tmp, "statistics.txt"))
     files = ["statistics.csv", "statistics.txt"]
     if figures and rows:
         with atomic_path(run_path(tmp, "statistics.png")) as path:
@@ -60,3 +68,29 @@ def run_statistics(conf, ideal, observed, spreads, tmp, figures=True):
     truth, note = true_values(conf)
     return {"rows": clean, "columns": statistics_columns(rows), "truth": truth,
             "truth_note": note, "files": files}
+
+
+def setup_time_s(st):
+    """The observing time a setup's noise is for, in s: its integration_time_h, else (array)
+    the track's length; None for a dish with a fixed rms_k."""
+    if st.get("integration_time_h") is not None:
+        return float(st["integration_time_h"]) * 3600.0
+    if st["kind"] == "array":
+        start, stop = st["hour_angles_h"]
+        return (float(stop) - float(start)) * 3600.0
+    return None
+
+
+def _add_time_for_targets(rows, conf):
+    """``target``, ``time_s`` and ``time_for_target_s`` on every row whose statistic has a
+    target in [analysis] statistic_targets (:func:`time_for_uncertainty`)."""
+    from ..analysis.stat_survival import time_for_uncertainty
+    targets = (conf.get("analysis") or {}).get("statistic_targets") or {}
+    setups = {st["name"]: st for st in conf.get("setup", [])}
+    for r in rows:
+        if r["statistic"] not in targets:
+            continue
+        t0 = setup_time_s(setups[r["setup"]]) if r["setup"] in setups else None
+        r["target"] = float(targets[r["statistic"]])
+        r["time_s"] = t0
+        r["time_for_target_s"] = time_for_uncertainty(r, r["target"], t0)
