@@ -408,3 +408,40 @@ def _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, 
         out[c, k] = acc * inv_m - j_bg
         if want_tau:
             tau_out[c, k] = tacc * inv_m
+
+
+def emission_counts(tau_int, src, delta, sigma, j_bg, fwhm_per_sigma):
+    """[emitting cells, under-resolved emitting cells, emission weight, under-resolved weight]
+    of (ncol, nz) cell arrays, the sums :func:`synth.transfer.synthesize.resolution_counts`
+    defines (w = |src - j_bg| |tau_int|; under-resolved: delta > fwhm_per_sigma sigma), in one
+    parallel pass without float64 temporaries."""
+    shape = np.shape(tau_int)
+    arrays = [np.ascontiguousarray(a).reshape(-1, shape[-1] if len(shape) else 1)
+              for a in (tau_int, src, delta, sigma)]
+    return _emission_counts(*arrays, float(j_bg), float(fwhm_per_sigma))
+
+
+@njit(cache=True, parallel=True)
+def _emission_counts(tau_int, src, delta, sigma, j_bg, fwhm_per_sigma):
+    ncol, nz = tau_int.shape
+    n_chunks = (ncol + _CHUNK - 1) // _CHUNK
+    part = np.zeros((n_chunks, 4))
+    for b in prange(n_chunks):
+        n_emit = 0.0
+        n_bad = 0.0
+        w_all = 0.0
+        w_bad = 0.0
+        for c in range(b * _CHUNK, min(ncol, (b + 1) * _CHUNK)):
+            for z in range(nz):
+                w = abs(np.float64(src[c, z]) - j_bg) * abs(np.float64(tau_int[c, z]))
+                if w > 0.0:
+                    n_emit += 1.0
+                    w_all += w
+                    if delta[c, z] > fwhm_per_sigma * sigma[c, z]:
+                        n_bad += 1.0
+                        w_bad += w
+        part[b, 0] = n_emit
+        part[b, 1] = n_bad
+        part[b, 2] = w_all
+        part[b, 3] = w_bad
+    return part.sum(axis=0)
