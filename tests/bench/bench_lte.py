@@ -16,6 +16,10 @@ Printed, each measured in the same run:
     channel range), counted from the kernel's own inputs in a second, untimed pass;
   * numpy ``exp`` over all cells x channels;
   * the ratios synthesis / floor (target <= 1.5), kernel / floor, synthesis / exp(all);
+  * the same from CPU seconds (process time, all threads): the per-core cost, which a busy
+    shared machine distorts less than wall time (the synthesis runs on every core, the
+    reference on one; on an idle 2-core machine the wall ratio is about half the CPU ratio
+    for the parts that use both cores);
   * for ``demo``: peak memory (tracemalloc of numpy allocations during the synthesis) against
     the snapshot + cube bytes (target <= 1.5), and the process RSS high-water mark.
 The numpy exp reference depends on the SIMD path numpy dispatches (AVX-512 vs AVX2 vs SSE
@@ -80,13 +84,13 @@ def exp_reference(n_values, chunk=1 << 24):
     rng = np.random.default_rng(0)
     x = -rng.random(chunk, dtype=np.float32) * 10
     out = np.empty_like(x)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     done = 0
     while done < n_values:
         m = min(chunk, n_values - done)
         np.exp(x[:m], out=out[:m])
         done += m
-    return time.perf_counter() - t0
+    return time.perf_counter() - t0, time.process_time() - c0
 
 
 def numpy_simd():
@@ -123,24 +127,25 @@ def run(name, snap, kw, memory):
                           else snap.sigma_turb_cms[:2], abundance=None)
     S.synthesize(small, line, 2e-6, **kw)
     kernel = S.transfer_columns
-    spent = [0.0]
+    spent = [0.0, 0.0]
 
     def timed(*args):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         kernel(*args)
         spent[0] += time.perf_counter() - t0
+        spent[1] += time.process_time() - c0
 
     S.transfer_columns = timed
     try:
         if memory:
             tracemalloc.start()
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         cube = S.synthesize(snap, line, 2e-6, **kw)
-        t_syn = time.perf_counter() - t0
+        t_syn, c_syn = time.perf_counter() - t0, time.process_time() - c0
         peak = tracemalloc.get_traced_memory()[1] if memory else 0
         if memory:
             tracemalloc.stop()
-        t_kernel = spent[0]
+        t_kernel, c_kernel = spent
         counts = [0, 0, 0]
 
         def count(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out):
@@ -160,8 +165,8 @@ def run(name, snap, kw, memory):
     n_ch = cube.shape[0]
     width = kw["channel_width"].to_value(u.km / u.s)
     pairs = counts[0]
-    t_floor = exp_reference(pairs)
-    t_exp = exp_reference(n_cells * n_ch)
+    t_floor, c_floor = exp_reference(pairs)
+    t_exp = exp_reference(n_cells * n_ch)[0]
     shape = "x".join(str(s) for s in snap.shape)
     print(f"[{name}] grid {shape} = {n_cells} cells, {n_ch} channels of {width:.3f} km/s")
     print(f"[{name}] LTE synthesis time               {t_syn:8.2f} s (of it, in the kernel "
@@ -173,6 +178,9 @@ def run(name, snap, kw, memory):
     print(f"[{name}] kernel / floor = {t_kernel / t_floor:.2f};  "
           f"ns per reached pair: synthesis {t_syn / pairs * 1e9:.2f}, floor "
           f"{t_floor / pairs * 1e9:.2f}")
+    print(f"[{name}] CPU seconds (all threads): synthesis {c_syn:.2f}, kernel {c_kernel:.2f}, "
+          f"floor {c_floor:.2f}; per-core cost synth/floor = {c_syn / c_floor:.2f}, "
+          f"kernel/floor = {c_kernel / c_floor:.2f}")
     print(f"[{name}] numpy exp on cells x channels    {t_exp:8.2f} s   "
           f"ratio synth/exp = {t_syn / t_exp:.2f}")
     if memory:
