@@ -337,20 +337,26 @@ def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out):
     want_tau = tau_out.shape[0] == ncol
     n_chunks = (ncol + _CHUNK - 1) // _CHUNK
     for b in prange(n_chunks):
-        size = nch * MAX_SUB + 2 * _LANES
+        size = nch + 2 * _LANES  # grown when a column needs sub-channels
         inten = np.empty(size)
         trans = np.empty(size)
         tsum = np.empty(size if want_tau else 0)
         fe = np.empty(size)
         for c in range(b * _CHUNK, min(ncol, (b + 1) * _CHUNK)):
+            m = _n_sub(tau_int, sigma, c, nz, dv)
+            if nch * m + 2 * _LANES > size:
+                size = nch * m + 2 * _LANES
+                inten = np.empty(size)
+                trans = np.empty(size)
+                tsum = np.empty(size if want_tau else 0)
+                fe = np.empty(size)
             _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, nz,
-                    want_tau, inten, trans, tsum, fe)
+                    m, want_tau, inten, trans, tsum, fe)
 
 
 @njit(cache=True, inline="always")
-def _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, nz, want_tau,
-            inten, trans, tsum, fe):
-    m = _n_sub(tau_int, sigma, c, nz, dv)
+def _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, nz, m,
+            want_tau, inten, trans, tsum, fe):
     ns = nch * m
     sdv = dv / m
     for k in range(ns + 2 * _LANES):
