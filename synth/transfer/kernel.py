@@ -54,10 +54,26 @@ which equals the profile integrated over the whole channel), not tau at the chan
 
 Each cell is evaluated only over the (sub-)channels where its
 profile exceeds ``N_SIGMA`` dispersions (plus delta/2) from its centroid; cumulative-profile
-values are shared between neighbouring channels (one CDF evaluation per channel edge), and
-for |tau_ck| < 0.05 the exponentials are replaced by their 5th-order series (error < 3e-11);
-negative tau (population inversion from an LVG solution) amplifies, as the formal solution says.
-The Gaussian CDF and G are interpolated from tables (cubic Hermite, error ~2e-10).
+values are shared between neighbouring channels (one F evaluation per channel edge).
+Negative tau (population inversion from an LVG solution) amplifies, as the formal solution
+says.
+
+Arithmetic (what makes the kernel fast without trading accuracy). The channel loops are
+written so that LLVM turns them into SIMD code: no branches, no table look-ups (gathers are not
+vectorised), no libm calls (numba has no vector exp here), loops over whole vectors (entries
+past a cell's window get tau = 0 and change nothing). Phi and G come from the Mills ratio
+M(x) = (1 - Phi(x)) / phi(x) (Abramowitz & Stegun 1964, 26.2.5, 7.1.2):
+
+    Phi(-x) = phi(x) M(x),   Phi(x) = 1 - phi(x) M(x),   G(t) = max(t, 0) + phi(t) (1 - |t| M(|t|)),
+
+with M and 1 - x M as degree-16 polynomials in (x - 5)/(x + 5) (fitted to
+scipy.special.erfcx, 1e-12 relative; F is exact to ~1e-15 absolute times sigma/delta,
+where the previous cubic-Hermite tables gave ~2e-10 times sigma/delta) and phi by a Taylor
+series squared seven times. exp(-tau) - 1 is the Taylor series of e^x - 1 at x = -tau/2048
+doubled eleven times with e^{2x} - 1 = (e^x - 1)(e^x + 1), a few ulp also for tiny tau (no
+cancellation in 1 - exp(-tau)); |tau| is clamped at 700 (exp(-700) ~ 1e-304). The sums stay
+in float64; tests/test_kernel.py checks every piece and whole columns against scipy/numpy.
+Columns are processed in blocks of 64 per parallel task (numba prange: every core).
 """
 
 import math
@@ -66,14 +82,13 @@ import numpy as np
 from numba import njit, prange
 
 __all__ = ["N_SIGMA", "MAX_SUB", "TAU_LINEAR", "transfer_columns",
-           "cumulative_profile", "sub_channels"]
+           "cumulative_profile", "sub_channels", "emission_counts"]
 
 #: Half-width of the evaluated window in dispersions; the Gaussian mass outside +-5 sigma is
 #: 5.7e-7 (Abramowitz & Stegun 1964, table 26.1).
 N_SIGMA = 5.0
 
 _SMALL_DELTA = 1e-3  # delta / sigma below which the box average is skipped (error < 1e-7)
-_SERIES = 0.05  # tau below which exp(-tau) is a 5th-order series (error < 3e-11)
 _SQRT_2PI = math.sqrt(2.0 * math.pi)
 
 #: Most sub-channels per channel (a still wider channel is sub-sampled more coarsely than
@@ -83,79 +98,170 @@ MAX_SUB = 64
 #: sub-channel (the intensity is then linear in tau to a relative error < TAU_LINEAR / 2).
 TAU_LINEAR = 0.01
 
-# Tables of the standard normal CDF Phi, its pdf phi and G_std(t) = t Phi(t) + phi(t) on
-# t in [-T_MAX, T_MAX] with step 1/_STEPS_PER_UNIT; the kernel interpolates them with cubic
-# Hermite polynomials (derivatives: G' = Phi, Phi' = phi, phi' = -t phi), accurate to
-# ~2e-10 absolute. Outside the range Phi is 0 or 1 and G_std is max(t, 0) (phi < 1e-14).
-T_MAX = 8.0
-_STEPS_PER_UNIT = 64
-
-
-def _tables():
-    from scipy.special import ndtr
-    t = np.linspace(-T_MAX, T_MAX, int(2 * T_MAX * _STEPS_PER_UNIT) + 1)
-    cdf = ndtr(t)
-    pdf = np.exp(-0.5 * t * t) / math.sqrt(2.0 * math.pi)
-    return t, cdf, pdf, t * cdf + pdf
-
-
-_T, _CDF, _PDF, _GSTD = _tables()
-
-
-@njit(cache=True, inline="always")
-def _hermite(y0, y1, d0, d1, f, h):
-    f2 = f * f
-    f3 = f2 * f
-    return ((2 * f3 - 3 * f2 + 1) * y0 + (f3 - 2 * f2 + f) * h * d0
-            + (-2 * f3 + 3 * f2) * y1 + (f3 - f2) * h * d1)
+# The Gaussian CDF and G without tables or branches. For x >= 0 (Abramowitz & Stegun 1964,
+# 26.2.5 and 7.1.2 for the Mills ratio M(x) = (1 - Phi(x)) / phi(x)):
+#     Phi(-x) = phi(x) M(x),        Phi(x) = 1 - phi(x) M(x),
+#     G(t) = t Phi(t) + phi(t) = max(t, 0) + phi(t) H(|t|),   H(x) = 1 - x M(x),
+# (G(-x) = phi(x) (1 - x M(x)) and G(x) = G(-x) + x since G(x) - G(-x) = x). M and H are
+# smooth and bounded on [0, inf): they are polynomials of degree 16 in y = (x - _L) / (x + _L)
+# times ((x + _L) / _L)^-p (p = 1 for M, 2 for H: their decay 1/x and 1/x^2), fitted by least
+# squares on Chebyshev nodes against scipy.special.erfcx (M(x) = sqrt(pi/2) erfcx(x/sqrt(2)));
+# tests/test_kernel.py refits them and checks them to 1e-12 relative on [0, _X_MAX].
+# Beyond |t| = _X_MAX phi < 2e-16, so x is clamped there. phi(t) = exp(-t^2/2)/sqrt(2 pi)
+# uses _exp_small. Everything is arithmetic without branches or table look-ups, so that LLVM
+# vectorises the channel loops (numba gives no vector exp or gather here).
+_L = 5.0
+_X_MAX = 8.5
+_INV_SQRT_2PI = 1.0 / math.sqrt(2.0 * math.pi)
 
 
 @njit(cache=True, inline="always")
-def _gstd(t, cdf, pdf, gstd):
-    if t <= -T_MAX:
-        return 0.0
-    if t >= T_MAX:
-        return t
-    u = (t + T_MAX) * _STEPS_PER_UNIT
-    i = int(u)
-    f = u - i
-    return _hermite(gstd[i], gstd[i + 1], cdf[i], cdf[i + 1], f, 1.0 / _STEPS_PER_UNIT)
+def _mills_m(y):
+    """M(x) (x + _L) / _L as a polynomial in y = (x - _L) / (x + _L)."""
+    p = -1.2759058279053083e-07
+    p = p * y + -1.0267255279521523e-06
+    p = p * y + -2.4885794252646457e-06
+    p = p * y + 1.1932994663685267e-06
+    p = p * y + 8.079104661012406e-06
+    p = p * y + -2.49279481411915e-05
+    p = p * y + -2.970860083317724e-05
+    p = p * y + 0.0002731886855688533
+    p = p * y + -0.0003999940518235834
+    p = p * y + -0.0015006581863562258
+    p = p * y + 0.010425100346855504
+    p = p * y + -0.034650946764006735
+    p = p * y + 0.08272894315469996
+    p = p * y + -0.15718221510988334
+    p = p * y + 0.2483094123146434
+    p = p * y + -0.3335733190377916
+    p = p * y + 0.385616209430632
+    return p
+
+@njit(cache=True, inline="always")
+def _mills_h(y):
+    """H(x) ((x + _L) / _L)^2 as a polynomial in y = (x - _L) / (x + _L)."""
+    p = -5.30472372864641e-07
+    p = p * y + -3.444574152110329e-06
+    p = p * y + -5.802083426931015e-06
+    p = p * y + 8.37838703526285e-06
+    p = p * y + 1.639790489264411e-05
+    p = p * y + -7.981004065905092e-05
+    p = p * y + -1.0530890529694114e-05
+    p = p * y + 0.0006058816720999965
+    p = p * y + -0.001211700714442113
+    p = p * y + -0.001761063741961806
+    p = p * y + 0.016696059982167694
+    p = p * y + -0.05409125671818305
+    p = p * y + 0.1173798899636211
+    p = p * y + -0.19192892660511654
+    p = p * y + 0.24329497645443965
+    p = p * y + -0.23275309254102589
+    p = p * y + 0.14383790569368513
+    return p
+
+@njit(cache=True, inline="always")
+def _exp_small(x):
+    """exp(x) for -37 < x <= 0 (relative error < 2e-14): the Taylor series to 11th order of
+    exp(x / 128), squared 7 times."""
+    r = x * (1.0 / 128.0)
+    p = 1.0 / 39916800.0
+    p = p * r + 1.0 / 3628800.0
+    p = p * r + 1.0 / 362880.0
+    p = p * r + 1.0 / 40320.0
+    p = p * r + 1.0 / 5040.0
+    p = p * r + 1.0 / 720.0
+    p = p * r + 1.0 / 120.0
+    p = p * r + 1.0 / 24.0
+    p = p * r + 1.0 / 6.0
+    p = p * r + 0.5
+    p = p * r + 1.0
+    p = p * r + 1.0
+    for _ in range(7):
+        p = p * p
+    return p
+
+
+#: exp(-tau) and 1 - exp(-tau) are evaluated for |tau| <= _TAU_CLAMP (exp(-700) ~ 1e-304
+#: stands for the 0 of a larger optical depth; an inversion deeper than -700 is clamped).
+_TAU_CLAMP = 700.0
 
 
 @njit(cache=True, inline="always")
-def _phi(t, tt, cdf, pdf):
-    if t <= -T_MAX:
-        return 0.0
-    if t >= T_MAX:
-        return 1.0
-    u = (t + T_MAX) * _STEPS_PER_UNIT
-    i = int(u)
-    f = u - i
-    return _hermite(cdf[i], cdf[i + 1], pdf[i], pdf[i + 1], f, 1.0 / _STEPS_PER_UNIT)
+def _expm1_neg(tau):
+    """exp(-tau) - 1 to a few ulps relative, also for tiny tau: the Taylor series to 12th
+    order of e^x - 1 at x = -tau / 2048 (|x| < 0.35), doubled 11 times with
+    e^{2x} - 1 = (e^x - 1)(e^x - 1 + 2) (the relative error grows by ~1 ulp per doubling
+    while e^x - 1 is small, and at most doubles per step near tau = 700)."""
+    x = -min(max(tau, -_TAU_CLAMP), _TAU_CLAMP) * (1.0 / 2048.0)
+    p = 1.0 / 479001600.0
+    p = p * x + 1.0 / 39916800.0
+    p = p * x + 1.0 / 3628800.0
+    p = p * x + 1.0 / 362880.0
+    p = p * x + 1.0 / 40320.0
+    p = p * x + 1.0 / 5040.0
+    p = p * x + 1.0 / 720.0
+    p = p * x + 1.0 / 120.0
+    p = p * x + 1.0 / 24.0
+    p = p * x + 1.0 / 6.0
+    p = p * x + 0.5
+    p = p * x + 1.0
+    e = p * x
+    for _ in range(11):
+        e = e * (e + 2.0)
+    return e
 
 
 @njit(cache=True, inline="always")
-def _cdf(e, v0, sigma, delta, tt, cdf, pdf, gstd):
+def _phi_mills(t):
+    """(phi(t), M(|t|), H(|t|)) with |t| clamped to _X_MAX."""
+    x = min(abs(t), _X_MAX)
+    w = 1.0 / (x + _L)
+    y = (x - _L) * w
+    lw = _L * w
+    ph = _exp_small(-0.5 * x * x) * _INV_SQRT_2PI
+    return ph, _mills_m(y) * lw, _mills_h(y) * lw * lw
+
+
+@njit(cache=True, inline="always")
+def _phi_cdf(t):
+    """Gaussian CDF Phi(t)."""
+    x = min(abs(t), _X_MAX)
+    w = 1.0 / (x + _L)
+    pm = _exp_small(-0.5 * x * x) * _INV_SQRT_2PI * _mills_m((x - _L) * w) * _L * w
+    return 1.0 - pm if t >= 0.0 else pm
+
+
+@njit(cache=True, inline="always")
+def _g(t):
+    """G(t) = t Phi(t) + phi(t), the antiderivative of Phi."""
+    x = min(abs(t), _X_MAX)
+    w = 1.0 / (x + _L)
+    lw = _L * w
+    h = _mills_h((x - _L) * w) * lw * lw
+    return max(t, 0.0) + _exp_small(-0.5 * x * x) * _INV_SQRT_2PI * h
+
+
+@njit(cache=True, inline="always")
+def _cdf(e, v0, sigma, delta):
     if delta < _SMALL_DELTA * sigma:
-        return _phi((e - v0) / sigma, tt, cdf, pdf)
+        return _phi_cdf((e - v0) / sigma)
     h = 0.5 * delta
     inv = 1.0 / sigma
-    return sigma * (_gstd((e - v0 + h) * inv, cdf, pdf, gstd)
-                    - _gstd((e - v0 - h) * inv, cdf, pdf, gstd)) / delta
+    return sigma * (_g((e - v0 + h) * inv) - _g((e - v0 - h) * inv)) / delta
 
 
 @njit(cache=True)
-def _cumulative_profile(e, v0, sigma, delta, tt, cdf, pdf, gstd):
+def _cumulative_profile(e, v0, sigma, delta):
     out = np.empty(e.size)
     for i in range(e.size):
-        out[i] = _cdf(e[i], v0, sigma, delta, tt, cdf, pdf, gstd)
+        out[i] = _cdf(e[i], v0, sigma, delta)
     return out
 
 
 def cumulative_profile(e, v0, sigma, delta):
     """F(e) of the module docstring for an array of edges (km/s); used by tests."""
     e = np.ascontiguousarray(e, dtype=np.float64)
-    return _cumulative_profile(e, float(v0), float(sigma), float(delta), _T, _CDF, _PDF, _GSTD)
+    return _cumulative_profile(e, float(v0), float(sigma), float(delta))
 
 
 def transfer_columns(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out):
@@ -176,8 +282,7 @@ def transfer_columns(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau
     tau_out : (ncol, nch) float32 or (0, 0)
         Receives the total optical depth averaged over each channel when it has ``ncol`` rows.
     """
-    _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out,
-              _T, _CDF, _PDF, _GSTD)
+    _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out)
 
 
 @njit(cache=True, inline="always")
@@ -222,60 +327,142 @@ def sub_channels(tau_int, sigma, dv):
                     np.ascontiguousarray(sigma, dtype=np.float32), float(dv))
 
 
-@njit(cache=True, parallel=True)
-def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, tt, cdf, pdf, gstd):
+_LANES = 8  # the channel loops run over a multiple of this many entries (no scalar remainder)
+_CHUNK = 64  # columns per parallel task (their scratch arrays are allocated once)
+
+
+@njit(cache=True, parallel=True, fastmath={"contract"}, error_model="numpy")
+def _transfer(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out):
     ncol, nz = tau_int.shape
     want_tau = tau_out.shape[0] == ncol
-    for c in prange(ncol):
-        m = _n_sub(tau_int, sigma, c, nz, dv)
-        ns = nch * m
-        sdv = dv / m
-        inten = np.zeros(ns)
-        trans = np.ones(ns)
-        tsum = np.zeros(ns if want_tau else 0)
-        for z in range(nz):
-            ti = tau_int[c, z]
-            if ti == 0.0:
-                continue
-            s = src[c, z]
-            vc = v0[c, z]
-            sg = sigma[c, z]
-            dl = delta[c, z]
-            half = N_SIGMA * sg + 0.5 * dl
-            k_lo = int(math.floor((vc - half - e0) / sdv))
-            k_hi = int(math.ceil((vc + half - e0) / sdv))
-            if k_lo < 0:
-                k_lo = 0
-            if k_hi > ns:
-                k_hi = ns
-            if k_lo >= k_hi:
-                continue
-            scale = ti / sdv
-            prev = _cdf(e0 + k_lo * sdv, vc, sg, dl, tt, cdf, pdf, gstd)
-            for k in range(k_lo, k_hi):
-                cur = _cdf(e0 + (k + 1) * sdv, vc, sg, dl, tt, cdf, pdf, gstd)
-                tau = scale * (cur - prev)
-                prev = cur
-                if -_SERIES < tau < _SERIES:
-                    # 1 - exp(-tau) to 5th order (Horner)
-                    a = tau * (1.0 - tau * (0.5 - tau * (1.0 / 6.0 - tau * (1.0 / 24.0
-                                                                        - tau / 120.0))))
-                    et = 1.0 - a
-                else:
-                    et = math.exp(-tau)
-                    a = 1.0 - et
-                inten[k] += s * a * trans[k]
-                trans[k] *= et
-                if want_tau:
-                    tsum[k] += tau
-        inv_m = 1.0 / m
-        for k in range(nch):
-            acc = 0.0
-            tacc = 0.0
-            for j in range(k * m, (k + 1) * m):
-                acc += inten[j] + j_bg * trans[j]
-                if want_tau:
-                    tacc += tsum[j]
-            out[c, k] = acc * inv_m - j_bg
+    n_chunks = (ncol + _CHUNK - 1) // _CHUNK
+    for b in prange(n_chunks):
+        size = nch + 2 * _LANES  # grown when a column needs sub-channels
+        inten = np.empty(size)
+        trans = np.empty(size)
+        tsum = np.empty(size if want_tau else 0)
+        fe = np.empty(size)
+        for c in range(b * _CHUNK, min(ncol, (b + 1) * _CHUNK)):
+            m = _n_sub(tau_int, sigma, c, nz, dv)
+            if nch * m + 2 * _LANES > size:
+                size = nch * m + 2 * _LANES
+                inten = np.empty(size)
+                trans = np.empty(size)
+                tsum = np.empty(size if want_tau else 0)
+                fe = np.empty(size)
+            _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, nz,
+                    m, want_tau, inten, trans, tsum, fe)
+
+
+@njit(cache=True, inline="always")
+def _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, nz, m,
+            want_tau, inten, trans, tsum, fe):
+    ns = nch * m
+    sdv = dv / m
+    for k in range(ns + 2 * _LANES):
+        inten[k] = 0.0
+        trans[k] = 1.0
+    if want_tau:
+        for k in range(ns + 2 * _LANES):
+            tsum[k] = 0.0
+    for z in range(nz):
+        ti = tau_int[c, z]
+        if ti == 0.0:
+            continue
+        s = np.float64(src[c, z])
+        vc = np.float64(v0[c, z])
+        sg = np.float64(sigma[c, z])
+        dl = np.float64(delta[c, z])
+        half = N_SIGMA * sg + 0.5 * dl
+        k_lo = int(math.floor((vc - half - e0) / sdv))
+        k_hi = int(math.ceil((vc + half - e0) / sdv))
+        if k_lo < 0:
+            k_lo = 0
+        if k_hi > ns:
+            k_hi = ns
+        if k_lo >= k_hi:
+            continue
+        n = k_hi - k_lo
+        # the loops run over whole vectors; entries past the window are computed and unused
+        n_pairs = (n + _LANES - 1) // _LANES * _LANES
+        n_edges = (n + _LANES) // _LANES * _LANES  # >= n + 1
+        inv = 1.0 / sg
+        a0 = (e0 + k_lo * sdv - vc) * inv
+        step = sdv * inv
+        # the cumulative profile at the edges e0 + (k_lo + j) sdv, j = 0..n
+        if dl < _SMALL_DELTA * sg:
+            for j in range(n_edges):
+                fe[j] = _phi_cdf(a0 + j * step)
+        else:
+            hs = 0.5 * dl * inv
+            box = sg / dl
+            for j in range(n_edges):
+                t = a0 + j * step
+                fe[j] = box * (_g(t + hs) - _g(t - hs))
+        scale = ti / sdv
+        # pairs j >= n get tau = 0 (no change; the arrays are padded for them)
+        if want_tau:
+            for j in range(n_pairs):
+                tau = scale * (fe[j + 1] - fe[j]) if j < n else 0.0
+                em = _expm1_neg(tau)  # exp(-tau) - 1
+                k = k_lo + j
+                tr = trans[k]
+                inten[k] -= s * em * tr
+                trans[k] = tr + tr * em
+                tsum[k] += tau
+        else:
+            for j in range(n_pairs):
+                tau = scale * (fe[j + 1] - fe[j]) if j < n else 0.0
+                em = _expm1_neg(tau)
+                k = k_lo + j
+                tr = trans[k]
+                inten[k] -= s * em * tr
+                trans[k] = tr + tr * em
+    inv_m = 1.0 / m
+    for k in range(nch):
+        acc = 0.0
+        tacc = 0.0
+        for j in range(k * m, (k + 1) * m):
+            acc += inten[j] + j_bg * trans[j]
             if want_tau:
-                tau_out[c, k] = tacc * inv_m
+                tacc += tsum[j]
+        out[c, k] = acc * inv_m - j_bg
+        if want_tau:
+            tau_out[c, k] = tacc * inv_m
+
+
+def emission_counts(tau_int, src, delta, sigma, j_bg, fwhm_per_sigma):
+    """[emitting cells, under-resolved emitting cells, emission weight, under-resolved weight]
+    of (ncol, nz) cell arrays, the sums :func:`synth.transfer.synthesize.resolution_counts`
+    defines (w = |src - j_bg| |tau_int|; under-resolved: delta > fwhm_per_sigma sigma), in one
+    parallel pass without float64 temporaries."""
+    shape = np.shape(tau_int)
+    arrays = [np.ascontiguousarray(a).reshape(-1, shape[-1] if len(shape) else 1)
+              for a in (tau_int, src, delta, sigma)]
+    return _emission_counts(*arrays, float(j_bg), float(fwhm_per_sigma))
+
+
+@njit(cache=True, parallel=True)
+def _emission_counts(tau_int, src, delta, sigma, j_bg, fwhm_per_sigma):
+    ncol, nz = tau_int.shape
+    n_chunks = (ncol + _CHUNK - 1) // _CHUNK
+    part = np.zeros((n_chunks, 4))
+    for b in prange(n_chunks):
+        n_emit = 0.0
+        n_bad = 0.0
+        w_all = 0.0
+        w_bad = 0.0
+        for c in range(b * _CHUNK, min(ncol, (b + 1) * _CHUNK)):
+            for z in range(nz):
+                w = abs(np.float64(src[c, z]) - j_bg) * abs(np.float64(tau_int[c, z]))
+                if w > 0.0:
+                    n_emit += 1.0
+                    w_all += w
+                    if delta[c, z] > fwhm_per_sigma * sigma[c, z]:
+                        n_bad += 1.0
+                        w_bad += w
+        part[b, 0] = n_emit
+        part[b, 1] = n_bad
+        part[b, 2] = w_all
+        part[b, 3] = w_bad
+    return part.sum(axis=0)

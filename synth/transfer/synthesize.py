@@ -21,7 +21,7 @@ from ..snapshot.lazy import SnapshotFile
 from ..molecules.hyperfine import with_hyperfine
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
 from ..excitation.gradient import FWHM_PER_SIGMA
-from .kernel import N_SIGMA, transfer_columns
+from .kernel import N_SIGMA, emission_counts, transfer_columns
 from .skycube import channel_grid, sky_wcs
 from .tiles import plan_tiles
 
@@ -420,10 +420,7 @@ def resolution_counts(tau_int, src, delta, sigma, j_bg):
     line-of-sight velocity change across it (delta, central differences, as in the kernel)
     exceeds the local thermal+turbulent FWHM, sqrt(8 ln 2) sigma.
     """
-    w = np.abs(src.astype(np.float64) - j_bg) * np.abs(tau_int.astype(np.float64))
-    emitting = w > 0
-    bad = emitting & (delta > FWHM_PER_SIGMA * sigma)
-    return np.array([emitting.sum(), bad.sum(), w.sum(), w[bad].sum()], dtype=np.float64)
+    return emission_counts(tau_int, src, delta, sigma, j_bg, FWHM_PER_SIGMA)
 
 
 def warn_if_underresolved(name, entry, threshold=None):

@@ -22,10 +22,21 @@ _NUM = r"([-+0-9.eE]+|nan|inf)"
 # name: (script, full-size args, quick args, [(label, regex of one printed figure)])
 # The regexes pick the value and, where the script prints one, the target (op, number).
 OTHERS = {
-    "lte": ("bench_lte.py", [], ["--n", "96"], [
-        ("LTE synthesis / numpy exp (cells x channels)",
-         rf"ratio synth/exp = {_NUM}\s*\(target (<=|>=) {_NUM}\)"),
-        ("LTE synthesis / numpy exp (reached pairs)", rf"ratio synth/floor = {_NUM}"),
+    "lte": ("bench_lte.py", [], ["--n", "96", "--nz", "64"], [
+        ("LTE synthesis / floor (exp over reached pairs), demo cloud",
+         rf"\[demo\] numpy exp on reached pairs .*ratio synth/floor = {_NUM}\s*\(target (<=|>=) {_NUM}\)"),
+        ("LTE kernel / floor, demo cloud", rf"\[demo\] kernel / floor = {_NUM}"),
+        ("LTE synthesis / floor in CPU seconds (per-core cost), demo cloud",
+         rf"\[demo\] CPU seconds.*per-core cost synth/floor = {_NUM}"),
+        ("LTE synthesis / numpy exp (cells x channels), demo cloud",
+         rf"\[demo\] numpy exp on cells x channels .*ratio synth/exp = {_NUM}"),
+        ("LTE synthesis / floor, sine flow",
+         rf"\[sine\] numpy exp on reached pairs .*ratio synth/floor = {_NUM}\s*\(target (<=|>=) {_NUM}\)"),
+        ("LTE kernel / floor, sine flow", rf"\[sine\] kernel / floor = {_NUM}"),
+        ("LTE synthesis / floor in CPU seconds (per-core cost), sine flow",
+         rf"\[sine\] CPU seconds.*per-core cost synth/floor = {_NUM}"),
+        ("LTE synthesis / numpy exp (cells x channels), sine flow",
+         rf"\[sine\] numpy exp on cells x channels .*ratio synth/exp = {_NUM}"),
         ("LTE (snapshot + traced peak) / (snapshot + cube)",
          rf"snapshot \+ cube = .*ratio = {_NUM} \(target (<=|>=) {_NUM}\)"),
     ]),
