@@ -106,7 +106,6 @@ def excite_snapshot(snapshot, line, abundance, excitation="lte", t_ex=None, opti
         from .lte import lte_excitation
         return lte_excitation(snapshot, line, abundance, t_ex=t_ex)
     n = snapshot.shape[0]
-    lo, hi = 0, n
-    exc = blocks(snapshot, 0, n, slice(lo, hi))
+    exc = blocks(snapshot, 0, n, slice(0, n))
     return Excitation(exc.line, np.asarray(exc.t_ex_k), np.asarray(exc.opacity_integral),
                       exc.method, blocks.info)

@@ -21,16 +21,18 @@ from spectral_cube import SpectralCube
 from ..errors import ConfigError, MemoryBudgetError, UnderResolvedVelocityWarning
 from ..excitation.product import Excitation
 from ..snapshot.core import Snapshot, block_rows
-from ..snapshot.lazy import SnapshotFile, is_block_source
+from ..snapshot.lazy import SnapshotFile
 from ..molecules.hyperfine import with_hyperfine
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
-from ..excitation.gradient import FWHM_PER_SIGMA
 from .kernel import N_SIGMA, transfer_columns
 from .skycube import channel_grid, sky_wcs
 from .tiles import parse_memory, plan_tiles
 
 __all__ = ["synthesize", "synthesize_products", "SynthesisResult", "LINES_OF_SIGHT",
            "auto_velocity_range", "view_source"]
+
+#: FWHM / sigma of a Gaussian, sqrt(8 ln 2) (the same constant as synth.excitation.gradient).
+FWHM_PER_SIGMA = float(np.sqrt(8.0 * np.log(2.0)))
 
 #: UnderResolvedVelocityWarning above this fraction of the emission from under-resolved cells.
 UNDERRESOLVED_WARN_FRACTION = 0.25
