@@ -163,15 +163,19 @@ def test_lvg_budget_below_its_table_is_refused(tmp_path):
                                         ({"rotation": (30, 45, 0)}, "periodic"),
                                         ({"rotation": (10, 70, 20), "grid": "same"}, "periodic"),
                                         ({"rotation": (10, 70, 20), "grid": "same"}, "nearest")])
-def test_rotated_blocks_equal_the_in_memory_view(tmp_path, los, edges):
+@pytest.mark.parametrize("axis", [None, 2])
+def test_rotated_blocks_equal_the_in_memory_view(tmp_path, los, edges, axis):
     """Every block of a RotatedView of an HDF5 file, read a few source rows at a time, holds
-    the fields of the in-memory rotated view (synth.snapshot.views.view), both edge modes."""
+    the fields of the in-memory rotated view (synth.snapshot.views.view), both edge modes,
+    read along the axis it chooses and along z."""
     snap = _cloud(14, seed=2)
     snap = snap._replace(abundance={"13CO": np.random.default_rng(4).uniform(
         1e-6, 2e-6, snap.shape)})
     ref = view(snap, los, edges)
     rv = RotatedView(_file(snap, tmp_path), los, edges, chunk_bytes=4 * 14 * 14 * 56,
                      pass_cells=500)
+    if axis is not None:
+        rv._axis = axis
     assert rv.shape == ref.shape
     nx = rv.shape[0]
     for x0, x1 in ((0, 4), (4, nx - 3), (nx - 3, nx)):

@@ -318,10 +318,12 @@ def _snap_to_edges(coords, last_index, tol=1e-6):
 
 # ---- rotations read block by block ----------------------------------------------------------
 #: Bytes per output cell a :class:`RotatedView` block holds besides its fields while it is
-#: resampled: the old-frame coordinates (3 float64), the inside fraction (float64), the source
-#: row of each point and its local coordinates in a chunk (int64 + 3 float64 at most), and
-#: the selection of the points of one chunk (bool + int64).
-ROTATION_BYTES_PER_CELL = 96
+#: resampled: the old-frame coordinates (3 float64) and inside fraction (float64); per edge
+#: mode (two for "periodic") the clamped or wrapped coordinates (3 float64), the points'
+#: order by source row and their sorted rows (2 int64); for the chunk being interpolated the
+#: selected points and their local coordinates (int64 + 3 float64); and the resampled fields
+#: of a pass beside the block's assembled fields (56, float64 at worst).
+ROTATION_BYTES_PER_CELL = 24 + 8 + 2 * 40 + 32 + 56
 
 
 def _rows_of(snapshot, axis, start, stop):
@@ -366,7 +368,10 @@ class RotatedView:
         M = self._R.T
         ny, nz = self._shape_out[1:]
         spread = [abs(M[a, 1]) * ny + abs(M[a, 2]) * nz for a in range(3)]
-        self._axis = int(np.argmin(spread))  # the source axis an output slab is thinnest along
+        # the source axis an output slab is thinnest along; the first (x) unless another
+        # halves the rows read, as x slabs are contiguous runs of a stored [x, y, z] array
+        best = int(np.argmin(spread))
+        self._axis = best if spread[best] < 0.5 * spread[0] else 0
         self._cell = None
 
     def __repr__(self):
@@ -467,13 +472,17 @@ class RotatedView:
         # per mode: the source row along a of each point and its coordinates for a chunk
         edge_fields = ("n_h2_cm3", "velocity_cms", "sigma_turb_cms")
         near_fields = ("t_kin_k", "abundance")
-        modes = {"nearest": (_points(coords, self._shape_in, a, False),
-                             near_fields if wrap else near_fields + edge_fields)}
+        wanted = {"nearest": near_fields if wrap else near_fields + edge_fields}
         if wrap:
-            modes["periodic"] = (_points(coords, self._shape_in, a, True), edge_fields)
+            wanted["periodic"] = edge_fields
         used = np.zeros(n_a + 1, dtype=bool)
-        for (r, _), _ in modes.values():
-            used[np.unique(r)] = True
+        modes = {}
+        for mode, names in wanted.items():
+            r, c = _points(coords, self._shape_in, a, mode == "periodic")
+            used[r] = True
+            order = np.argsort(r, kind="stable")
+            modes[mode] = (c, names, order, r[order])  # points sorted by source row
+            del r
         row_bytes = self.source_row_bytes()
         step = max(1, int((self.chunk_bytes or row_bytes * (n_a + 1)) // row_bytes) - 1)
         res = None
@@ -489,8 +498,10 @@ class RotatedView:
                 chunk = _append_rows(chunk, self._read(a, 0, 1), a)
             elif wrap and n_a == 1:
                 chunk = _append_rows(chunk, chunk, a)
-            for mode, ((r, c), names) in modes.items():
-                sel = np.flatnonzero((r >= first) & (r <= last))
+            for mode, (c, names, order, ranked) in modes.items():
+                i0 = np.searchsorted(ranked, first, side="left")
+                i1 = np.searchsorted(ranked, last, side="right")
+                sel = order[i0:i1]
                 if sel.size == 0:
                     continue
                 local = c[:, sel]
