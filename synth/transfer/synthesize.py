@@ -255,9 +255,10 @@ def _cube(data, wcs, meta, unit):
 
 
 def _rotation_budget(source, memory, shape, n_channels, n_cubes, extra_fixed, extra_cell):
-    """A rotated view read block by block: the source rows it reads at once (a quarter of
+    """A rotated view read block by block: the source rows it reads at once (an eighth of
     what the budget leaves beside the cubes, at least three rows) are held beside the tiles,
-    and each output cell of a tile holds its resampling temporaries."""
+    and each output cell of a tile holds its resampling temporaries. Each tile reads the
+    source range its slab crosses, so the tiles get the larger share."""
     if not hasattr(source, "with_budget"):
         return source, extra_fixed, extra_cell
     from ..snapshot.views import ROTATION_BYTES_PER_CELL
@@ -268,7 +269,7 @@ def _rotation_budget(source, memory, shape, n_channels, n_cubes, extra_fixed, ex
         chunk = whole
     else:
         free = parse_memory(memory) - n_cubes * n_channels * shape[0] * shape[1] * 4
-        chunk = int(min(whole, max(3 * row, free // 4)))
+        chunk = int(min(whole, max(3 * row, free // 8)))
     return (source.with_budget(chunk), extra_fixed + chunk,
             extra_cell + ROTATION_BYTES_PER_CELL)
 
