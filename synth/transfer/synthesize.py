@@ -220,7 +220,7 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     wcs = sky_wcs(nx, ny, pixel_deg, grid, line.freq_hz, position)
     meta = {"BUNIT": "K", "LINE": str(line), "EXCIT": excitation, "HYPERFIN": hfs is not None,
             "ABUND": float(abundance), "DISTPC": dist_cm / u.pc.to(u.cm),
-            "LOS": str(getattr(source, "line_of_sight", line_of_sight)), "TBG": t_bg_k}
+            "LOS": str(_axis_of(source, line_of_sight)), "TBG": t_bg_k}
     cube = _cube(data, wcs, meta, "K")
     tau_cube = (_cube(tau, wcs, dict(meta, BUNIT="", TAUKIND=TAU_KIND), "")
                 if tau is not None else None)
@@ -252,6 +252,13 @@ def _with_background(excitation, options, t_bg_k):
 def _cube(data, wcs, meta, unit):
     q = u.Quantity(data, u.Unit(unit) if unit else u.dimensionless_unscaled, copy=False)
     return SpectralCube(data=q, wcs=wcs, meta=dict(meta))  # keeps the array: no second copy
+
+
+def _axis_of(source, line_of_sight):
+    """The LOS card: the axis a file view is seen along (as before streaming), else the
+    argument (a view in memory or a rotation is recorded as its caller gave it)."""
+    axis = getattr(source, "line_of_sight", None)
+    return axis if isinstance(axis, str) else line_of_sight
 
 
 def _rotation_budget(source, memory, shape, n_channels, n_cubes, extra_fixed, extra_cell):
