@@ -12,11 +12,13 @@ import re
 import uuid
 from contextlib import contextmanager
 
+import numpy as np
+
 from ._optional import require
 from .errors import ConfigError, SynthError
 
 __all__ = ["Executor", "SerialExecutor", "DaskExecutor", "make_executor", "executor_context",
-           "check_execution"]
+           "check_execution", "spilled_snapshot"]
 
 _ADDRESS = re.compile(r"^(?:(tcp|tls|ws|wss|ucx)://)?(\[[0-9A-Fa-f:]+\]|[A-Za-z0-9_.-]+):(\d{1,5})$")
 
@@ -40,6 +42,8 @@ class Executor:
 
     n_workers = 1
     in_flight = 1
+    #: jobs run in this process (they may share its arrays) or elsewhere (they get copies)
+    in_process = True
 
     def map(self, fn, args_list, progress=None):  # pragma: no cover - interface
         raise NotImplementedError
@@ -56,8 +60,23 @@ class SerialExecutor(Executor):
                 progress.update(1)
 
 
+class _OneThread:
+    """A job run on a dask worker process, whose numba kernels use one thread each (the
+    workers have ``threads_per_worker=1``; the cores are shared between the processes)."""
+
+    def __init__(self, fn):
+        self.fn = fn
+
+    def __call__(self, *args):
+        import numba
+        numba.set_num_threads(1)
+        return self.fn(*args)
+
+
 class DaskExecutor(Executor):
     """Run jobs as tasks on a dask.distributed Client (at most 2 per worker in flight)."""
+
+    in_process = False
 
     def __init__(self, client, local=False):
         self.client = client
@@ -68,6 +87,7 @@ class DaskExecutor(Executor):
 
     def map(self, fn, args_list, progress=None):
         distributed = require("distributed")
+        fn = _OneThread(fn)
         pending, queue = {}, enumerate(args_list)
         limit = self.in_flight
         ac = distributed.as_completed()
@@ -163,6 +183,35 @@ def executor_context(workers=None, scheduler=None, dashboard=False):
         finally:
             client.close()
             cluster.close()
+
+
+@contextmanager
+def spilled_snapshot(snapshot, executor):
+    """What the tile jobs of ``executor`` should read an in-memory ``snapshot`` from. On a
+    local dask cluster it is written once to a temporary HDF5 file that the workers read
+    block by block themselves (:class:`synth.snapshot.lazy.SnapshotFile`), instead of
+    pickling every block through this process (which then competes with the workers for the
+    cores); elsewhere the snapshot is used as it is. The file is removed at the end (and by
+    the next run if this one is killed)."""
+    from .snapshot.core import Snapshot
+    spill = (isinstance(snapshot, Snapshot) and getattr(executor, "local", False)
+             and all(np.ndim(a) == 3 for a in (snapshot._cgs["abundance"] or {}).values()))
+    if not spill:
+        yield snapshot
+        return
+    import astropy.units as u
+    from .rundir import remove_temp_folder, temp_folder
+    from .snapshot.lazy import SnapshotFile
+    from .snapshot.readers import write_hdf5
+    folder = temp_folder()
+    try:
+        path = os.path.join(folder, "snapshot.h5")
+        write_hdf5(snapshot, path)
+        sig = snapshot.sigma_turb_cms
+        kw = {"sigma_turb": float(sig) * u.cm / u.s} if np.ndim(sig) == 0 else {}
+        yield SnapshotFile(path, **kw).view("z")
+    finally:
+        remove_temp_folder(folder)
 
 
 def make_executor(client=None):

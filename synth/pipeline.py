@@ -116,13 +116,11 @@ def run_config(config, out_dir, overwrite=False, progress=True, log=print, memor
 
 
 def _lazy_source(conf, memory):
-    """A SnapshotFile when the run should read its snapshot tile by tile, else None."""
+    """A SnapshotFile when the run should read its snapshot block by block, else None: with
+    --memory, a snapshot file in HDF5, zarr or FITS, for LTE and LVG tracers and for axis
+    views and rotations alike (synth.snapshot.lazy, synth.snapshot.views.RotatedView)."""
     cloud = conf["cloud"]
     if memory is None or cloud["source"] == "demo" or cloud["format"] == "yt":
-        return None
-    if any(tr["excitation"] != "lte" for tr in conf["tracer"]):
-        return None  # LVG needs whole-grid velocity gradients: load into memory
-    if not isinstance(conf["sky"]["line_of_sight"], str):
         return None
     from .snapshot.lazy import SnapshotFile
     from .snapshot.readers import _resolve_format
@@ -162,52 +160,37 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
             raise ConfigError("[channels] needs both velocity_min_kms and velocity_max_kms, or neither")
         vrange = (chan["velocity_min_kms"], chan["velocity_max_kms"]) * u.km / u.s
     los = sky["line_of_sight"]
-    view = snap if (los == "z" or lazy is not None) else snap.view(los, conf["cloud"]["edges"])
-    view_los = los if lazy is not None else "z"
+    if lazy is not None:  # read block by block, whatever the view
+        view = lazy.view(los, conf["cloud"]["edges"])
+    else:
+        view = snap if los == "z" else snap.view(los, conf["cloud"]["edges"])
     if vrange is None:
         ranges = [auto_velocity_range(view, ln, sky["systemic_velocity_kms"],
-                                      line_of_sight=view_los, hyperfine=tr.get("hyperfine")).value
+                                      hyperfine=tr.get("hyperfine")).value
                   for tr, ln in zip(conf["tracer"], lines)]
         vrange = (min(r[0] for r in ranges), max(r[1] for r in ranges)) * u.km / u.s
         from .preflight import check_cube_size  # the band is known only now
         n_chan = int(np.ceil((vrange[1] - vrange[0]).to_value(u.km / u.s) / chan["width_kms"]))
-        check_cube_size(n_chan, (view.shape if lazy is None else lazy.view_shape(view_los)),
-                        len(lines), memory)
+        check_cube_size(n_chan, tuple(view.shape), len(lines), memory)
     products = ("tau",) + tuple(p for p in conf["output"]["products"] if p == "column")
     if preflight is not None:
         preflight(_sky_size_arcsec(snap, lazy, los, sky["distance_pc"]))
     from tqdm.auto import tqdm
+    from .parallel import spilled_snapshot
     bar = tqdm(list(zip(conf["tracer"], lines)), desc="tracers", unit="tracer",
                disable=not progress)
-    for tr, line in bar:
-        bar.set_postfix_str(str(line))
-        budget = memory
-        if memory is not None and lazy is None and tr["excitation"] != "lte":
-            budget = _budget_beside(view, memory, tr)
-        yield tr, line, synthesize_products(
-            view, line, tr["abundance"], tr["excitation"],
-            distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
-            velocity_range=vrange, line_of_sight=view_los,
-            systemic_velocity=sky["systemic_velocity_kms"] * u.km / u.s,
-            position=(sky["ra_deg"] * u.deg, sky["dec_deg"] * u.deg),
-            t_bg=sky["background_k"] * u.K,
-            t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
-            excitation_options=_lvg_options(tr), products=products, progress=progress,
-            memory=budget, executor=executor, hyperfine=tr.get("hyperfine"))
-
-
-def _budget_beside(snap, memory, tr):
-    """What is left of ``memory`` for the transfer stage of an LVG tracer once the whole
-    snapshot is in memory (LVG cannot read it by tiles), so the run stays within --memory."""
-    from .errors import MemoryBudgetError
-    held = sum(np.asarray(a).nbytes for a in snap._cgs.values() if isinstance(a, np.ndarray))
-    held += sum(np.asarray(a).nbytes for a in (snap._cgs.get("abundance") or {}).values())
-    if held >= memory:
-        raise MemoryBudgetError(
-            f"[[tracer]] '{tr['name']}' (excitation = \"lvg\") holds the snapshot in memory, "
-            f"{held / 1e6:.1f} MB, which leaves nothing of --memory {memory / 1e6:.1f} MB; raise "
-            "--memory or use excitation = \"lte\"")
-    return memory - held
+    with spilled_snapshot(view, executor) as source:  # a local cluster reads a file itself
+        for tr, line in bar:
+            bar.set_postfix_str(str(line))
+            yield tr, line, synthesize_products(
+                source, line, tr["abundance"], tr["excitation"],
+                distance=sky["distance_pc"] * u.pc, channel_width=chan["width_kms"] * u.km / u.s,
+                velocity_range=vrange, systemic_velocity=sky["systemic_velocity_kms"] * u.km / u.s,
+                position=(sky["ra_deg"] * u.deg, sky["dec_deg"] * u.deg),
+                t_bg=sky["background_k"] * u.K,
+                t_ex=None if tr["t_ex_k"] is None else tr["t_ex_k"] * u.K,
+                excitation_options=_lvg_options(tr), products=products, progress=progress,
+                memory=memory, executor=executor, hyperfine=tr.get("hyperfine"))
 
 
 def _sky_size_arcsec(snap, lazy, los, distance_pc):

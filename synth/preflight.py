@@ -225,28 +225,23 @@ def check_cube_size(n_chan, shape, n_tracers=1, budget=None, n_cubes=2):
                                     f"{exc}") from None
 
 
-#: LVG holds the whole snapshot in memory (velocity gradients cross tiles). Measured with
-#: tracemalloc on demo clouds of 32^3 and 64^3 (C18O 1-0): the solver's peak is ~40 MB of
-#: tables plus ~8 bytes per cell; these figures add a margin of two.
-LVG_FIXED_BYTES = 80_000_000
-LVG_BYTES_PER_CELL = 16
-#: A snapshot in memory: n, T, 3 velocity components, sigma and an abundance, float64 when
-#: read from a file (the demo cloud stores float32).
-SNAPSHOT_BYTES_PER_CELL = {"file": 56, "demo": 24}
-
-
-def lvg_memory_need(shape, demo, n_chan=None, n_cubes=2):
-    """Bytes an LVG tracer needs at its peak: the snapshot in memory plus the larger of the
-    solver's work and (the output cubes plus its excitation, 8 bytes per cell)."""
-    cells = shape[0] * shape[1] * shape[2]
-    snap = cells * SNAPSHOT_BYTES_PER_CELL["demo" if demo else "file"]
-    cubes = 0 if n_chan is None else n_cubes * n_chan * shape[0] * shape[1] * 4
-    return snap + max(LVG_FIXED_BYTES + cells * LVG_BYTES_PER_CELL, cubes + 8 * cells)
+def lvg_memory_need(shape, demo=False, n_chan=None, n_cubes=2):
+    """Bytes an LVG tracer needs at least under --memory: the larger of building its table
+    (before the cubes exist) and the output cubes plus one tile of one row with its one-row
+    halo (synth.transfer.tiles.plan_tiles with the LVG block's own bytes). The snapshot is
+    read block by block (a file) or was already in memory (``demo``): not counted."""
+    from .excitation.blocks import LVG_BYTES_PER_CELL, LVG_TABLE_BYTES
+    from .transfer.tiles import BYTES_PER_CELL
+    nx, ny, nz = shape
+    cubes = 0 if n_chan is None else n_cubes * n_chan * nx * ny * 4
+    tile = 3 * ny * nz * (BYTES_PER_CELL + LVG_BYTES_PER_CELL) + ny * (n_chan or 0) * 4 * (
+        n_cubes + 1)
+    return max(LVG_TABLE_BYTES, cubes + tile)
 
 
 def _check_lvg_memory(conf, shape, budget, n_chan):
-    """With --memory, an LVG tracer must fit in it with the whole snapshot in memory; say up
-    front by how much it does not."""
+    """With --memory, an LVG tracer must fit in it (its table, then its cubes and one tile
+    read block by block); say up front by how much it does not."""
     lvg = [(i, tr) for i, tr in enumerate(conf["tracer"]) if tr["excitation"] != "lte"]
     if budget is None or not lvg or shape is None:
         return
@@ -255,11 +250,10 @@ def _check_lvg_memory(conf, shape, budget, n_chan):
         i, tr = lvg[0]
         nx, ny, nz = shape
         raise MemoryBudgetError(
-            f"{_where_tracer(tr, i)} has excitation = \"{tr['excitation']}\", which holds the "
-            f"whole snapshot in memory (velocity gradients cross tiles): about {_size(need)} "
-            f"for {nx} x {ny} x {nz} cells, {_size(need - budget)} more than --memory "
-            f"{_size(budget)}; raise --memory to at least {_size(need)} or use "
-            "excitation = \"lte\" (read tile by tile)")
+            f"{_where_tracer(tr, i)} has excitation = \"{tr['excitation']}\", which needs about "
+            f"{_size(need)} for {nx} x {ny} x {nz} cells (its LVG table, then the cubes and one "
+            f"tile), {_size(need - budget)} more than --memory {_size(budget)}; raise --memory "
+            f"to at least {_size(need)}")
 
 
 def _ram():

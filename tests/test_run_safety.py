@@ -373,37 +373,36 @@ LVG_RUN = TINY.replace('abundance = 2e-6', 'abundance = 2e-6\nexcitation = "lvg"
 
 
 def test_lvg_over_memory_refused_up_front(tmp_path, capsys, monkeypatch):
-    """An LVG tracer holds the whole snapshot in memory: with a --memory it cannot fit, the
-    run says so before any work, with the size it needs and by how much it is over."""
+    """An LVG tracer needs its table (built before the cubes) and then its cubes and one
+    tile: with a --memory below that, the run says so before any work, with the size it
+    needs and by how much it is over."""
     def no_work(*a, **k):
         raise AssertionError("the snapshot was built")
     monkeypatch.setattr("synth.pipeline.build_snapshot", no_work)
     p = tmp_path / "lvg.toml"
     p.write_text(LVG_RUN.replace("cells = 10", "cells = 64"))
-    rc, err = _run(["run", str(p), "--out", str(tmp_path / "o"), "--quiet", "--memory", "50MB"],
+    rc, err = _run(["run", str(p), "--out", str(tmp_path / "o"), "--quiet", "--memory", "30MB"],
                    capsys)
     assert rc == 2
-    assert ("excitation = \"lvg\", which holds the whole snapshot in memory" in err
-            and "more than --memory 50 MB" in err and "raise --memory to at least" in err)
+    assert ("excitation = \"lvg\", which needs about 40 MB" in err
+            and "more than --memory 30 MB" in err and "raise --memory to at least" in err)
     assert sorted(os.listdir(tmp_path)) == ["lvg.toml"]
 
 
-def test_lvg_transfer_budget_leaves_room_for_the_snapshot(monkeypatch):
-    """With --memory, the transfer stage of an LVG tracer gets the budget less the snapshot
-    it holds in memory (an LTE tracer, read by tiles or not, gets the whole budget)."""
-    import numpy as np
+def test_lvg_transfer_gets_the_whole_budget(monkeypatch):
+    """With --memory, an LVG tracer is read block by block like an LTE one: its transfer
+    stage gets the whole budget (the snapshot is no longer held beside it)."""
     from synth import pipeline
     from synth.config import validate_config
     import tomllib
     seen = []
 
     def fake(view, line, abundance, excitation, **kw):
-        seen.append((excitation, kw["memory"], sum(
-            a.nbytes for a in view._cgs.values() if isinstance(a, np.ndarray))))
+        seen.append((excitation, kw["memory"]))
         raise StopIteration
     monkeypatch.setattr("synth.transfer.synthesize.synthesize_products", fake)
     conf = validate_config(tomllib.loads(LVG_RUN))
     with pytest.raises((StopIteration, RuntimeError)):
         list(pipeline.synthesize_config(conf, memory=100_000_000))
-    (excitation, budget, held), = seen
-    assert excitation == "lvg" and held > 0 and budget == 100_000_000 - held
+    (excitation, budget), = seen
+    assert excitation == "lvg" and budget == 100_000_000

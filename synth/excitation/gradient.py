@@ -29,7 +29,10 @@ from numba import njit, prange
 from ..errors import ExcitationError
 from ..radiation import AMU_CGS, K_CGS
 
-__all__ = ["velocity_gradient_norm", "sobolev_column", "FWHM_PER_SIGMA"]
+__all__ = ["velocity_gradient_norm", "sobolev_column", "FWHM_PER_SIGMA", "GRADIENT_HALO"]
+
+#: Rows of halo a block needs on each side for its velocity gradients (central differences).
+GRADIENT_HALO = 1
 
 #: FWHM / sigma of a Gaussian, sqrt(8 ln 2).
 FWHM_PER_SIGMA = float(np.sqrt(8.0 * np.log(2.0)))
@@ -42,9 +45,10 @@ def _span(c, n):
 
 
 @njit(parallel=True, cache=True)
-def _gradient_norm(vx, vy, vz, dx, out):
+def _gradient_norm(vx, vy, vz, dx, i_start, out):
     nx, ny, nz = vx.shape
-    for i in prange(nx):
+    for ii in prange(out.shape[0]):
+        i = i_start + ii
         g = np.zeros((3, 3))
         i0, i1 = _span(i, nx)
         for j in range(ny):
@@ -60,7 +64,7 @@ def _gradient_norm(vx, vy, vz, dx, out):
                 for a in range(3):
                     for b in range(3):
                         s += g[a, b] * g[a, b] + g[a, b] * g[b, a]
-                out[i, j, k] = np.sqrt(s / 15.0) / dx
+                out[ii, j, k] = np.sqrt(s / 15.0) / dx
 
 
 @njit(parallel=True, cache=True)
@@ -74,7 +78,7 @@ def _sobolev(grad, n_h2, abund, t_k, sig2, inv_mass, floor_per_fwhm, out):
                 out[i, j, k] = n_h2[i, j, k] * abund[i, j, k] / g
 
 
-def velocity_gradient_norm(velocity_cms, cell_size_cm):
+def velocity_gradient_norm(velocity_cms, cell_size_cm, rows=None):
     """Direction-averaged (rms) |dv/ds| per cell, s^-1, float32 (module docstring).
 
     Parameters
@@ -82,12 +86,17 @@ def velocity_gradient_norm(velocity_cms, cell_size_cm):
     velocity_cms : ndarray (3, nx, ny, nz)
         Velocity components, cm/s.
     cell_size_cm : float
+    rows : slice, optional
+        Only the x rows ``rows`` (a block read with :data:`GRADIENT_HALO` rows of halo on
+        each side that is not a box face: the rows inside get exactly the whole-grid values,
+        the central differences reaching into the halo).
     """
     v = np.asarray(velocity_cms)
     if v.ndim != 4 or v.shape[0] != 3:
         raise ExcitationError(f"velocity must have shape (3, nx, ny, nz), got {v.shape}")
-    out = np.empty(v.shape[1:], dtype=np.float32)
-    _gradient_norm(v[0], v[1], v[2], float(cell_size_cm), out)
+    start, stop, _ = (rows or slice(None)).indices(v.shape[1])
+    out = np.empty((max(0, stop - start),) + v.shape[2:], dtype=np.float32)
+    _gradient_norm(v[0], v[1], v[2], float(cell_size_cm), start, out)
     return out
 
 
@@ -96,7 +105,8 @@ def _field(value, shape):
     return np.broadcast_to(arr, shape) if arr.ndim == 0 else arr
 
 
-def sobolev_column(snapshot, abundance, mass_amu, max_escape_length_cm=None, grad=None):
+def sobolev_column(snapshot, abundance, mass_amu, max_escape_length_cm=None, grad=None,
+                   rows=None):
     """K = n_mol / max(|dv/ds|, dv_FWHM / L_max) per cell, cm^-3 s, float32.
 
     Parameters
@@ -109,19 +119,27 @@ def sobolev_column(snapshot, abundance, mass_amu, max_escape_length_cm=None, gra
     max_escape_length_cm : float, optional
         L_max; default the longest box edge.
     grad : ndarray, optional
-        Precomputed :func:`velocity_gradient_norm`.
+        Precomputed :func:`velocity_gradient_norm` (of the rows ``rows``).
+    rows : slice, optional
+        Only these x rows (a block with a one-cell halo, see :func:`velocity_gradient_norm`;
+        give ``max_escape_length_cm`` then, the default being this snapshot's longest edge).
     """
-    shape = snapshot.shape
     if max_escape_length_cm is None:
-        max_escape_length_cm = max(shape) * snapshot.cell_size_cm
+        max_escape_length_cm = max(snapshot.shape) * snapshot.cell_size_cm
+    rows = rows or slice(None)
+    start, stop, _ = rows.indices(snapshot.shape[0])
+    shape = (max(0, stop - start),) + tuple(snapshot.shape[1:])
     if not (np.isfinite(max_escape_length_cm) and max_escape_length_cm > 0):
         raise ExcitationError(f"max_escape_length must be a positive length, got "
                               f"{max_escape_length_cm!r} cm")
     if grad is None:
-        grad = velocity_gradient_norm(snapshot.velocity_cms, snapshot.cell_size_cm)
+        grad = velocity_gradient_norm(snapshot.velocity_cms, snapshot.cell_size_cm, rows)
     sig = np.asarray(snapshot.sigma_turb_cms, dtype=np.float64)
+    sig = sig if sig.ndim == 0 else sig[rows]
+    ab = np.asarray(abundance, dtype=np.float64)
+    ab = ab if ab.ndim == 0 else ab[rows]
     out = np.empty(shape, dtype=np.float32)
-    _sobolev(grad, snapshot.n_h2_cm3, _field(np.asarray(abundance, dtype=np.float64), shape),
-             snapshot.t_kin_k, _field(sig**2, shape), K_CGS / (mass_amu * AMU_CGS),
+    _sobolev(grad, snapshot.n_h2_cm3[rows], _field(ab, shape), snapshot.t_kin_k[rows],
+             _field(sig**2, shape), K_CGS / (mass_amu * AMU_CGS),
              1.0 / float(max_escape_length_cm), out)
     return out

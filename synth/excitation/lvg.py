@@ -28,6 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import astropy.units as u
+from numba import njit
 
 from ..errors import ExcitationError
 from ..radiation import T_CMB_K, radiation_temperature
@@ -37,7 +38,8 @@ from .statistical_equilibrium import (check_temperature_range, collision_matrix,
                                       solve_levels, H2_SPECIES)
 
 __all__ = ["GEOMETRIES", "CRITICAL_DENSITY_FORMS", "OneZoneExcitation", "excite",
-           "format_excitation_table", "critical_density", "lvg_excitation", "GAUSS_AREA"]
+           "format_excitation_table", "critical_density", "lvg_excitation", "lvg_blocks",
+           "LvgBlocks", "GAUSS_AREA"]
 
 #: int of a Gaussian of unit peak over velocity / FWHM = sqrt(pi / (4 ln 2)).
 GAUSS_AREA = float(np.sqrt(np.pi / (4.0 * np.log(2.0))))
@@ -344,15 +346,31 @@ def _progress(progress):
                           f"got {progress!r}")
 
 
-def _sample_cells(active, n, rng):
-    """Up to n distinct random flat indices of active cells."""
-    flat = active.ravel()
-    n_active = int(flat.sum())
-    if n_active <= 4 * n or n_active < flat.size / 4:
-        return rng.choice(np.flatnonzero(flat), size=min(n, n_active), replace=False)
-    picks = np.unique(rng.integers(0, flat.size, size=8 * n))
-    picks = picks[flat[picks]]
-    return rng.permutation(picks)[:n]
+#: Cells per pass when a snapshot is read block by block without a plan (~1 M cells).
+BLOCK_CELLS = 1 << 20
+
+
+def _hash_keys(flat, seed):
+    """A pseudo-random uint64 key per flat cell index (splitmix64 of index and seed; Steele,
+    Lea & Flood 2014, OOPSLA, "Fast splittable pseudorandom number generators"). The sample
+    is the active cells with the smallest keys, so it does not depend on how the snapshot is
+    cut into blocks."""
+    return _splitmix(np.ascontiguousarray(flat, dtype=np.int64), np.int64(seed))
+
+
+@njit(cache=True)
+def _splitmix(flat, seed):
+    out = np.empty(flat.size, dtype=np.uint64)
+    gold = np.uint64(0x9E3779B97F4A7C15)
+    m1 = np.uint64(0xBF58476D1CE4E5B9)
+    m2 = np.uint64(0x94D049BB133111EB)
+    s = np.uint64(seed) * gold
+    for i in range(flat.size):
+        z = np.uint64(flat[i]) * gold + s + gold
+        z = (z ^ (z >> np.uint64(30))) * m1
+        z = (z ^ (z >> np.uint64(27))) * m2
+        out[i] = z ^ (z >> np.uint64(31))
+    return out
 
 
 def _log_range(arr, where):
@@ -385,7 +403,8 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="expanding", ortho_par
     transfer uses. Populations come from a table over (n_H2, T_kin, K), refined until the
     line's T_R, optical depth and source function J(T_ex) - J(T_bg) each differ from direct
     solves of ``n_check`` random cells by less than ``accuracy``
-    (:mod:`synth.excitation.tables`).
+    (:mod:`synth.excitation.tables`). The whole grid at once; :func:`lvg_blocks` gives the
+    same values block by block.
 
     Parameters
     ----------
@@ -414,49 +433,146 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="expanding", ortho_par
         ("table_error", the largest of "table_error_t_r", "table_error_tau" and
         "table_error_source"), the table shape and size, the number of direct solves and ranges.
     """
-    from .gradient import sobolev_column
     from .product import Excitation
-    from .tables import apply_table, build_table
+    report = _progress(progress)
+    blocks = lvg_blocks(snapshot, line, abundance, geometry=geometry,
+                        ortho_para_ratio=ortho_para_ratio, t_bg_k=t_bg_k,
+                        max_escape_length=max_escape_length, accuracy=accuracy,
+                        partners=partners, seed=seed, progress=report, n_check=n_check,
+                        max_table_nodes=max_table_nodes)
+    shape = snapshot.shape
+    t_ex = np.empty(shape, np.float32)
+    op = np.empty(shape, np.float32)
+    for x0, x1 in _passes(shape, None):
+        blk = snapshot.block(x0, x1, halo=blocks.halo)
+        lo = max(0, x0 - blocks.halo)
+        e = blocks(blk, x0, x1, slice(x0 - lo, x1 - lo))
+        t_ex[x0:x1], op[x0:x1] = e.t_ex_k, e.opacity_integral
+    if report is not None:
+        report(1.0)
+    return Excitation(line, t_ex, op, "lvg", blocks.info)
+
+
+def _passes(shape, rows):
+    """(x0, x1) blocks of ``rows`` rows (default ~BLOCK_CELLS cells each)."""
+    nx = shape[0]
+    rows = rows or max(1, min(nx, BLOCK_CELLS // max(1, shape[1] * shape[2])))
+    return [(x0, min(nx, x0 + rows)) for x0 in range(0, nx, int(rows))]
+
+
+class LvgBlocks:
+    """The LVG excitation of a snapshot, block by block: a table built once
+    (:func:`lvg_blocks`), applied to each block read with a one-cell halo (its velocity
+    gradients). Called as ``blocks(block, x0, x1, inner)``: ``block`` holds the view's rows
+    x0:x1 at ``block`` rows ``inner`` (the rest is halo); returns their :class:`Excitation`.
+    Small; pickles to dask workers."""
+
+    halo = 1
+
+    def __init__(self, line, table, system, k_line, abundance, mass_amu, l_max_cm, t_bg_k,
+                 info):
+        self.line, self.table, self.system, self.k_line = line, table, system, k_line
+        self.abundance, self.mass_amu = abundance, mass_amu
+        self.l_max_cm, self.t_bg_k, self.info = l_max_cm, t_bg_k, info
+
+    def __call__(self, block, x0, x1, inner):
+        from .gradient import sobolev_column
+        from .product import Excitation
+        from .tables import apply_table
+        ab = block.abundance_for(self.line.species, self.abundance)
+        kcol = sobolev_column(block, ab, self.mass_amu, self.l_max_cm, rows=inner)
+        if self.table is None:  # no active cell anywhere
+            return Excitation(self.line, np.full(kcol.shape, self.t_bg_k, np.float32),
+                              np.zeros(kcol.shape, np.float32), "lvg", self.info)
+        t_ex, op = apply_table(self.table, self.system, self.k_line, block, ab, kcol,
+                               self.t_bg_k, rows=inner)
+        return Excitation(self.line, t_ex, op, "lvg", self.info)
+
+
+def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_ratio=None,
+               t_bg_k=T_CMB_K, max_escape_length=None, accuracy=0.01, partners=None,
+               seed=0, progress=None, n_check=1000, max_table_nodes=60000, rows=None):
+    """Build the LVG table of ``source`` (a Snapshot or any block source: ``shape``,
+    ``cell_size_cm``, ``block(x0, x1, halo)``) reading it ``rows`` x rows at a time with a
+    one-cell halo, and return the :class:`LvgBlocks` that applies it per block.
+
+    One pass over the blocks finds the ranges of log n(H2), log T_kin and log K over the
+    active cells (n > 0, K > 0) and the check sample: the ``n_check`` active cells with the
+    smallest :func:`_hash_keys` of their flat index (a seeded random sample that does not
+    depend on ``rows``, so a run read from a file with a small budget gets exactly the table
+    of a run in memory). Options as :func:`lvg_excitation`.
+    """
+    from .gradient import GRADIENT_HALO, sobolev_column
+    from .tables import build_table
     check_options(geometry, ortho_para_ratio)
     l_max = _check_snapshot_options(abundance, accuracy, t_bg_k, max_escape_length, n_check)
     report = _progress(progress)
     mol = line.collision_molecule()
     k_mol = mol.transition_index(line.transition)
-    t_kin = snapshot.t_kin_k
-    t_lo, t_hi = float(t_kin.min()), float(t_kin.max())
+    shape = tuple(int(n) for n in source.shape)
+    plane = shape[1] * shape[2]
+    if l_max is None:
+        l_max = max(shape) * source.cell_size_cm
+    t_lo, t_hi, n_active = np.inf, -np.inf, 0
+    lims = [[np.inf, -np.inf] for _ in range(3)]
+    keys = np.empty(0, np.uint64)
+    picked = np.empty((0, 3))
+    for x0, x1 in _passes(shape, rows):
+        blk = source.block(x0, x1, halo=GRADIENT_HALO)
+        lo = max(0, x0 - GRADIENT_HALO)
+        inner = slice(x0 - lo, x1 - lo)
+        t = blk.t_kin_k[inner]
+        t_lo, t_hi = min(t_lo, float(t.min())), max(t_hi, float(t.max()))
+        kcol = sobolev_column(blk, blk.abundance_for(line.species, abundance), mol.mass_amu,
+                              l_max, rows=inner)
+        n = blk.n_h2_cm3[inner]
+        active = (n > 0) & (kcol > 0)
+        count = int(active.sum())
+        if not count:
+            continue
+        n_active += count
+        fields = (n, t, kcol)
+        for a, f in enumerate(fields):
+            lims[a][0] = min(lims[a][0], float(np.min(f, where=active, initial=np.inf)))
+            lims[a][1] = max(lims[a][1], float(np.max(f, where=active, initial=0.0)))
+        idx = np.flatnonzero(active)
+        k = _hash_keys(idx + x0 * plane, seed)
+        if k.size > n_check:
+            keep = np.argpartition(k, n_check - 1)[:n_check]
+            idx, k = idx[keep], k[keep]
+        vals = np.stack([f.ravel()[idx].astype(np.float64) for f in fields], axis=1)
+        keys, picked = np.concatenate([keys, k]), np.concatenate([picked, vals])
+        if keys.size > n_check:
+            keep = np.argpartition(keys, n_check - 1)[:n_check]
+            keys, picked = keys[keep], picked[keep]
+        del blk, kcol, n, t, active
+    info = {"geometry": geometry, "accuracy": accuracy, "active_cells": n_active}
     system = level_system(mol, t_hot_k=max(t_hi, t_bg_k), min_fraction=1e-10,
                           keep_below_k=float(mol.energy_k[mol.upper[k_mol]]))
+    info["levels"] = system.n_levels
     k_line = int(np.flatnonzero(system.lines == k_mol)[0])
     dens = partner_densities(system, [1.0], [t_lo], ortho_para_ratio, partners)
     check_temperature_range(system, t_lo, t_hi,
                             {p for p, d in zip(system.partners, dens) if np.any(d > 0)})
-    ab = snapshot.abundance_for(line.species, abundance)
-    kcol = sobolev_column(snapshot, ab, mol.mass_amu, l_max)
-    active = (snapshot.n_h2_cm3 > 0) & (kcol > 0)
-    info = {"geometry": geometry, "accuracy": accuracy, "levels": system.n_levels,
-            "active_cells": int(active.sum())}
-    if info["active_cells"] == 0:
+    args = (line, None, system, k_line, abundance, mol.mass_amu, l_max, t_bg_k, info)
+    if n_active == 0:
         info.update(table_error=0.0, table_error_t_r=0.0, table_error_tau=0.0,
                     table_error_source=0.0, table_shape=(0, 0, 0), table_nodes=0,
                     direct_solves=0)
-        shape = snapshot.shape
-        return Excitation(line, np.full(shape, t_bg_k, np.float32),
-                          np.zeros(shape, np.float32), "lvg", info)
-    fields = (snapshot.n_h2_cm3, t_kin, kcol)
-    ranges = [_log_range(f, active) for f in fields]
-    cells = _sample_cells(active, n_check, np.random.default_rng(seed))
-    sample = np.log10(np.stack([f.ravel()[cells].astype(np.float64) for f in fields], axis=1))
+        return LvgBlocks(*args)
+    ranges = [(float(np.log10(lo_)), float(np.log10(hi_))) for lo_, hi_ in lims]
+    sample = np.log10(picked[np.argsort(keys, kind="stable")])
     opts = {"geometry": geometry, "t_bg_k": t_bg_k, "ortho_para_ratio": ortho_para_ratio,
             "partners": partners}
     table = build_table(system, ranges, sample, (k_line, t_bg_k), opts, accuracy,
                         max_table_nodes, report)
-    t_ex, op = apply_table(table, system, k_line, snapshot, ab, kcol, t_bg_k)
-    if report is not None:
-        report(1.0)
     info.update(table_error=table.error, table_error_t_r=table.errors[0],
                 table_error_tau=table.errors[1], table_error_source=table.errors[2],
                 table_shape=table.shape,
                 table_nodes=int(np.prod(table.shape)), direct_solves=table.solves,
-                n_check=int(cells.size), ranges_log10={"n_h2_cm3": ranges[0],
-                                                       "t_kin_k": ranges[1], "k_cm3s": ranges[2]})
-    return Excitation(line, t_ex, op, "lvg", info)
+                n_check=int(sample.shape[0]), ranges_log10={"n_h2_cm3": ranges[0],
+                                                            "t_kin_k": ranges[1],
+                                                            "k_cm3s": ranges[2]})
+    blocks = LvgBlocks(*args)
+    blocks.table = table
+    return blocks

@@ -332,21 +332,24 @@ def _t_ex(e, f, t0, j_bg):
     return t0 / math.log1p(t0 / jj)
 
 
-def apply_table(table, system, k_line, snapshot, abundance, kcol, t_bg_k):
+def apply_table(table, system, k_line, snapshot, abundance, kcol, t_bg_k, rows=None):
     """Per-cell T_ex (K) and opacity_integral (s^-1), float32, from the table.
 
     opacity_integral = (c^3 A / (8 pi nu^3)) n_mol f with f = x_l g_u/g_l - x_u (Castor 1970;
     the convention of :mod:`synth.excitation.product`); empty cells get T_ex = T_bg and 0.
+    ``rows`` (a slice of x rows; ``kcol`` holds those rows only) applies it to part of a
+    block, the table being built once for the whole snapshot.
     """
     axes = table.axes
     step = np.array([a[1] - a[0] if a.size > 1 else 1.0 for a in axes])
-    shape = snapshot.shape
+    rows = rows or slice(None)
+    shape = kcol.shape
     ab = np.asarray(abundance, dtype=np.float64)
-    ab = np.broadcast_to(ab, shape) if ab.ndim == 0 else ab
+    ab = np.broadcast_to(ab, shape) if ab.ndim == 0 else ab[rows]
     t_ex = np.empty(shape, dtype=np.float32)
     op = np.empty(shape, dtype=np.float32)
     nu, _, tau_coef, j_bg = table.line
-    _apply(snapshot.n_h2_cm3, ab, snapshot.t_kin_k, kcol, np.array([a[0] for a in axes]), step,
+    _apply(snapshot.n_h2_cm3[rows], ab, snapshot.t_kin_k[rows], kcol, np.array([a[0] for a in axes]), step,
            np.array(table.shape, dtype=np.int64), np.ascontiguousarray(table.values[..., 0]),
            np.ascontiguousarray(table.values[..., 1]), table.scales[0], table.scales[1],
            H_CGS * nu / K_CGS, j_bg, tau_coef, float(t_bg_k), t_ex, op)

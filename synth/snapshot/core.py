@@ -17,11 +17,25 @@ import astropy.constants as const
 
 from ..errors import SnapshotError
 
-__all__ = ["Snapshot", "MEAN_MASS_PER_H2"]
+__all__ = ["Snapshot", "MEAN_MASS_PER_H2", "block_rows"]
 
 #: Mean gas mass per H2 molecule, 2.8 m_H (common practice; Kauffmann et al. 2008, A&A 487,
 #: 993, their appendix A, with a helium mass fraction of ~0.28).
 MEAN_MASS_PER_H2 = 2.8 * const.m_p.cgs  # m_H ~ m_p to 0.05 %
+
+
+def block_rows(x0, x1, halo, n):
+    """(lo, hi): the rows a block x0:x1 with ``halo`` rows on each side reads from an axis of
+    ``n`` rows (the halo is cut at the box faces). The block's own rows are
+    ``x0 - lo : x1 - lo`` of what is read."""
+    x0, x1, halo = int(x0), int(x1), int(halo)
+    if not 0 <= x0 < x1 <= n:
+        from ..errors import ConfigError
+        raise ConfigError(f"block {x0}:{x1} outside 0:{n}")
+    if halo < 0:
+        from ..errors import ConfigError
+        raise ConfigError(f"block halo must be >= 0 rows, got {halo}")
+    return max(0, x0 - halo), min(n, x1 + halo)
 
 
 def _as_quantity(value, unit, name):
@@ -246,6 +260,23 @@ class Snapshot:
     def box_size(self):
         """Edge lengths of the box, (Lx, Ly, Lz) as a Quantity in pc."""
         return (np.array(self.shape) * self.cell_size_cm * u.cm).to(u.pc)
+
+    def block(self, x0, x1, halo=0):
+        """Rows x in [x0 - halo, x1 + halo) (cut at the box faces) as a Snapshot of their own,
+        all y and z: the block protocol shared with
+        :meth:`synth.snapshot.lazy.SnapshotFile.block` (:func:`block_rows` gives the rows)."""
+        lo, hi = block_rows(x0, x1, halo, self.shape[0])
+        if (lo, hi) == (0, self.shape[0]):
+            return self
+        c = self._cgs
+        sig = c["sigma_turb_cms"]
+        abund = c["abundance"]
+        if abund is not None:
+            abund = {k: (v if np.ndim(v) == 0 else v[lo:hi]) for k, v in abund.items()}
+        return self._replace(n_h2_cm3=c["n_h2_cm3"][lo:hi], t_kin_k=c["t_kin_k"][lo:hi],
+                             velocity_cms=c["velocity_cms"][:, lo:hi],
+                             sigma_turb_cms=sig if np.ndim(sig) == 0 else sig[lo:hi],
+                             abundance=abund)
 
     def view(self, line_of_sight="z", edges=None):
         """This snapshot seen along another axis or rotation; see :func:`synth.snapshot.views.view`."""

@@ -276,8 +276,8 @@ def _abundance(src, spec, order):
     names, unit, explicit = spec["abundance"]
     if isinstance(names, str) and not explicit:
         prefix = "abundance_"
-        found = {n[len(prefix):]: n for n in src.names()
-                 if n.startswith(prefix) and not n.endswith("_unit")}
+        found = {n.lstrip("/")[len(prefix):]: n for n in src.names()  # HDF5 names start "/"
+                 if n.lstrip("/").startswith(prefix) and not n.endswith("_unit")}
         if src.has(names):
             return _array(src, names, order, "abundance")
         names = found or None

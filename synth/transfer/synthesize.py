@@ -1,32 +1,38 @@
 """synthesize: snapshot + line -> ideal PPV cube (K), the composition of excitation and transfer.
 
 The work is chunked over sky tiles (blocks of x rows, all y and z): memory grows with the
-tile and the output cube, never with snapshot x channels.
+tile and the output cube, never with snapshot x channels. Every source is read through one
+block protocol (``source.block(x0, x1, halo=h)``: a Snapshot in memory, a view of a
+:class:`~synth.snapshot.lazy.SnapshotFile`, a
+:class:`~synth.snapshot.views.RotatedView`), and the excitation arrives as a product or a
+per-block function (:mod:`synth.excitation.blocks`): the tile jobs import no solver and
+read no file but their own block. Where the jobs run (the executor, its threads, a spill of
+an in-memory snapshot for a cluster) is the caller's business (:mod:`synth.parallel`,
+:mod:`synth.pipeline`).
 """
 
-import os
 import warnings
-from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 import numpy as np
 import astropy.units as u
 from spectral_cube import SpectralCube
 
-from ..errors import ConfigError, ExcitationError, UnderResolvedVelocityWarning
-from ..excitation.product import EXCITATION_METHODS, Excitation
-from ..parallel import DaskExecutor, SerialExecutor
-from ..snapshot.core import Snapshot
+from ..errors import ConfigError, MemoryBudgetError, UnderResolvedVelocityWarning
+from ..excitation.product import Excitation
+from ..snapshot.core import Snapshot, block_rows
 from ..snapshot.lazy import SnapshotFile
 from ..molecules.hyperfine import with_hyperfine
 from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
-from ..excitation.gradient import FWHM_PER_SIGMA
 from .kernel import N_SIGMA, emission_counts, transfer_columns
 from .skycube import channel_grid, sky_wcs
-from .tiles import plan_tiles
+from .tiles import parse_memory, plan_tiles
 
-__all__ = ["synthesize", "synthesize_products", "SynthesisResult", "excite_snapshot",
-           "LINES_OF_SIGHT", "auto_velocity_range"]
+__all__ = ["synthesize", "synthesize_products", "SynthesisResult", "LINES_OF_SIGHT",
+           "auto_velocity_range", "view_source"]
+
+#: FWHM / sigma of a Gaussian, sqrt(8 ln 2) (the same constant as synth.excitation.gradient).
+FWHM_PER_SIGMA = float(np.sqrt(8.0 * np.log(2.0)))
 
 #: UnderResolvedVelocityWarning above this fraction of the emission from under-resolved cells.
 UNDERRESOLVED_WARN_FRACTION = 0.25
@@ -54,22 +60,21 @@ class SynthesisResult:
     stats: dict = field(default_factory=dict)
 
 
-def excite_snapshot(snapshot, line, abundance, excitation="lte", t_ex=None, options=None):
-    """Run the excitation stage chosen by name; returns an :class:`Excitation`."""
-    if excitation not in EXCITATION_METHODS:
-        raise ExcitationError(
-            f"unknown excitation method {excitation!r}; valid: {', '.join(EXCITATION_METHODS)}")
-    options = dict(options or {})
-    if excitation == "lte":
-        if options:
-            raise ExcitationError(
-                f"excitation options {sorted(options)} apply to 'lvg' only, not to 'lte'")
-        from ..excitation.lte import lte_excitation
-        return lte_excitation(snapshot, line, abundance, t_ex=t_ex)
-    if t_ex is not None:
-        raise ExcitationError("t_ex fixes an LTE excitation temperature; it cannot be used with 'lvg'")
-    from ..excitation.lvg import lvg_excitation
-    return lvg_excitation(snapshot, line, abundance, **options)
+def view_source(snapshot, line_of_sight="z"):
+    """The block source a tracer is synthesised from: an in-memory Snapshot seen along
+    ``line_of_sight`` (its view, in memory), a SnapshotFile's view (read block by block), or a
+    block source already seen along its line of sight (``line_of_sight`` "z")."""
+    if isinstance(snapshot, Snapshot):
+        return snapshot if line_of_sight == "z" else snapshot.view(line_of_sight)
+    if isinstance(snapshot, SnapshotFile):
+        return snapshot.view(line_of_sight)
+    if not hasattr(snapshot, "block"):
+        raise ConfigError(f"snapshot must be a Snapshot, a SnapshotFile or a view of one, got "
+                          f"{type(snapshot).__name__}")
+    if line_of_sight != "z":
+        raise ConfigError(f"{type(snapshot).__name__} is already a view; line_of_sight must be "
+                          f"'z', got {line_of_sight!r}")
+    return snapshot
 
 
 def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z", hyperfine=None):
@@ -77,13 +82,14 @@ def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z", hyp
     line split into hyperfine components, ``hyperfine`` as in :func:`synthesize_products`,
     every component's offset).
 
-    ``snapshot`` is a Snapshot already seen along its line of sight, or a SnapshotFile (read
-    slab by slab along ``line_of_sight``).
+    ``snapshot`` is a Snapshot already seen along its line of sight, a SnapshotFile (read
+    slab by slab along ``line_of_sight``) or a block source (read block by block).
     """
-    if isinstance(snapshot, SnapshotFile):
-        nx = snapshot.view_shape(line_of_sight)[0]
-        step = max(1, (1 << 22) // max(1, int(np.prod(snapshot.shape)) // nx))
-        parts = [_extremes(snapshot.block(x0, min(nx, x0 + step), line_of_sight), line)
+    if not isinstance(snapshot, Snapshot):
+        src = view_source(snapshot, line_of_sight)
+        nx = src.shape[0]
+        step = max(1, (1 << 22) // max(1, int(np.prod(src.shape)) // nx))
+        parts = [_extremes(src.block(x0, min(nx, x0 + step)), line)
                  for x0 in range(0, nx, step)]
         lo, hi, sig = (min(p[0] for p in parts), max(p[1] for p in parts),
                        max(p[2] for p in parts))
@@ -177,42 +183,44 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     dist_cm = _positive(distance, u.cm, "distance")
     v_sys = _finite(systemic_velocity, u.km / u.s, "systemic_velocity")
     t_bg_k = _positive(t_bg, u.K, "t_bg")
-    on_disk = isinstance(snapshot, SnapshotFile)
-    if on_disk:
-        snap, shape = None, snapshot.view_shape(line_of_sight)
-    else:
-        snap = snapshot if line_of_sight == "z" else snapshot.view(line_of_sight)
-        shape = snap.shape
+    source = view_source(snapshot, line_of_sight)
+    shape = tuple(source.shape)
     hfs = with_hyperfine(line, hyperfine)
     if velocity_range is None:
-        velocity_range = auto_velocity_range(snapshot if on_disk else snap, line, v_sys,
-                                             line_of_sight=line_of_sight, hyperfine=hyperfine)
+        velocity_range = auto_velocity_range(source, line, v_sys, hyperfine=hyperfine)
     grid = channel_grid(channel_width, velocity_range)
-    exc = None
-    if excitation != "lte" or excitation_options:
-        if on_disk:
-            raise ConfigError("LVG excitation needs the snapshot in memory (velocity gradients "
-                              "across tiles); load it with SnapshotFile.load() first")
-        exc = excite_snapshot(snap, line, abundance, excitation, t_ex,
-                              _with_background(excitation, excitation_options, t_bg_k))
     n_cubes = 1 + ("tau" in products)
-    plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes,
-                      in_flight=getattr(executor or SerialExecutor(), "in_flight", 1),
-                      extra_fixed=0 if exc is None else 2 * exc.t_ex_k.nbytes,
-                      extra_per_cell=0 if hfs is None else 24 * len(hfs.fractions))
-    job = _Job(line, float(abundance), t_ex, grid, v_sys,
-               float(radiation_temperature(line.freq_hz, t_bg_k)), "tau" in products,
-               "column" in products, line_of_sight if on_disk else "z", hfs)
-    executor = executor or SerialExecutor()
-    with _worker_source(snapshot if on_disk else snap, exc, executor) as source:
-        data, tau, col, counts = _integrate(source, exc, plan, job, executor, progress)
+    in_flight = getattr(executor, "in_flight", 1)
+    name = excitation if isinstance(excitation, str) else None
+    from ..excitation.blocks import LVG_BYTES_PER_CELL, LVG_TABLE_BYTES, block_excitation
+    if name == "lvg" and memory is not None and parse_memory(memory) < LVG_TABLE_BYTES:
+        raise MemoryBudgetError(
+            f"memory budget {parse_memory(memory) / 1e6:.1f} MB is below the "
+            f"{LVG_TABLE_BYTES / 1e6:.0f} MB an LVG table needs while it is built; raise "
+            f"--memory to at least {LVG_TABLE_BYTES // 1_000_000}MB")
+    halo = 1 if name == "lvg" else getattr(excitation, "halo", 0)
+    extra_cell = (0 if hfs is None else 24 * len(hfs.fractions)) + (
+        LVG_BYTES_PER_CELL if name == "lvg" else getattr(excitation, "extra_bytes_per_cell", 0))
+    extra_fixed = 2 * excitation.t_ex_k.nbytes if isinstance(excitation, Excitation) else 0
+    source, extra_fixed, extra_cell = _rotation_budget(source, memory, shape, grid.n, n_cubes,
+                                                       extra_fixed, extra_cell)
+    plan = plan_tiles(shape, grid.n, memory, n_cubes=n_cubes, in_flight=in_flight,
+                      extra_fixed=extra_fixed, extra_per_cell=extra_cell, halo=halo)
+    if hasattr(source, "with_budget") and memory is not None:
+        source = source.with_budget(source.chunk_bytes, plan.tile_rows * shape[1] * shape[2])
+    blocks = block_excitation(source, line, abundance, excitation, t_ex,
+                              _with_background(excitation, excitation_options, t_bg_k),
+                              rows=plan.tile_rows)
+    job = _Job(line, grid, v_sys, float(radiation_temperature(line.freq_hz, t_bg_k)),
+               "tau" in products, "column" in products, float(abundance), hfs)
+    data, tau, col, counts = _integrate(source, blocks, plan, job, executor, progress)
     nx, ny, _ = shape
-    cell_cm = snapshot.block(0, 1, line_of_sight).cell_size_cm if on_disk else snap.cell_size_cm
+    cell_cm = source.cell_size_cm
     pixel_deg = np.degrees(cell_cm / dist_cm)
     wcs = sky_wcs(nx, ny, pixel_deg, grid, line.freq_hz, position)
     meta = {"BUNIT": "K", "LINE": str(line), "EXCIT": excitation, "HYPERFIN": hfs is not None,
             "ABUND": float(abundance), "DISTPC": dist_cm / u.pc.to(u.cm),
-            "LOS": str(line_of_sight), "TBG": t_bg_k}
+            "LOS": str(_axis_of(source, line_of_sight)), "TBG": t_bg_k}
     cube = _cube(data, wcs, meta, "K")
     tau_cube = (_cube(tau, wcs, dict(meta, BUNIT="", TAUKIND=TAU_KIND), "")
                 if tau is not None else None)
@@ -221,7 +229,7 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
              "integrated_k_kms": float(data.sum(dtype=np.float64) * grid.width_kms)}
     if tau is not None:
         stats["tau_max"] = float(np.max(tau))
-    info = exc.info if exc is not None else {"t_ex": "t_kin" if t_ex is None else "fixed"}
+    info = blocks.info
     stats["tiles"] = len(plan.tiles)
     stats["velocity_resolution"] = velocity_resolution(counts)
     return SynthesisResult(cube, tau_cube, column, info, stats)
@@ -246,85 +254,105 @@ def _cube(data, wcs, meta, unit):
     return SpectralCube(data=q, wcs=wcs, meta=dict(meta))  # keeps the array: no second copy
 
 
+def _axis_of(source, line_of_sight):
+    """The LOS card: the axis a file view is seen along (as before streaming), else the
+    argument (a view in memory or a rotation is recorded as its caller gave it)."""
+    axis = getattr(source, "line_of_sight", None)
+    return axis if isinstance(axis, str) else line_of_sight
+
+
+def _rotation_budget(source, memory, shape, n_channels, n_cubes, extra_fixed, extra_cell):
+    """A rotated view read block by block: the source rows it reads at once (an eighth of
+    what the budget leaves beside the cubes, at least three rows) are held beside the tiles,
+    and each output cell of a tile holds its resampling temporaries. Each tile reads the
+    source range its slab crosses, so the tiles get the larger share."""
+    if not hasattr(source, "with_budget"):
+        return source, extra_fixed, extra_cell
+    from ..snapshot.views import ROTATION_BYTES_PER_CELL
+    from .tiles import parse_memory
+    row = source.source_row_bytes()
+    whole = row * (source._shape_in[source._axis] + 1)
+    if memory is None:
+        chunk = whole
+    else:
+        free = parse_memory(memory) - n_cubes * n_channels * shape[0] * shape[1] * 4
+        chunk = int(min(whole, max(3 * row, free // 8)))
+    return (source.with_budget(chunk), extra_fixed + chunk,
+            extra_cell + ROTATION_BYTES_PER_CELL)
+
+
 @dataclass(frozen=True)
 class _Job:
-    """What every tile job needs besides its block (small; pickles to dask workers)."""
+    """What every tile job needs besides its block and its excitation (small; pickles to
+    dask workers). It reads its block (with the halo the excitation asks for), gets the
+    block's excitation from the block function and integrates its columns."""
 
     line: object
-    abundance: float
-    t_ex: object
     grid: object
     v_sys_kms: float
     j_bg: float
     want_tau: bool
     want_column: bool
-    line_of_sight: str
+    abundance: float
     hyperfine: object = None
 
-    def __call__(self, source, x0, x1, exc_block, numba_threads=None):
-        if numba_threads:  # one thread per dask worker process (threads_per_worker=1)
-            import numba
-            numba.set_num_threads(min(int(numba_threads), numba.config.NUMBA_NUM_THREADS))
-        block = source.block(x0, x1, self.line_of_sight) if isinstance(source, SnapshotFile) \
-            else source
-        if exc_block is None:
-            from ..excitation.lte import lte_excitation
-            exc_block = lte_excitation(block, self.line, self.abundance, t_ex=self.t_ex)
-        out, tau, counts = transfer_tile(block, self.line, exc_block, slice(0, x1 - x0),
-                                         self.grid, self.v_sys_kms, self.j_bg, self.want_tau,
+    def __call__(self, source, x0, x1, blocks):
+        halo = getattr(blocks, "halo", 0)
+        block = source.block(x0, x1, halo=halo)
+        lo = _Cut.offset(source, x0, x1, halo)
+        inner = slice(x0 - lo, x1 - lo)
+        exc = blocks(block, x0, x1, inner)
+        out, tau, counts = transfer_tile(block, self.line, exc, inner, self.grid,
+                                         self.v_sys_kms, self.j_bg, self.want_tau,
                                          want_resolution=True, hyperfine=self.hyperfine)
         col = None
         if self.want_column:
             x_ab = block.abundance_for(self.line.species, self.abundance)
-            col = (block.n_h2_cm3 * x_ab).sum(axis=2) * block.cell_size_cm
+            x_ab = x_ab if np.ndim(x_ab) == 0 else x_ab[inner]
+            col = (block.n_h2_cm3[inner] * x_ab).sum(axis=2) * block.cell_size_cm
         return out, tau, col, counts
 
 
-@contextmanager
-def _worker_source(source, exc, executor):
-    """What the tile jobs read from. On a local dask cluster an in-memory snapshot is
-    written once to a temporary HDF5 file that the workers slice themselves, instead of
-    pickling every tile through this process (which then competes with the workers for the
-    cores); elsewhere the source is used as it is."""
-    spill = (isinstance(source, Snapshot) and exc is None and getattr(executor, "local", False)
-             and all(np.ndim(a) == 3 for a in (source._cgs["abundance"] or {}).values()))
-    if not spill:
-        yield source
-        return
-    from ..snapshot.readers import write_hdf5
-    from ..rundir import remove_temp_folder, temp_folder
-    folder = temp_folder()  # removed at exit too, and by the next run if this one is killed
-    try:
-        path = os.path.join(folder, "snapshot.h5")
-        write_hdf5(source, path)
-        sig = source.sigma_turb_cms
-        kw = {"sigma_turb": float(sig) * u.cm / u.s} if np.ndim(sig) == 0 else {}
-        yield SnapshotFile(path, **kw)
-    finally:
-        remove_temp_folder(folder)
+class _Cut:
+    """The rows a tile job reads, cut from an in-memory snapshot in this process (so only
+    they travel to a dask worker): ``block`` returns them for the tile they were cut for."""
+
+    def __init__(self, snapshot, x0, x1, halo):
+        self.lo = block_rows(x0, x1, halo, snapshot.shape[0])[0]
+        self.shape = snapshot.shape
+        self.snapshot = snapshot.block(x0, x1, halo=halo)
+
+    def block(self, x0, x1, halo=0):
+        return self.snapshot
+
+    @staticmethod
+    def offset(source, x0, x1, halo):
+        if isinstance(source, _Cut):
+            return source.lo
+        return block_rows(x0, x1, halo, source.shape[0])[0]
 
 
-def _block(snap, x0, x1):
-    """Columns x0:x1 of an in-memory snapshot as a Snapshot of their own."""
-    c = snap._cgs
-    sig = c["sigma_turb_cms"]
-    abund = c["abundance"]
-    if abund is not None:
-        abund = {k: (v if np.ndim(v) == 0 else v[x0:x1]) for k, v in abund.items()}
-    return snap._replace(n_h2_cm3=c["n_h2_cm3"][x0:x1], t_kin_k=c["t_kin_k"][x0:x1],
-                         velocity_cms=c["velocity_cms"][:, x0:x1],
-                         sigma_turb_cms=sig if np.ndim(sig) == 0 else sig[x0:x1],
-                         abundance=abund)
+class _Slice:
+    """The rows x0:x1 of a whole-grid Excitation, cut in this process for a remote job."""
+
+    halo = 0
+
+    def __init__(self, blocks, x0, x1):
+        self.exc = blocks(None, x0, x1, None)
+        self.info = blocks.info
+
+    def __call__(self, block, x0, x1, inner):
+        return self.exc
 
 
-def _exc_block(exc, x0, x1):
-    if exc is None:
-        return None
-    return Excitation(exc.line, exc.t_ex_k[x0:x1], exc.opacity_integral[x0:x1], exc.method,
-                      exc.info)
+def _serial_map(fn, args_list, progress=None):
+    for i, args in enumerate(args_list):
+        yield i, fn(*args)
+        if progress is not None:
+            progress.update(1)
 
 
-def _integrate(source, exc, plan, job, executor, progress):
+def _integrate(source, blocks, plan, job, executor, progress):
     """Run the tile jobs; assemble the (v, y, x) cube, optional tau cube and column map."""
     nx, ny, _ = plan.shape
     nch = plan.n_channels
@@ -332,21 +360,28 @@ def _integrate(source, exc, plan, job, executor, progress):
     tau = np.empty((nch, ny, nx), dtype=np.float32) if job.want_tau else None
     col = np.empty((nx, ny)) if job.want_column else None
     tiles = plan.tiles
-    threads = 1 if isinstance(executor, DaskExecutor) else None
-    on_disk = isinstance(source, SnapshotFile)
+    remote = executor is not None and not getattr(executor, "in_process", True)
+    halo = getattr(blocks, "halo", 0)
     counts = np.zeros(4)
 
     def args():
         for x0, x1 in tiles:
-            src = source if on_disk else _block(source, x0, x1)
-            yield src, x0, x1, _exc_block(exc, x0, x1), threads
+            if remote and isinstance(source, Snapshot):
+                src = _Cut(source, x0, x1, halo)
+            else:
+                src = source
+            blk = blocks
+            if remote and hasattr(blocks, "excitation"):  # a whole-grid product: its rows
+                blk = _Slice(blocks, x0, x1)
+            yield src, x0, x1, blk
 
     bar = None
     if progress:
         from tqdm.auto import tqdm
         bar = tqdm(total=len(tiles), desc=f"{job.line} tiles", unit="tile", leave=False)
+    run = _serial_map if executor is None else executor.map
     try:
-        for i, (out, tau_t, col_t, counts_t) in executor.map(job, args(), progress=bar):
+        for i, (out, tau_t, col_t, counts_t) in run(job, args(), progress=bar):
             counts += counts_t
             x0, x1 = tiles[i]
             n = x1 - x0
@@ -375,9 +410,10 @@ def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=Fals
     nx, ny, nz = snap.shape
     n = x_slice.stop - x_slice.start
     shape = (n * ny, nz)
-    t_ex = exc.t_ex_k[x_slice].astype(np.float64)
+    ex_rows = slice(None) if exc.t_ex_k.shape[0] == n else x_slice  # exc of x_slice, or all
+    t_ex = exc.t_ex_k[ex_rows].astype(np.float64)
     src = radiation_temperature(line.freq_hz, t_ex).astype(np.float32).reshape(shape)
-    tau_int = (exc.opacity_integral[x_slice] * (snap.cell_size_cm * 1e-5)).astype(np.float32)
+    tau_int = (exc.opacity_integral[ex_rows] * (snap.cell_size_cm * 1e-5)).astype(np.float32)
     vz = snap.velocity_cms[2, x_slice]
     v0 = (vz * 1e-5 + v_sys_kms).astype(np.float32).reshape(shape)
     delta = (np.abs(np.gradient(vz, axis=2)) * 1e-5 if nz > 1 else np.zeros_like(vz))

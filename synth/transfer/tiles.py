@@ -64,7 +64,7 @@ def _row_bytes(ny, nz, n_channels, n_cubes, extra_per_cell=0):
 
 
 def plan_tiles(shape, n_channels, memory=None, n_cubes=2, in_flight=1, extra_fixed=0,
-               extra_per_cell=0):
+               extra_per_cell=0, halo=0):
     """Choose the tile size.
 
     Parameters
@@ -77,21 +77,28 @@ def plan_tiles(shape, n_channels, memory=None, n_cubes=2, in_flight=1, extra_fix
         tiles at once (one per worker). Without a budget, tiles of ~1 M cells.
     extra_per_cell : int
         Bytes per cell held beyond BYTES_PER_CELL (a line split into m hyperfine components
-        holds its kernel inputs m times).
+        holds its kernel inputs m times; an LVG block its gradients and table values; a
+        rotated view its resampling temporaries).
+    halo : int
+        Rows each tile reads beyond its own on either side (an LVG tile: 1, for its velocity
+        gradients); they cost their fields like the tile's own rows.
     """
     nx, ny, nz = shape
     fixed = n_cubes * n_channels * ny * nx * 4 + int(extra_fixed)
     row = _row_bytes(ny, nz, n_channels, n_cubes, extra_per_cell)
+    halo_bytes = 2 * int(halo) * ny * nz * (BYTES_PER_CELL + int(extra_per_cell))
     if memory is None:
         rows = max(1, min(nx, DEFAULT_TILE_CELLS // max(1, ny * nz)))
-        return TilePlan(tuple(shape), n_channels, rows, fixed, rows * row * in_flight)
+        return TilePlan(tuple(shape), n_channels, rows, fixed,
+                        (rows * row + halo_bytes) * in_flight)
     budget = parse_memory(memory)
-    minimum = fixed + row * in_flight
+    minimum = fixed + (row + halo_bytes) * in_flight
     if budget < minimum:
         raise MemoryBudgetError(
             f"memory budget {budget / 1e6:.1f} MB is below the minimum {minimum / 1e6:.1f} MB "
             f"this run needs (output cubes {fixed / 1e6:.1f} MB + {in_flight} tile(s) of one "
-            f"row, {row / 1e6:.2f} MB each); raise --memory to at least "
+            f"row, {(row + halo_bytes) / 1e6:.2f} MB each); raise --memory to at least "
             f"{int(minimum / 1e6) + 1}MB")
-    rows = max(1, min(nx, (budget - fixed) // (row * in_flight)))
-    return TilePlan(tuple(shape), n_channels, int(rows), fixed, int(rows) * row * in_flight)
+    rows = max(1, min(nx, ((budget - fixed) // in_flight - halo_bytes) // row))
+    return TilePlan(tuple(shape), n_channels, int(rows), fixed,
+                    (int(rows) * row + halo_bytes) * in_flight)

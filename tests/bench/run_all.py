@@ -59,6 +59,11 @@ OTHERS = {
         ("256^3 run with a 19-pointing mosaic: wall time (s)", rf"wall time {_NUM} s"),
         ("256^3 run with a 19-pointing mosaic: peak RSS (MB)", rf"peak RSS {_NUM} MB"),
     ]),
+    "stream": ("bench_stream.py", [], ["--size", "128", "--memory", "1GB"], [
+        ("LTE + LVG from HDF5 under --memory: peak RSS / budget",
+         rf"peak RSS / budget\s+{_NUM}\s+\(target (<=|>=) {_NUM}"),
+        ("LTE + LVG from HDF5 under --memory: wall time (s)", rf"both tracers\s+{_NUM} s"),
+    ]),
 }
 SCALE_PARTS = ("scaling", "memory", "dask")
 
