@@ -13,6 +13,7 @@ dish in the list is feathered in afterwards (:mod:`synth.instrument.combine`).
 
 import warnings
 from dataclasses import dataclass, replace
+from functools import partial
 
 import astropy.units as u
 import numpy as np
@@ -32,7 +33,7 @@ from .uv import SIDEREAL_RATE_RAD_S
 from .mapping import (ObservedMap, array_canvas, array_layout, map_options,
                       pointing_hour_angles, primary_beam_fwhm_arcsec, sub_boxes)
 from .visibilities import (ImageGeometry, check_sampling, cube_frequencies_hz, cube_geometry,
-                           jy_per_pixel_factor)
+                           grid_dirty, jy_per_pixel_factor)
 from .weighting import image_noise_jy, imaging_weights
 
 __all__ = ["observe_interferometric", "simulate_visibilities", "MAP_KEYS",
@@ -88,18 +89,29 @@ def _scale_to_rms(pointings, rms, nu, opts):
 CLEAN_THREADS = 2
 
 
-def _clean_all(jobs, opts):
-    """CLEAN of [(dirty, psf, threshold, noise)] (Högbom, or multi-scale with
-    ``opts["scales_px"]``), on CLEAN_THREADS threads; with ``opts["mask_sigma"]`` only inside
-    a mask grown from each dirty image (at that many sigma, dilated by one beam)."""
+def _clean_all(jobs, opts, beam):
+    """Dirty images of [(dirty, psf, threshold, noise, geometry)] cleaned and restored
+    (Högbom, or multi-scale with ``opts["scales_px"]``; as they are without
+    ``opts["deconvolve"]``), on CLEAN_THREADS threads. ``dirty`` may be a function that
+    makes the dirty image (in the job's thread). With ``opts["mask_sigma"]`` the components
+    are only inside a mask grown from each dirty image (at that many sigma, dilated by one
+    beam). Returns [(image, CLEAN iterations)]."""
     def one(job):
+        dirty, psf, threshold, noise, geom = job
+        if callable(dirty):
+            dirty = dirty()
+        if not opts["deconvolve"]:
+            return dirty, 0
         mask = None
         if opts["mask_sigma"] is not None:
-            mask = grown_mask(job[0], job[3], float(opts["mask_sigma"]), opts["beam_px"])
+            mask = grown_mask(dirty, noise, float(opts["mask_sigma"]), opts["beam_px"])
         if opts["deconvolver"] == "multiscale":
-            return multiscale_clean(job[0], job[1], job[2], opts["scales_px"], opts["gain"],
-                                    opts["niter"], opts["beam_px"], mask)
-        return hogbom(job[0], job[1], job[2], opts["gain"], opts["niter"], mask)
+            model, res, n_it = multiscale_clean(dirty, psf, threshold, opts["scales_px"],
+                                                opts["gain"], opts["niter"], opts["beam_px"],
+                                                mask)
+        else:
+            model, res, n_it = hogbom(dirty, psf, threshold, opts["gain"], opts["niter"], mask)
+        return restore(model, res, beam, geom.dx_rad, geom.dy_rad), n_it
     if len(jobs) == 1 or CLEAN_THREADS == 1:
         return [one(j) for j in jobs]
     from concurrent.futures import ThreadPoolExecutor
@@ -107,50 +119,67 @@ def _clean_all(jobs, opts):
         return list(pool.map(one, jobs))
 
 
-def _prepare(plane, pointing, nu, opts, rng):
-    """Dirty image, PSF (if deconvolving), image noise and effective primary beam of one
-    pointing in one channel (draws the pointing's thermal noise from ``rng``)."""
+def _prepare(plane, pointing, nu, opts, rngs):
+    """Dirty images (one per noise draw in ``rngs``), PSF (if deconvolving), image noise and
+    effective primary beam of one pointing in one channel. One draw: the noise is added to
+    the visibilities before gridding. Several: the noiseless dirty image is gridded once and
+    each draw's noise-only dirty image added to it (gridding is linear), the noise drawn from
+    each generator exactly as a single observation with that generator would draw it; those
+    images are returned as functions that make them (each touches its own generator only,
+    so they may run on any thread, one pointing after the other)."""
     tracks, geom, box = pointing
     w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
                         opts["robust"])
     pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
-    img = _dirty(plane[box], tracks, nu, w, geom, pbs, rng)
+    if len(rngs) == 1:
+        imgs = [_dirty(plane[box], tracks, nu, w, geom, pbs, rngs[0])]
+    else:
+        base = _dirty(plane[box], tracks, nu, w, geom, pbs, None)
+        imgs = [partial(_noisy, base, tracks, nu, w, geom, r) for r in rngs]
     psf = _psf(tracks, nu, w, geom) if opts["deconvolve"] else None
-    return img, psf, image_noise_jy(w, tracks.sigma_jy), pb_eff
+    return imgs, psf, image_noise_jy(w, tracks.sigma_jy), pb_eff
 
 
-def _images(planes, pointings, freqs, opts, beam, rng):
+def _noisy(base, tracks, nu, weights, geom, rng):
+    """``base`` plus the dirty image of the thermal noise alone, drawn as
+    add_thermal_noise draws it."""
+    z = rng.standard_normal(2 * tracks.uvw_m.shape[0]).view(np.complex128)
+    return base + grid_dirty(tracks.sigma_jy * z, tracks.uvw_m, nu, weights, geom)
+
+
+def _images(planes, pointings, freqs, opts, beam, rngs):
     """Every (channel, pointing) imaged, in channel-major order, CLEAN_THREADS at a time
-    (channels and pointings alike are cleaned side by side; the noise is drawn serially in
-    that fixed order, so the result does not depend on the threads). Yields, per channel,
-    (c, corrected, sum A^2/s^2, median pointing noise, CLEAN iterations)."""
-    n_p = len(pointings)
+    (channels, pointings and noise draws alike are cleaned side by side; the noise is drawn
+    serially in that fixed order, so the result does not depend on the threads). ``rngs``:
+    one generator per noise realisation ([None]: noiseless). Yields, per channel, (c,
+    [corrected per realisation], sum A^2/s^2, median pointing noise, [CLEAN iterations])."""
+    n_p, n_r = len(pointings), len(rngs)
     jobs = [(c, p) for c in range(freqs.size) for p in range(n_p)]
+    step = max(1, CLEAN_THREADS // n_r) if n_r <= CLEAN_THREADS else 1
     acc = {}
-    for start in range(0, len(jobs), max(1, CLEAN_THREADS)):
+    for start in range(0, len(jobs), step):
         ready = []
-        for c, p in jobs[start:start + max(1, CLEAN_THREADS)]:
+        for c, p in jobs[start:start + step]:
             if c not in acc:
                 shape = planes(c).shape
-                acc[c] = [np.zeros(shape), np.zeros(shape), [], 0]
-            ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rng))
-        if opts["deconvolve"]:
-            cleaned = _clean_all([(r[2], r[3], opts["threshold"] * r[4], r[4]) for r in ready],
-                                 opts)
-        for k, (c, p, img, _, s_p, pb_eff) in enumerate(ready):
+                acc[c] = [[np.zeros(shape) for _ in rngs], np.zeros(shape), [], [0] * n_r]
+            ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rngs))
+        cleaned = iter(_clean_all([(img, r[3], opts["threshold"] * r[4], r[4],
+                                    pointings[r[1]][1]) for r in ready for img in r[2]],
+                                  opts, beam))
+        for c, p, imgs, _, s_p, pb_eff in ready:
             geom, (sy, sx) = pointings[p][1], pointings[p][2]
             a = acc[c]
-            if opts["deconvolve"]:
-                model, res, n_it = cleaned[k]
-                img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
-                a[3] += n_it
-            a[0][sy, sx] += pb_eff * img / s_p**2
+            for k in range(len(imgs)):
+                img, n_it = next(cleaned)
+                a[3][k] += n_it
+                a[0][k][sy, sx] += pb_eff * img / s_p**2
             a[1][sy, sx] += pb_eff**2 / s_p**2
             a[2].append(s_p)
             if len(a[2]) == n_p:
-                num, den, noise, iters = acc.pop(c)
+                nums, den, noise, iters = acc.pop(c)
                 with np.errstate(divide="ignore", invalid="ignore"):
-                    corrected = np.where(den > 0, num / den, 0.0)
+                    corrected = [np.where(den > 0, num / den, 0.0) for num in nums]
                 yield c, corrected, den, float(np.median(noise)), iters
 
 
@@ -171,10 +200,11 @@ def _scales_px(opts, beam, tracks, geom, freqs):
     return default_scales(beam.major.to_value(u.rad) / pix, las_px, min(geom.nx, geom.ny))
 
 
-def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
-    """The channel loop: corrected and flat-noise mosaics, response and noise per channel,
-    restoring beam, CLEAN iterations, the sky fraction where the response is < 1/2."""
-    rng = np.random.default_rng(seed) if noise else None
+def _mosaic(sky, pointings, freqs, opts, noise, seeds, out_sl):
+    """The channel loop: corrected and flat-noise mosaics (one per seed in ``seeds``),
+    response and noise per channel, restoring beam, CLEAN iterations (per seed), the sky
+    fraction where the response is < 1/2."""
+    rngs = [np.random.default_rng(s) for s in seeds] if noise else [None]
     ref = freqs.size // 2
     t0, g0, _ = pointings[0]
     w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
@@ -184,21 +214,23 @@ def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
         opts["scales_px"] = _scales_px(opts, beam, t0, g0, freqs)
     canvas_geom = ImageGeometry(sky.shape[2], sky.shape[1], g0.dx_rad, g0.dy_rad, 0.0, 0.0)
     ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
-    corrected = np.empty((freqs.size, ny, nx))
+    corrected = [np.empty((freqs.size, ny, nx)) for _ in rngs]
     response = np.empty((freqs.size, ny, nx))
-    rms, iters, outside, total = np.empty(freqs.size), 0, 0.0, 0.0
+    rms, iters, outside, total = np.empty(freqs.size), [0] * len(rngs), 0.0, 0.0
     data = np.asarray(sky.unmasked_data[:].value)          # finite: place_model made it
     to_jy = np.broadcast_to(jy_per_pixel_factor(sky, freqs, canvas_geom), freqs.shape)
     def planes(c):
         return data[c] * to_jy[c]
-    for c, img, den, s_ref, k in _images(planes, pointings, freqs, opts, beam, rng):
+    for c, imgs, den, s_ref, ks in _images(planes, pointings, freqs, opts, beam, rngs):
         plane = planes(c)
         resp = s_ref * np.sqrt(den)
         outside += np.abs(plane[resp < 0.5]).sum()
         total += np.abs(plane).sum()
-        corrected[c], response[c] = img[out_sl], resp[out_sl]
+        response[c] = resp[out_sl]
+        for k, img in enumerate(imgs):
+            corrected[k][c] = img[out_sl]
+            iters[k] += ks[k]
         rms[c] = s_ref
-        iters += k
     frac = outside / total if total > 0 else 0.0
     return corrected, response, rms, beam, iters, frac
 
@@ -291,7 +323,7 @@ def _warn_outside(frac, layout):
         warnings.warn(f"{100 * frac:.1f}% of the sky cube's flux lies where the map's response "
                       f"is below one half ({layout.n_pointings} pointing(s)); that emission is "
                       f"attenuated or lost: {hint}", FieldLargerThanPrimaryBeamWarning,
-                      stacklevel=5)
+                      stacklevel=6)
 
 
 def _split_options(kwargs):
@@ -341,34 +373,70 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     arrays, dish = split_instruments(instrument)
     opts, mopts, dish_opts = _split_options(dict(kwargs))
     plan = _prepare_plan(cube, arrays, opts, mopts, noise, seed, integration_time)
-    seed, freqs, layout, sky = plan.seed, plan.freqs, plan.layout, plan.sky
+    return _observations(cube, plan, dish, dish_opts, [plan.seed], noise, with_maps,
+                         hanning)[0]
+
+
+def observe_interferometric_seeds(cube, instrument, seeds, *, noise=True,
+                                  integration_time=None, with_maps=False, hanning=False,
+                                  **kwargs):
+    """``observe_interferometric`` once per seed in ``seeds`` (a list of observations, each
+    equal to the observation with that seed), reusing what the noise does not change: the
+    layout, model, uv tracks, weights, primary beams, PSFs, restoring beam and the noiseless
+    dirty image of every channel and pointing; each realisation adds its own noise-only
+    dirty image (seeded as a full observation) and is deconvolved on its own. With antenna
+    phase errors (seeded like the noise) or a single dish to feather, each seed is a full
+    observation."""
+    seeds = [_seed(s, True) for s in seeds]
+    arrays, dish = split_instruments(instrument)
+    opts, mopts, dish_opts = _split_options(dict(kwargs))
+    full = (not noise or dish is not None
+            or u.Quantity(opts["phase_rms"]).to_value(u.rad) > 0)
+    if full:
+        return [observe_interferometric(cube, instrument, noise=noise, seed=s,
+                                        integration_time=integration_time,
+                                        with_maps=with_maps, hanning=hanning, **kwargs)
+                for s in seeds]
+    plan = _prepare_plan(cube, arrays, opts, mopts, noise, seeds[0], integration_time)
+    return _observations(cube, plan, dish, dish_opts, seeds, noise, with_maps, hanning)
+
+
+def _observations(cube, plan, dish, dish_opts, seeds, noise, with_maps, hanning):
+    """The products of ``plan`` observed with each seed (one list entry per seed)."""
+    opts, mopts, freqs, layout, sky = plan.opts, plan.mopts, plan.freqs, plan.layout, plan.sky
     pointings, out_sl = plan.pointings, plan.out_sl
     corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
-                                                          seed, out_sl)
+                                                          seeds, out_sl)
     if mopts.map_size is None:      # the whole model was to be mapped: say what is lost
         _warn_outside(frac, layout)
     out_sky = sky[:, out_sl[0], out_sl[1]]
-    meta = dict(INSTRUME="+".join(pointings[0][0].names),
-                NOISERMS=float(np.median(rms)) if noise else 0.0,
-                NOISEUNI="Jy/beam", NSEED=seed if noise else -1, WEIGHTNG=opts["weighting"],
-                ROBUST=float(opts["robust"]), DECONV=bool(opts["deconvolve"]),
-                NPOINT=layout.n_pointings,
-                MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
-                PBLIMIT=float(opts["pb_limit"]),
-                NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
-                CLEANIT=int(iters), THEORMS=float(np.median(rms)),
-                DECONVER=str(opts["deconvolver"]) if opts["deconvolve"] else "none",
-                MASKSIG=float(opts["mask_sigma"]) if opts["mask_sigma"] is not None else 0.0,
-                PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
-    if dish is not None:
-        sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
-                                              seed, hanning)
-        corrected = feather_mosaic(corrected, response, sd_k, sd_beam, beam, freqs,
-                                   abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
-                                   opts["sd_scale"])
-        meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
-                    SDSCALE=float(opts["sd_scale"]))
-    return _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps)
+    out = []
+    for seed, corr, its in zip(seeds, corrected, iters):
+        meta = dict(INSTRUME="+".join(pointings[0][0].names),
+                    NOISERMS=float(np.median(rms)) if noise else 0.0,
+                    NOISEUNI="Jy/beam", NSEED=seed if noise else -1,
+                    WEIGHTNG=opts["weighting"],
+                    ROBUST=float(opts["robust"]), DECONV=bool(opts["deconvolve"]),
+                    NPOINT=layout.n_pointings,
+                    MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
+                    PBLIMIT=float(opts["pb_limit"]),
+                    NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
+                    CLEANIT=int(its), THEORMS=float(np.median(rms)),
+                    DECONVER=str(opts["deconvolver"]) if opts["deconvolve"] else "none",
+                    MASKSIG=float(opts["mask_sigma"]) if opts["mask_sigma"] is not None
+                    else 0.0,
+                    PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
+        if dish is not None:
+            sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
+                                                  seed, hanning)
+            corr = feather_mosaic(corr, response, sd_k, sd_beam, beam, freqs,
+                                  abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
+                                  opts["sd_scale"])
+            meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
+                        SDSCALE=float(opts["sd_scale"]))
+        out.append(_products(out_sky, corr, response, rms, beam, meta, opts, layout,
+                             with_maps))
+    return out
 
 
 def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps):

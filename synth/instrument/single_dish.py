@@ -20,7 +20,7 @@ from .cube_utils import check_cube, cube_values, new_cube, pixel_scale, referenc
 from .noise import correlated_noise, hanning_noise_factor, radiometer_rms
 from .spectral import channel_width_frequency, velocity_axis
 
-__all__ = ["SingleDish", "observe_single_dish", "noise_rms_for"]
+__all__ = ["SingleDish", "observe_single_dish", "observe_single_dish_seeds", "noise_rms_for"]
 
 
 @dataclass(frozen=True)
@@ -142,25 +142,44 @@ def observe_single_dish(cube, dish, *, integration_time=None, rms=None, noise=Tr
     Meta / header cards: INSTRUME, NOISERMS (in the output unit), NOISEUNI, NSEED (-1 if
     noiseless), plus CHANWID/HANNING from the spectral step.
     """
+    return observe_single_dish_seeds(cube, dish, [seed], integration_time=integration_time,
+                                     rms=rms, noise=noise, unit=unit, hanning=hanning)[0]
+
+
+def observe_single_dish_seeds(cube, dish, seeds, *, integration_time=None, rms=None,
+                              noise=True, unit=None, hanning=False):
+    """:func:`observe_single_dish` once per seed in ``seeds`` (a list of cubes, each equal to
+    the observation with that seed): the beam convolution and the noise rms are computed
+    once, the noise drawn per seed."""
     check_cube(cube)
     if not isinstance(dish, SingleDish):
         raise InstrumentError(f"instrument: expected SingleDish, got {type(dish).__name__}")
     out_unit = unit_name(unit if unit is not None else "K")
     beam = dish.beam_at(reference_frequency(cube))
     smoothed = to_unit(convolve_beam(cube, beam), "K")
-    data_k = cube_values(smoothed)
-    sigma_k, used_seed = 0.0 * u.K, -1
+    data0 = cube_values(smoothed)
+    sigma_k = 0.0 * u.K
     if noise:
         sigma_k = noise_rms_for(cube, dish, beam, integration_time=integration_time,
                                 rms=rms, hanning=hanning)
-        used_seed = _seed_or_new(seed)
-        rng = np.random.default_rng(used_seed)
-        data_k += correlated_noise(data_k.shape, beam, pixel_scale(cube),
-                                   sigma_k.to_value(u.K), rng, hanning=hanning)
+        seeds = [_seed_or_new(s) for s in seeds]
+    else:
+        seeds = seeds[:1]
     sigma_out = sigma_k.to_value(u.K)
     if out_unit == "Jy/beam":
-        data_k *= jy_per_k(beam, sky_frequencies(smoothed))[:, None, None]
         sigma_out *= float(jy_per_k(beam, reference_frequency(cube)))
-    meta = {"INSTRUME": dish.name, "NOISERMS": float(sigma_out), "NOISEUNI": out_unit,
-            "NSEED": used_seed}
-    return new_cube(smoothed, data_k, u.Unit(out_unit), beam=beam, meta_update=meta)
+    out = []
+    for k, seed in enumerate(seeds):
+        data_k = data0 if k == len(seeds) - 1 else data0.copy()   # the last one takes it
+        used_seed = -1
+        if noise:
+            used_seed = seed
+            rng = np.random.default_rng(used_seed)
+            data_k += correlated_noise(data_k.shape, beam, pixel_scale(cube),
+                                       sigma_k.to_value(u.K), rng, hanning=hanning)
+        if out_unit == "Jy/beam":
+            data_k *= jy_per_k(beam, sky_frequencies(smoothed))[:, None, None]
+        meta = {"INSTRUME": dish.name, "NOISERMS": float(sigma_out), "NOISEUNI": out_unit,
+                "NSEED": used_seed}
+        out.append(new_cube(smoothed, data_k, u.Unit(out_unit), beam=beam, meta_update=meta))
+    return out
