@@ -40,6 +40,14 @@ OTHERS = {
         ("CLEAN channel loop, 1 thread / 2 threads",
          rf"speed-up {_NUM} \(target (<=|>=) {_NUM}\)"),
     ]),
+    "realisations": ("bench_realisations.py", [], ["--quick"], [
+        ("10 noise realisations / one observation, array, no deconvolution",
+         rf"no deconvolution: .*ratio N=10 / one = {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("10 noise realisations / one observation, array with Högbom CLEAN",
+         rf"Högbom CLEAN: .*ratio N=10 / one = {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("10 noise realisations / one observation, dish map",
+         rf"dish map: .*ratio N=10 / one = {_NUM} \(target (<=|>=) {_NUM}\)"),
+    ]),
     "mosaic": ("bench_mosaic.py", [], ["--quick"], [
         ("time per pointing, 7 pointings / 1",
          rf"7-pointing mosaic / one pointing .*: {_NUM} \(target (<=|>=) {_NUM}\)"),
