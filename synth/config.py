@@ -92,9 +92,9 @@ SETUP = {
     "n_pol": (int, 2, "polarisations recorded and averaged (1 or 2; noise / sqrt(n_pol))"),
     "seed": (int, 1, "noise seed"),
     "antennas": (str, None, 'array: a built-in layout name or a CSV file'),
-    "latitude_deg": (_NUM, None, "array: site latitude, deg"),
-    "hour_angle_start_h": (_NUM, -2.0, "array: first hour angle, h"),
-    "hour_angle_stop_h": (_NUM, 2.0, "array: last hour angle, h"),
+    "latitude_deg": (_NUM, None, "site latitude, deg (a dish: with zenith_opacity, T_sys follows the elevation)"),
+    "hour_angle_start_h": (_NUM, -2.0, "first hour angle, h (array track; dish: its track for T_sys)"),
+    "hour_angle_stop_h": (_NUM, 2.0, "last hour angle, h"),
     "sample_interval_s": (_NUM, 300.0, "array: visibility sampling interval, s"),
     "weighting": (str, "robust", 'array: "natural", "uniform" or "robust"'),
     "robust": (_NUM, 0.5, "array: Briggs robust parameter"),
@@ -127,11 +127,11 @@ SETUP = {
                          "image at this many sigma (dilated by a beam); default no mask"),
     "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
                            "random-group UVFITS file per pointing"),
-    "zenith_opacity": (_NUM, None, "array: zenith opacity; with receiver_temperature_k, T_sys "
+    "zenith_opacity": (_NUM, None, "zenith opacity; with receiver_temperature_k (and a dish's latitude_deg), T_sys "
                        "follows each sample's elevation instead of tsys_k"),
-    "receiver_temperature_k": (_NUM, None, "array: receiver temperature T_rx, K (with "
+    "receiver_temperature_k": (_NUM, None, "receiver temperature T_rx, K (with "
                                "zenith_opacity)"),
-    "atmosphere_temperature_k": (_NUM, 270.0, "array: effective temperature of the "
+    "atmosphere_temperature_k": (_NUM, 270.0, "effective temperature of the "
                                  "atmosphere, K (with zenith_opacity)"),
 }
 #: config keys that no longer exist, with what replaced them
@@ -316,6 +316,9 @@ def _check_map_keys(st):
         if st["receiver_temperature_k"] is None or not st["receiver_temperature_k"] > 0:
             raise ConfigError(f"{where}: zenith_opacity needs receiver_temperature_k > 0 "
                               f"(got {st['receiver_temperature_k']})")
+        if st["kind"] == "dish" and st["latitude_deg"] is None:
+            raise ConfigError(f"{where}: zenith_opacity of a dish needs latitude_deg (the "
+                              "elevation over its hour angles sets T_sys)")
     if not st["atmosphere_temperature_k"] > 0:
         raise ConfigError(f"{where}: atmosphere_temperature_k = "
                           f"{st['atmosphere_temperature_k']}; must be > 0")

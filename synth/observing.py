@@ -30,6 +30,7 @@ def make_instrument(st):
         kw = {"efficiency": st["efficiency"], "name": st["name"], "n_pol": st["n_pol"]}
         if st["tsys_k"] is not None:
             kw["tsys"] = st["tsys_k"] * u.K
+        kw.update(_dish_site(st))
         if st["taper"] is not None:
             kw["taper"] = st["taper"]
         if st["beam_arcsec"] is not None:
@@ -54,6 +55,18 @@ def make_instrument(st):
     if st["diameter_m"] is not None:
         kw["dish_diameter"] = st["diameter_m"] * u.m
     return Interferometer(**kw)
+
+
+def _dish_site(st):
+    """A dish setup's site and atmosphere keywords (T_sys then follows the elevation)."""
+    kw = {"hour_angles": (st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle}
+    if st["latitude_deg"] is not None:
+        kw["latitude"] = st["latitude_deg"] * u.deg
+    if st["zenith_opacity"] is not None:
+        kw.update(zenith_opacity=st["zenith_opacity"],
+                  receiver_temperature=st["receiver_temperature_k"] * u.K,
+                  atmosphere_temperature=st["atmosphere_temperature_k"] * u.K)
+    return kw
 
 
 def map_keywords(st, beyond_box="empty"):
@@ -84,9 +97,11 @@ def observe_options(st, beyond_box="empty"):
     if st["kind"] == "dish":
         if st["rms_k"] is not None:
             kw["rms"] = st["rms_k"] * u.K
-        elif st["noise"] and (st["integration_time_h"] is None or st["tsys_k"] is None):
+        elif st["noise"] and (st["integration_time_h"] is None
+                              or (st["tsys_k"] is None and st["zenith_opacity"] is None)):
             raise ConfigError(f"setup '{st['name']}' adds noise: give rms_k, or tsys_k and "
-                              "integration_time_h (or set noise = false)")
+                              "integration_time_h (or set noise = false; zenith_opacity with "
+                              "latitude_deg replaces tsys_k)")
         return kw
     kw.update(hour_angles=(st["hour_angle_start_h"], st["hour_angle_stop_h"]) * u.hourangle,
               sample_interval=st["sample_interval_s"] * u.s, weighting=st["weighting"],
