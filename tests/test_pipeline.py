@@ -291,6 +291,8 @@ def const_c():
     (("diameter_m = 8\n", ""), "needs diameter_m or beam_arcsec"),
     (("integration_time_h = 2.0\n", ""), "give rms_k, or tsys_k and integration_time_h"),
     (("tsys_k = 120", "tsys = 120"), "unknown key 'tsys'.*did you mean 'tsys_k'"),
+    (("tsys_k = 120", "zenith_opacity = 0.1\nreceiver_temperature_k = 50"),
+     "zenith_opacity of a dish needs latitude_deg"),
 ])
 def test_bad_dish_setup(tmp_path, edit, match):
     p = tmp_path / "c.toml"
