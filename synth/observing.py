@@ -268,7 +268,8 @@ def _write_observation(omap, base, chash, extra):
 
 
 def _obs_summary(obs):
-    beam = obs.beam
+    beams = getattr(obs, "beams", None)          # a beam per channel: the middle one
+    beam = obs.beam if beams is None else obs.unmasked_beams[obs.shape[0] // 2]
     meta = {k.upper(): v for k, v in obs.meta.items()}
     return {"unit": obs.unit.to_string(),
             "beam_major_arcsec": float(beam.major.to_value(u.arcsec)),

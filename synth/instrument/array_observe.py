@@ -89,15 +89,16 @@ def _scale_to_rms(pointings, rms, nu, opts):
 CLEAN_THREADS = 2
 
 
-def _clean_all(jobs, opts, beam):
-    """Dirty images of [(dirty, psf, threshold, noise, geometry)] cleaned and restored
+def _clean_all(jobs, opts):
+    """Dirty images of [(dirty, psf, threshold, noise, geometry, restoring beam)] cleaned
+    and restored
     (Högbom, or multi-scale with ``opts["scales_px"]``; as they are without
     ``opts["deconvolve"]``), on CLEAN_THREADS threads. ``dirty`` may be a function that
     makes the dirty image (in the job's thread). With ``opts["mask_sigma"]`` the components
     are only inside a mask grown from each dirty image (at that many sigma, dilated by one
     beam). Returns [(image, CLEAN iterations)]."""
     def one(job):
-        dirty, psf, threshold, noise, geom = job
+        dirty, psf, threshold, noise, geom, beam = job
         if callable(dirty):
             dirty = dirty()
         if not opts["deconvolve"]:
@@ -147,11 +148,12 @@ def _noisy(base, tracks, nu, weights, geom, rng):
     return base + grid_dirty(tracks.sigma_jy * z, tracks.uvw_m, nu, weights, geom)
 
 
-def _images(planes, pointings, freqs, opts, beam, rngs):
+def _images(planes, pointings, freqs, opts, beams, rngs):
     """Every (channel, pointing) imaged, in channel-major order, CLEAN_THREADS at a time
     (channels, pointings and noise draws alike are cleaned side by side; the noise is drawn
     serially in that fixed order, so the result does not depend on the threads). ``rngs``:
-    one generator per noise realisation ([None]: noiseless). Yields, per channel, (c,
+    one generator per noise realisation ([None]: noiseless); ``beams`` the restoring beam of
+    each channel. Yields, per channel, (c,
     [corrected per realisation], sum A^2/s^2, median pointing noise, [CLEAN iterations])."""
     n_p, n_r = len(pointings), len(rngs)
     jobs = [(c, p) for c in range(freqs.size) for p in range(n_p)]
@@ -165,8 +167,8 @@ def _images(planes, pointings, freqs, opts, beam, rngs):
                 acc[c] = [[np.zeros(shape) for _ in rngs], np.zeros(shape), [], [0] * n_r]
             ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rngs))
         cleaned = iter(_clean_all([(img, r[3], opts["threshold"] * r[4], r[4],
-                                    pointings[r[1]][1]) for r in ready for img in r[2]],
-                                  opts, beam))
+                                    pointings[r[1]][1], beams[r[0]])
+                                   for r in ready for img in r[2]], opts))
         for c, p, imgs, _, s_p, pb_eff in ready:
             geom, (sy, sx) = pointings[p][1], pointings[p][2]
             a = acc[c]
@@ -207,8 +209,7 @@ def _mosaic(sky, pointings, freqs, opts, noise, seeds, out_sl):
     rngs = [np.random.default_rng(s) for s in seeds] if noise else [None]
     ref = freqs.size // 2
     t0, g0, _ = pointings[0]
-    w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
-    beam = fit_restoring_beam(_psf(t0, freqs[ref], w0, g0), g0.dx_rad, g0.dy_rad)
+    beam, beams = restoring_beams(t0, g0, freqs, opts)
     opts = dict(opts, beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))
     if opts["deconvolve"] and opts["deconvolver"] == "multiscale":
         opts["scales_px"] = _scales_px(opts, beam, t0, g0, freqs)
@@ -221,7 +222,8 @@ def _mosaic(sky, pointings, freqs, opts, noise, seeds, out_sl):
     to_jy = np.broadcast_to(jy_per_pixel_factor(sky, freqs, canvas_geom), freqs.shape)
     def planes(c):
         return data[c] * to_jy[c]
-    for c, imgs, den, s_ref, ks in _images(planes, pointings, freqs, opts, beam, rngs):
+    per_channel = beams if beams is not None else [beam] * freqs.size
+    for c, imgs, den, s_ref, ks in _images(planes, pointings, freqs, opts, per_channel, rngs):
         plane = planes(c)
         resp = s_ref * np.sqrt(den)
         outside += np.abs(plane[resp < 0.5]).sum()
@@ -232,7 +234,38 @@ def _mosaic(sky, pointings, freqs, opts, noise, seeds, out_sl):
             iters[k] += ks[k]
         rms[c] = s_ref
     frac = outside / total if total > 0 else 0.0
-    return corrected, response, rms, beam, iters, frac
+    return corrected, response, rms, beam if beams is None else beams, iters, frac
+
+
+#: the restoring beam is stored per channel when its major or minor axis changes by more
+#: than this fraction across the band (max / min - 1); below it one beam serves every channel
+BEAM_VARIES = 0.01
+
+
+def _fit_beam(tracks, geom, nu, opts):
+    w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                        opts["robust"])
+    return fit_restoring_beam(_psf(tracks, nu, w, geom), geom.dx_rad, geom.dy_rad)
+
+
+def restoring_beams(tracks, geom, freqs, opts):
+    """(beam, beams): the restoring beam fitted to the PSF main lobe at the middle channel,
+    and None when the beams fitted at the band's first and last channels differ from it by
+    at most BEAM_VARIES in major and minor axis, else the list of the beams fitted to every
+    channel's PSF (the synthesised beam scales about as 1 / frequency, so the band's ends
+    bound the change)."""
+    ref = freqs.size // 2
+    beam = _fit_beam(tracks, geom, freqs[ref], opts)
+    if freqs.size < 2:
+        return beam, None
+    ends = [_fit_beam(tracks, geom, freqs[c], opts) for c in (0, freqs.size - 1)]
+    axes = np.array([[b.major.to_value(u.rad), b.minor.to_value(u.rad)]
+                     for b in ends + [beam]])
+    if np.all(axes.max(axis=0) / axes.min(axis=0) - 1.0 <= BEAM_VARIES):
+        return beam, None
+    beams = [ends[0] if c == 0 else ends[1] if c == freqs.size - 1 else beam if c == ref
+             else _fit_beam(tracks, geom, freqs[c], opts) for c in range(freqs.size)]
+    return beam, beams
 
 
 @dataclass(frozen=True, eq=False)
@@ -407,6 +440,7 @@ def _observations(cube, plan, dish, dish_opts, seeds, noise, with_maps, hanning)
     pointings, out_sl = plan.pointings, plan.out_sl
     corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
                                                           seeds, out_sl)
+    mid_beam = beam[freqs.size // 2] if isinstance(beam, list) else beam
     if mopts.map_size is None:      # the whole model was to be mapped: say what is lost
         _warn_outside(frac, layout)
     out_sky = sky[:, out_sl[0], out_sl[1]]
@@ -429,7 +463,7 @@ def _observations(cube, plan, dish, dish_opts, seeds, noise, with_maps, hanning)
         if dish is not None:
             sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
                                                   seed, hanning)
-            corr = feather_mosaic(corr, response, sd_k, sd_beam, beam, freqs,
+            corr = feather_mosaic(corr, response, sd_k, sd_beam, mid_beam, freqs,
                                   abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
                                   opts["sd_scale"])
             meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
@@ -458,7 +492,7 @@ def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_
         sens = np.where(response[mid] > 0, rms[mid] / response[mid], np.inf)
     if unit == "K":
         nu = cube_frequencies_hz(out_sky)[mid]
-        sens = sens * float(beam.jtok(nu * u.Hz).value)
+        sens = sens * float((beam[mid] if isinstance(beam, list) else beam).jtok(nu * u.Hz).value)
     return ObservedMap(cube=chosen, corrected=c_cube, uncorrected=f_cube,
                        sensitivity=sens * u.Unit(unit), response=response[mid], sky=out_sky,
                        layout=layout)

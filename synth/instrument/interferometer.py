@@ -361,16 +361,30 @@ def _scaled_to_rms(tracks, rms, weights):
 
 def new_observed_cube(template, data, meta, beam, unit="Jy/beam"):
     """A SpectralCube of ``data`` (Jy/beam, or K via the beam's Rayleigh-Jeans factor) on the
-    template's WCS, with the beam and its own ``meta``."""
-    from spectral_cube import SpectralCube
+    template's WCS, with the beam and its own ``meta``. ``beam`` a list of one beam per
+    channel gives a VaryingResolutionSpectralCube (each channel converted with its own)."""
+    from spectral_cube import SpectralCube, VaryingResolutionSpectralCube
     meta = {k: v for k, v in meta.items() if k not in ("BUNIT", "beam")}
+    q_unit = u.Unit("K" if unit == "K" else "Jy/beam")
+    if isinstance(beam, list):
+        from radio_beam import Beams
+        beams = Beams(beams=beam)
+        if unit == "K":
+            freqs = cube_frequencies_hz(template)
+            data = data * np.array([b.jtok(f * u.Hz).value for b, f in zip(beam, freqs)])[
+                :, None, None]
+            meta["NOISEUNI"] = "K"
+            mid = len(beam) // 2
+            meta["NOISERMS"] = meta["NOISERMS"] * float(beam[mid].jtok(freqs[mid] * u.Hz).value)
+        return VaryingResolutionSpectralCube(data=u.Quantity(data, q_unit, copy=False),
+                                             wcs=template.wcs.deepcopy(), meta=meta,
+                                             beams=beams)
     if unit == "K":
         freqs = cube_frequencies_hz(template)
         data = data * beam.jtok(freqs * u.Hz).value[:, None, None]
         meta["NOISEUNI"] = "K"
         meta["NOISERMS"] = meta["NOISERMS"] * float(beam.jtok(np.median(freqs) * u.Hz).value)
-    cube = SpectralCube(data=u.Quantity(data, u.Unit("K" if unit == "K" else "Jy/beam"),
-                                        copy=False),
+    cube = SpectralCube(data=u.Quantity(data, q_unit, copy=False),
                         wcs=template.wcs.deepcopy(), meta=meta)
     return cube.with_beam(beam, raise_error_jybm=False)
 
