@@ -142,3 +142,28 @@ def test_a_dish_realisation_equals_the_full_observation_with_its_seed():
     many = observe_seeds(cube, dish, [7, 8], **kw)
     for a, s in zip(many, (7, 8)):
         _equal_maps(a, observe(cube, dish, seed=s, with_maps=True, **kw), 1e-12)
+
+
+def test_the_threads_do_not_change_the_result():
+    """Channels and pointings are imaged and cleaned on CLEAN_THREADS threads with the noise
+    drawn in a fixed order: a noisy 7-pointing mosaic with CLEAN is the same, bit for bit,
+    on one thread and on two (a determinism check: no reference value)."""
+    import synth.instrument.array_observe as ao
+    from synth.instrument.interferometer import Interferometer
+    from synth.instrument.observe import observe
+    d = gaussian_sky(64, 10.0, 1.0, nch=3)
+    cube = make_cube(d * 2.0 / d.max(), pix_arcsec=0.5, unit=u.K, nu0=230.538e9)
+    kw = dict(integration_time=600 * u.s, sample_interval=900 * u.s, pixel=0.5 * u.arcsec,
+              deconvolve=True, map_size=30 * u.arcsec, seed=4)
+    out = {}
+    saved = ao.CLEAN_THREADS
+    try:
+        for t in (1, 2):
+            ao.CLEAN_THREADS = t
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", FieldLargerThanPrimaryBeamWarning)
+                out[t] = observe(cube, Interferometer("compact-16"), **kw)
+    finally:
+        ao.CLEAN_THREADS = saved
+    np.testing.assert_array_equal(out[1].unmasked_data[:].value, out[2].unmasked_data[:].value)
+    assert out[1].meta["CLEANIT"] == out[2].meta["CLEANIT"] > 0

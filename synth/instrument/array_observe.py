@@ -13,7 +13,6 @@ dish in the list is feathered in afterwards (:mod:`synth.instrument.combine`).
 
 import warnings
 from dataclasses import dataclass, replace
-from functools import partial
 
 import astropy.units as u
 import numpy as np
@@ -26,7 +25,7 @@ from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
 from .imaging import fit_restoring_beam, restore
-from .interferometer import (OBSERVE_OPTIONS, _channel_width_hz, _check_options, _dirty,
+from .interferometer import (OBSERVE_OPTIONS, _channel_width_hz, _check_options,
                              _pb_images, _psf, _quantity, _seed, _visibilities,
                              antenna_phase_gains, assemble_tracks, new_observed_cube)
 from .uv import SIDEREAL_RATE_RAD_S
@@ -84,105 +83,114 @@ def _scale_to_rms(pointings, rms, nu, opts):
     return out
 
 
-#: threads that CLEAN the pointings of one channel side by side (the Högbom kernel releases
-#: the GIL; every pointing is cleaned independently, so the result does not depend on it)
+#: threads that image and CLEAN the channels and pointings side by side (ducc0, numba and
+#: scipy's FFTs release the GIL; each (channel, pointing) is imaged independently and its
+#: noise drawn in a fixed order, so the result does not depend on the threads)
 CLEAN_THREADS = 2
 
 
-def _clean_all(jobs, opts):
-    """Dirty images of [(dirty, psf, threshold, noise, geometry, restoring beam)] cleaned
-    and restored
-    (Högbom, or multi-scale with ``opts["scales_px"]``; as they are without
-    ``opts["deconvolve"]``), on CLEAN_THREADS threads. ``dirty`` may be a function that
-    makes the dirty image (in the job's thread). With ``opts["mask_sigma"]`` the components
-    are only inside a mask grown from each dirty image (at that many sigma, dilated by one
-    beam). Returns [(image, CLEAN iterations)]."""
-    def one(job):
-        dirty, psf, threshold, noise, geom, beam = job
-        if callable(dirty):
-            dirty = dirty()
-        if not opts["deconvolve"]:
-            return dirty, 0
-        mask = None
-        if opts["mask_sigma"] is not None:
-            mask = grown_mask(dirty, noise, float(opts["mask_sigma"]), opts["beam_px"])
-        if opts["deconvolver"] == "multiscale":
-            model, res, n_it = multiscale_clean(dirty, psf, threshold, opts["scales_px"],
-                                                opts["gain"], opts["niter"], opts["beam_px"],
-                                                mask)
-        else:
-            model, res, n_it = hogbom(dirty, psf, threshold, opts["gain"], opts["niter"], mask)
-        return restore(model, res, beam, geom.dx_rad, geom.dy_rad), n_it
-    if len(jobs) == 1 or CLEAN_THREADS == 1:
-        return [one(j) for j in jobs]
-    from concurrent.futures import ThreadPoolExecutor
-    with ThreadPoolExecutor(CLEAN_THREADS) as pool:
-        return list(pool.map(one, jobs))
+def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts):
+    """``dirty`` cleaned and restored (Högbom, or multi-scale with ``opts["scales_px"]``),
+    or as it is without ``opts["deconvolve"]``; with ``opts["mask_sigma"]`` the components
+    are only inside a mask grown from the dirty image (at that many sigma, dilated by one
+    beam). Returns (image, CLEAN iterations)."""
+    if not opts["deconvolve"]:
+        return dirty, 0
+    mask = None
+    if opts["mask_sigma"] is not None:
+        mask = grown_mask(dirty, noise, float(opts["mask_sigma"]), opts["beam_px"])
+    if opts["deconvolver"] == "multiscale":
+        model, res, n_it = multiscale_clean(dirty, psf, threshold, opts["scales_px"],
+                                            opts["gain"], opts["niter"], opts["beam_px"],
+                                            mask)
+    else:
+        model, res, n_it = hogbom(dirty, psf, threshold, opts["gain"], opts["niter"], mask)
+    return restore(model, res, beam, geom.dx_rad, geom.dy_rad), n_it
 
 
-def _prepare(plane, pointing, nu, opts, rngs):
-    """Dirty images (one per noise draw in ``rngs``), PSF (if deconvolving), image noise and
-    effective primary beam of one pointing in one channel. One draw: the noise is added to
-    the visibilities before gridding. Several: the noiseless dirty image is gridded once and
-    each draw's noise-only dirty image added to it (gridding is linear), the noise drawn from
-    each generator exactly as a single observation with that generator would draw it; those
-    images are returned as functions that make them (each touches its own generator only,
-    so they may run on any thread, one pointing after the other)."""
+def _draws(tracks, rngs):
+    """The unit complex noise of one (channel, pointing) per generator, drawn as
+    add_thermal_noise draws it (None for a noiseless observation)."""
+    n = 2 * tracks.uvw_m.shape[0]
+    return [None if r is None else r.standard_normal(n).view(np.complex128) for r in rngs]
+
+
+def _image_one(plane, pointing, nu, opts, beam, draws):
+    """One channel of one pointing: weights, primary beams, dirty image(s), PSF, CLEAN.
+
+    One draw: the noise is added to the visibilities before gridding (as
+    add_thermal_noise adds it). Several (noise realisations): the noiseless dirty image is
+    gridded once and each draw's noise-only dirty image added to it (gridding is linear).
+    Returns ([(image, CLEAN iterations) per draw], image noise, effective primary beam)."""
     tracks, geom, box = pointing
     w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
                         opts["robust"])
     pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
-    if len(rngs) == 1:
-        imgs = [_dirty(plane[box], tracks, nu, w, geom, pbs, rngs[0])]
+    vis = _visibilities(plane[box], tracks, nu, geom, pbs, None)
+    if len(draws) == 1:
+        if draws[0] is not None:
+            vis = vis + tracks.sigma_jy * draws[0]
+        dirty = [grid_dirty(vis, tracks.uvw_m, nu, w, geom)]
     else:
-        base = _dirty(plane[box], tracks, nu, w, geom, pbs, None)
-        imgs = [partial(_noisy, base, tracks, nu, w, geom, r) for r in rngs]
+        base = grid_dirty(vis, tracks.uvw_m, nu, w, geom)
+        dirty = [base + grid_dirty(tracks.sigma_jy * z, tracks.uvw_m, nu, w, geom)
+                 for z in draws]
     psf = _psf(tracks, nu, w, geom) if opts["deconvolve"] else None
-    return imgs, psf, image_noise_jy(w, tracks.sigma_jy), pb_eff
+    s_p = image_noise_jy(w, tracks.sigma_jy)
+    out = [_deconvolved(d, psf, opts["threshold"] * s_p, s_p, geom, beam, opts)
+           for d in dirty]
+    return out, s_p, pb_eff
 
 
-def _noisy(base, tracks, nu, weights, geom, rng):
-    """``base`` plus the dirty image of the thermal noise alone, drawn as
-    add_thermal_noise draws it."""
-    z = rng.standard_normal(2 * tracks.uvw_m.shape[0]).view(np.complex128)
-    return base + grid_dirty(tracks.sigma_jy * z, tracks.uvw_m, nu, weights, geom)
+def _in_order(fn, jobs, threads):
+    """fn(*job) for every job, results in order; on ``threads`` threads with a bounded
+    look-ahead (jobs are pulled from the iterator in order, in this thread)."""
+    if threads <= 1:
+        for job in jobs:
+            yield fn(*job)
+        return
+    from collections import deque
+    from concurrent.futures import ThreadPoolExecutor
+    with ThreadPoolExecutor(threads) as pool:
+        queue = deque()
+        for job in jobs:
+            queue.append(pool.submit(fn, *job))
+            if len(queue) > 2 * threads:
+                yield queue.popleft().result()
+        while queue:
+            yield queue.popleft().result()
 
 
 def _images(planes, pointings, freqs, opts, beams, rngs):
-    """Every (channel, pointing) imaged, in channel-major order, CLEAN_THREADS at a time
-    (channels, pointings and noise draws alike are cleaned side by side; the noise is drawn
-    serially in that fixed order, so the result does not depend on the threads). ``rngs``:
-    one generator per noise realisation ([None]: noiseless); ``beams`` the restoring beam of
-    each channel. Yields, per channel, (c,
-    [corrected per realisation], sum A^2/s^2, median pointing noise, [CLEAN iterations])."""
+    """Every (channel, pointing) imaged and cleaned, channels and pointings side by side on
+    CLEAN_THREADS threads. The noise is drawn in this thread in channel-major order as each
+    job is handed out, so the result does not depend on the threads. ``rngs``: one generator
+    per noise realisation ([None]: noiseless); ``beams`` the restoring beam of each channel.
+    Yields, per channel, (c, [corrected per realisation], sum A^2/s^2, median pointing
+    noise, [CLEAN iterations])."""
     n_p, n_r = len(pointings), len(rngs)
-    jobs = [(c, p) for c in range(freqs.size) for p in range(n_p)]
-    step = max(1, CLEAN_THREADS // n_r) if n_r <= CLEAN_THREADS else 1
-    acc = {}
-    for start in range(0, len(jobs), step):
-        ready = []
-        for c, p in jobs[start:start + step]:
-            if c not in acc:
-                shape = planes(c).shape
-                acc[c] = [[np.zeros(shape) for _ in rngs], np.zeros(shape), [], [0] * n_r]
-            ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rngs))
-        cleaned = iter(_clean_all([(img, r[3], opts["threshold"] * r[4], r[4],
-                                    pointings[r[1]][1], beams[r[0]])
-                                   for r in ready for img in r[2]], opts))
-        for c, p, imgs, _, s_p, pb_eff in ready:
-            geom, (sy, sx) = pointings[p][1], pointings[p][2]
-            a = acc[c]
-            for k in range(len(imgs)):
-                img, n_it = next(cleaned)
-                a[3][k] += n_it
-                a[0][k][sy, sx] += pb_eff * img / s_p**2
-            a[1][sy, sx] += pb_eff**2 / s_p**2
-            a[2].append(s_p)
-            if len(a[2]) == n_p:
-                nums, den, noise, iters = acc.pop(c)
-                with np.errstate(divide="ignore", invalid="ignore"):
-                    corrected = [np.where(den > 0, num / den, 0.0) for num in nums]
-                yield c, corrected, den, float(np.median(noise)), iters
+
+    def jobs():
+        for c in range(freqs.size):
+            plane = planes(c)
+            for p in range(n_p):
+                yield (plane, pointings[p], freqs[c], opts, beams[c],
+                       _draws(pointings[p][0], rngs))
+    results = _in_order(_image_one, jobs(), CLEAN_THREADS)
+    shape = planes(0).shape
+    for c in range(freqs.size):
+        nums, den, noise, iters = [np.zeros(shape) for _ in rngs], np.zeros(shape), [], [0] * n_r
+        for p in range(n_p):
+            out, s_p, pb_eff = next(results)
+            sy, sx = pointings[p][2]
+            for k, (img, n_it) in enumerate(out):
+                iters[k] += n_it
+                nums[k][sy, sx] += pb_eff * img / s_p**2
+            den[sy, sx] += pb_eff**2 / s_p**2
+            noise.append(s_p)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            corrected = [np.where(den > 0, num / den, 0.0) for num in nums]
+        yield c, corrected, den, float(np.median(noise)), iters
 
 
 def _scales_px(opts, beam, tracks, geom, freqs):
