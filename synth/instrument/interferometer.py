@@ -8,6 +8,7 @@ pointing; the observed cube. The channel and pointing loop, mosaics and featheri
 """
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 from pathlib import Path
 
 import astropy.units as u
@@ -269,13 +270,24 @@ def antenna_phase_gains(tracks, phase_rms_rad, interval_s, rng):
     return np.exp(1j * (phi[tracks.ant1, slot] - phi[tracks.ant2, slot]))
 
 
+@lru_cache(maxsize=64)
+def _radius(geom):
+    """Distance (rad) of every pixel from the phase centre: once per pointing's sub-image
+    (read-only; shared by its channels)."""
+    l, m = geom.lm()
+    r = np.hypot(l, m)
+    r.setflags(write=False)
+    return r
+
+
 def _pb_images(tracks, geom, nu_hz, weights, use_pb):
-    """Per-group pair beams and their weight-averaged effective beam on the image grid."""
+    """Per-group pair beams and their weight-averaged effective beam on the image grid (the
+    pixel radii once per sub-image, the beams, which scale with the wavelength, per
+    channel)."""
     if not use_pb:
         one = np.ones((geom.ny, geom.nx))
         return [one] * len(tracks.groups), one
-    l, m = geom.lm()
-    r = np.hypot(l, m)
+    r = _radius(geom)
     pbs = [pair_beam(r, nu_hz, d1, d2, shape, taper) for _, d1, d2, shape, taper in tracks.groups]
     wg = np.array([weights[g[0]].sum() for g in tracks.groups])
     return pbs, sum(w * p for w, p in zip(wg, pbs)) / wg.sum()
