@@ -92,8 +92,10 @@ SETUP = {
     "n_pol": (int, 2, "polarisations recorded and averaged (1 or 2; noise / sqrt(n_pol))"),
     "seed": (int, 1, "noise seed"),
     "antennas": (str, None, 'array: a built-in layout name or a CSV file'),
-    "latitude_deg": (_NUM, None, "site latitude, deg (a dish: with zenith_opacity, T_sys follows the elevation)"),
-    "hour_angle_start_h": (_NUM, -2.0, "first hour angle, h (array track; dish: its track for T_sys)"),
+    "latitude_deg": (_NUM, None, "site latitude, deg (a dish: with zenith_opacity, T_sys "
+                     "follows the elevation)"),
+    "hour_angle_start_h": (_NUM, -2.0, "first hour angle, h (array track; dish: its track "
+                           "for T_sys)"),
     "hour_angle_stop_h": (_NUM, 2.0, "last hour angle, h"),
     "sample_interval_s": (_NUM, 300.0, "array: visibility sampling interval, s"),
     "weighting": (str, "robust", 'array: "natural", "uniform" or "robust"'),
@@ -127,7 +129,8 @@ SETUP = {
                          "image at this many sigma (dilated by a beam); default no mask"),
     "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
                            "random-group UVFITS file per pointing"),
-    "zenith_opacity": (_NUM, None, "zenith opacity; with receiver_temperature_k (and a dish's latitude_deg), T_sys "
+    "zenith_opacity": (_NUM, None, "zenith opacity; with receiver_temperature_k (and a "
+                       "dish's latitude_deg), T_sys "
                        "follows each sample's elevation instead of tsys_k"),
     "receiver_temperature_k": (_NUM, None, "receiver temperature T_rx, K (with "
                                "zenith_opacity)"),

@@ -38,7 +38,11 @@ OTHERS = {
     "deconvolve": ("bench_deconvolve.py", [], ["--quick"], [
         ("multi-scale / Högbom CLEAN time per channel", rf"multi-scale / Högbom = {_NUM}"),
         ("CLEAN channel loop, 1 thread / 2 threads",
-         rf"speed-up {_NUM} \(target (<=|>=) {_NUM}\)"),
+         rf"channel loop with CLEAN.*speed-up {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("19-pointing multi-scale mosaic: wall time on 2 threads (s)",
+         rf"mosaic, multi-scale CLEAN.*wall time on 2 threads {_NUM} s"),
+        ("19-pointing multi-scale mosaic, 1 thread / 2 threads",
+         rf"mosaic, multi-scale CLEAN.*speed-up {_NUM} \(target (<=|>=) {_NUM}"),
     ]),
     "realisations": ("bench_realisations.py", [], ["--quick"], [
         ("10 noise realisations / one observation, array, no deconvolution",
