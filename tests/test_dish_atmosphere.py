@@ -115,3 +115,27 @@ def test_config_dish_with_a_site():
     dish = make_instrument(st)
     assert dish.effective_tsys(-30 * u.deg).to_value(u.K) == pytest.approx(
         _formula_tsys(-30.0), rel=1e-3)
+
+
+def test_a_run_with_a_dish_site(tmp_path):
+    """Through a config: a dish setup with latitude_deg, zenith_opacity and
+    receiver_temperature_k (no tsys_k) records the noise of the radiometer equation with the
+    track's effective T_sys toward [sky] dec_deg (the quadrature above, 0.1 %)."""
+    import json
+    from synth.pipeline import run_config
+    conf = {"cloud": {"source": "demo", "size": 16, "box_pc": 1.0},
+            "sky": {"distance_pc": 2000.0, "dec_deg": 60.0},
+            "channels": {"width_kms": 0.5, "velocity_min_kms": -2.0, "velocity_max_kms": 2.0},
+            "tracer": [{"species": "CO", "transition": "2-1", "abundance": 1e-4}],
+            "output": {"figures": False},
+            "setup": [{"name": "d", "kind": "dish", "diameter_m": 40, "efficiency": 0.8,
+                       "latitude_deg": LAT, "zenith_opacity": TAU,
+                       "receiver_temperature_k": T_RX, "integration_time_h": 0.5}]}
+    run_config(conf, tmp_path / "run", progress=False, log=None)
+    summary = json.loads((tmp_path / "run" / "summary.json").read_text())
+    entry = next(iter(summary["setups"]["d"].values()))
+    from synth.molecules.registry import Line
+    nu = Line("CO", "2-1").frequency.to_value(u.Hz)
+    dnu = 0.5e3 / 299792458.0 * nu
+    expect = _formula_tsys(60.0) / (0.8 * np.sqrt(2 * dnu * 1800.0))
+    assert entry["noise_rms"] == pytest.approx(expect, rel=1e-3)
