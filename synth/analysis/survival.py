@@ -144,9 +144,9 @@ def _flux_jy(data, kind, beam, nu_hz, pix_sr):
     """
     if kind == "Jy/beam":
         return data * (pix_sr / beam.sr.value)
-    fac = np.array([(1 * u.K).to_value(u.Jy, u.brightness_temperature(n * u.Hz,
-                                                                      pix_sr * u.sr))
-                    for n in np.atleast_1d(nu_hz)])
+    nu = np.atleast_1d(np.asarray(nu_hz, dtype=np.float64))
+    fac = (np.ones(nu.size) * u.K).to_value(u.Jy, u.brightness_temperature(nu * u.Hz,
+                                                                            pix_sr * u.sr))
     return data * fac[:, None, None]
 
 
