@@ -43,6 +43,8 @@ OTHERS = {
          rf"mosaic, multi-scale CLEAN.*wall time on 2 threads {_NUM} s"),
         ("19-pointing multi-scale mosaic, 1 thread / 2 threads",
          rf"mosaic, multi-scale CLEAN.*speed-up {_NUM} \(target (<=|>=) {_NUM}"),
+        ("plain 1 -> 2 thread speed-up of GIL-free work (before the mosaic)",
+         rf"GIL-free work just before and after: {_NUM},"),
     ]),
     "realisations": ("bench_realisations.py", [], ["--quick"], [
         ("10 noise realisations / one observation, array, no deconvolution",
