@@ -101,10 +101,12 @@ SETUP = {
     "n_pol": (int, 2, "polarisations recorded and averaged (1 or 2; noise / sqrt(n_pol))"),
     "seed": (int, 1, "noise seed"),
     "antennas": (str, None, 'array: a built-in layout name or a CSV file'),
-    "latitude_deg": (_NUM, 8.0, "array: site latitude, deg (default: an invented site at +8)"),
-    "elevation_limit_deg": (_NUM, 15.0, "array: samples with the source lower than this are "
-                            "dropped, deg"),
-    "hour_angles_h": (list, [-2.0, 2.0], "array: [first, last] hour angle of the track, h"),
+    "latitude_deg": (_NUM, 8.0, "site latitude, deg (default: an invented site at +8; a dish "
+                     "uses it with zenith_opacity: T_sys follows the elevation)"),
+    "elevation_limit_deg": (_NUM, 15.0, "samples (array) or parts of the track (dish) with the "
+                            "source lower than this are dropped, deg"),
+    "hour_angles_h": (list, [-2.0, 2.0], "[first, last] hour angle of the track, h (a dish: "
+                      "its track for T_sys)"),
     "sample_interval_s": (_NUM, 300.0, "array: visibility sampling interval, s"),
     "weighting": (str, "natural", 'array: "natural", "uniform" or "robust"'),
     "robust": (_NUM, 0.5, "array: Briggs robust parameter (with weighting = \"robust\")"),
@@ -145,11 +147,12 @@ SETUP = {
                          "image at this many sigma (dilated by a beam); default no mask"),
     "write_visibilities": (bool, False, "array: also write the simulated visibilities, one "
                            "random-group UVFITS file per pointing"),
-    "zenith_opacity": (_NUM, None, "array: zenith opacity; with receiver_temperature_k, T_sys "
+    "zenith_opacity": (_NUM, None, "zenith opacity; with receiver_temperature_k (and a "
+                       "dish's latitude_deg), T_sys "
                        "follows each sample's elevation instead of tsys_k"),
-    "receiver_temperature_k": (_NUM, None, "array: receiver temperature T_rx, K (with "
+    "receiver_temperature_k": (_NUM, None, "receiver temperature T_rx, K (with "
                                "zenith_opacity)"),
-    "atmosphere_temperature_k": (_NUM, 270.0, "array: effective temperature of the "
+    "atmosphere_temperature_k": (_NUM, 270.0, "effective temperature of the "
                                  "atmosphere, K (with zenith_opacity)"),
 }
 #: config keys that no longer exist, with what replaced them

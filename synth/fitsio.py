@@ -150,12 +150,29 @@ _LOGICAL_CARDS = ("PBCORR", "DECONV", "FEATHER", "HANNING")
 
 
 def write_cube(cube, path, conf_hash=None, extra=None):
-    """Write a SpectralCube (or a Projection) to FITS atomically, with provenance cards."""
-    hdu = cube.hdu
+    """Write a SpectralCube (or a Projection) to FITS atomically, with provenance cards.
+
+    A cube with a beam per channel (VaryingResolutionSpectralCube) gets the FITS beams table:
+    a BEAMS binary extension with BMAJ, BMIN (arcsec), BPA (deg), CHAN and POL per channel
+    (as spectral-cube writes and reads it), and BMAJ/BMIN/BPA of the middle channel in the
+    primary header (CASAMBM = T says that the table holds the channels' own beams)."""
+    beams = getattr(cube, "beams", None)
+    if beams is not None:
+        from astropy import units as u
+        hdus = cube.hdulist
+        hdu = hdus[0]
+        mid = beams[len(beams) // 2]
+        hdu.header["BMAJ"] = (mid.major.to_value(u.deg), "[deg] beam major axis, middle channel")
+        hdu.header["BMIN"] = (mid.minor.to_value(u.deg), "[deg] beam minor axis, middle channel")
+        hdu.header["BPA"] = (mid.pa.to_value(u.deg), "[deg] beam position angle, middle channel")
+        hdu.header["CASAMBM"] = (True, "a beam per channel in the BEAMS table")
+    else:
+        hdu = cube.hdu
+        hdus = fits.HDUList([hdu])
     hdu.data = np.asarray(hdu.data, dtype=np.float32)
     _provenance(hdu.header, conf_hash, extra)
     with atomic_path(path) as tmp:
-        hdu.writeto(tmp, overwrite=True)
+        hdus.writeto(tmp, overwrite=True)
     return path
 
 

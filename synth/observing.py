@@ -27,7 +27,8 @@ UNIT_SUFFIXES = {"_arcsec": u.arcsec, "_deg": u.deg, "_kms": u.km / u.s, "_m": u
 #: [[setup]] keys that build the instrument (synth.Dish / synth.Array), per kind
 INSTRUMENT_KEYS = {
     "dish": ("name", "diameter_m", "beam_arcsec", "main_beam_efficiency", "tsys_k",
-             "fwhm_factor", "n_pol"),
+             "fwhm_factor", "n_pol", "latitude_deg", "elevation_limit_deg", "hour_angles_h",
+             "zenith_opacity", "receiver_temperature_k", "atmosphere_temperature_k"),
     "array": ("name", "antennas", "diameter_m", "latitude_deg", "elevation_limit_deg",
               "aperture_efficiency", "system_efficiency", "tsys_k", "fwhm_factor",
               "primary_beam_shape", "n_pol", "zenith_opacity", "receiver_temperature_k",
@@ -111,9 +112,11 @@ def observe_options(st, beyond_box="empty"):
     """Keyword arguments of synth.observe for a [[setup]] table."""
     kw = {"beyond_box": beyond_box, **_python_kwargs(st, OBSERVE_KEYS[st["kind"]])}
     if st["kind"] == "dish" and st["rms_k"] is None and st["noise"] and (
-            st["integration_time_h"] is None or st["tsys_k"] is None):
+            st["integration_time_h"] is None
+            or (st["tsys_k"] is None and st["zenith_opacity"] is None)):
         raise ConfigError(f"setup '{st['name']}' adds noise: give rms_k, or tsys_k and "
-                          "integration_time_h (or set noise = false)")
+                          "integration_time_h (or set noise = false; zenith_opacity replaces "
+                          "tsys_k)")
     return kw
 
 
@@ -268,7 +271,8 @@ def _write_observation(omap, base, chash, extra):
 
 
 def _obs_summary(obs):
-    beam = obs.beam
+    beams = getattr(obs, "beams", None)          # a beam per channel: the middle one
+    beam = obs.beam if beams is None else obs.unmasked_beams[obs.shape[0] // 2]
     meta = {k.upper(): v for k, v in obs.meta.items()}
     from .instrument.beam import unit_name
     return {"unit": unit_name(obs.unit),

@@ -196,7 +196,8 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     field_size : Quantity (one or two angles), optional
         Area to map (``map_size`` of observe); default the cube's extent.
     declination, hour_angles, sample_interval
-        Array track (declination default: the cube's CRVAL2).
+        Array track (declination default: the cube's CRVAL2). A dish with an atmosphere
+        model (``zenith_opacity``) uses the declination and its own ``hour_angles``.
     n_pol : {1, 2}, optional
         Polarisations; default the setup's own (``n_pol`` of the dish or array, 2).
     map_offset, pointing_pattern, pointing_spacing, guard_band, max_pointings, primary_beam
@@ -222,7 +223,8 @@ def plan(setup, line=None, *, target_snr=5.0, cube=None, percentile=50.0, channe
     if max_pointings is not None:
         mkw["max_pointings"] = max_pointings
     if kind == "dish":
-        beam, largest, rms_of, time_of = _dish_model(setup, freq, n_pol)
+        dec = _declination(declination, cube) if setup.has_atmosphere else None
+        beam, largest, rms_of, time_of = _dish_model(setup, freq, n_pol, dec)
         layout = _layout(setup, cube, freq, mkw, None)
     else:
         dec = _declination(declination, cube)
@@ -257,16 +259,19 @@ def _kind(setup):
                           "Array (plan each instrument of a combination separately)")
 
 
-def _dish_model(dish, freq, n_pol=None):
-    """Single dish: beam, no largest-scale limit, radiometer rms(t) and t(rms) (K)."""
+def _dish_model(dish, freq, n_pol=None, dec=None):
+    """Single dish: beam, no largest-scale limit, radiometer rms(t) and t(rms) (K); with the
+    dish's atmosphere model the effective T_sys of its track toward ``dec``, as observe
+    uses it."""
     from .instrument.noise import radiometer_rms, time_for_rms
-    if dish.tsys is None:
+    if dish.tsys is None and not dish.has_atmosphere:
         raise InstrumentError("setup tsys: the dish has no tsys; give Dish(tsys=...)")
+    tsys = dish.effective_tsys(dec) if dish.has_atmosphere else dish.tsys
     beam = dish.beam_at(freq)
     return (beam, np.nan * u.arcsec,
-            lambda dnu, t: radiometer_rms(dish.tsys, dish.main_beam_efficiency, dnu, t,
+            lambda dnu, t: radiometer_rms(tsys, dish.main_beam_efficiency, dnu, t,
                                           n_pol or dish.n_pol),
-            lambda dnu, rms: time_for_rms(dish.tsys, dish.main_beam_efficiency, dnu, rms,
+            lambda dnu, rms: time_for_rms(tsys, dish.main_beam_efficiency, dnu, rms,
                                           n_pol or dish.n_pol))
 
 
@@ -302,7 +307,8 @@ def _declination(declination, cube):
     if declination is not None:
         return u.Quantity(declination).to(u.deg)
     if cube is None:
-        raise InstrumentError("declination: needed for an interferometer when no cube is given")
+        raise InstrumentError("declination: needed for an interferometer (or a dish with an "
+                              "atmosphere model) when no cube is given")
     return cube.wcs.celestial.wcs.crval[1] * u.deg
 
 

@@ -214,3 +214,25 @@ def test_grown_mask_follows_emission_not_noise():
     img[50, 40] = 20.0
     m = grown_mask(img, 1.0, 5.0, 3)
     assert m[50, 40] and m[53, 40] and m[50, 37] and not m[54, 40]
+
+
+@pytest.mark.parametrize("n_comp", [1, 60, 3000])   # kernel 49^2: 1, 60 direct, 3000 by FFT
+def test_restore_equals_the_fft_convolution(n_comp):
+    """restore adds few components one kernel at a time (many by FFT): the same as
+    scipy.signal.fftconvolve(model, kernel, mode="same") + residual to 1e-12 of the peak,
+    components near the edges included (the kernel clipped there)."""
+    import astropy.units as u
+    from radio_beam import Beam
+    from scipy.signal import fftconvolve
+    from synth.instrument.imaging import restore, restoring_kernel
+    rng = np.random.default_rng(n_comp)
+    model = np.zeros((70, 90))
+    ys, xs = rng.integers(0, 70, n_comp), rng.integers(0, 90, n_comp)
+    model[ys, xs] = rng.normal(size=n_comp)
+    model[0, 0], model[69, 89] = 1.0, -0.5              # corners
+    res = rng.normal(size=model.shape) * 0.01
+    beam = Beam(major=1.2 * u.arcsec, minor=0.7 * u.arcsec, pa=30 * u.deg)
+    dx, dy = -np.radians(0.2 / 3600), np.radians(0.2 / 3600)
+    ref = fftconvolve(model, restoring_kernel(beam, dx, dy), mode="same") + res
+    got = restore(model, res, beam, dx, dy)
+    np.testing.assert_allclose(got, ref, rtol=0, atol=1e-12 * np.abs(ref).max())

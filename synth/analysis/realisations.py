@@ -6,8 +6,13 @@ observes the same sky N times with seeds ``seed, seed + 1, ...`` and assesses ea
 observation as a run does (the model on the observation's own grid), returning the mean and
 the standard deviation (ddof = 1) of every scalar metric and of the per-scale recovered power.
 
-Each realisation is a full observation: nothing is reused between them yet (the uv tracks,
-weights, PSFs and noiseless visibilities could be; the deconvolution cannot).
+What the noise does not change is computed once (:func:`synth.instrument.observe.observe_seeds`):
+the spectral step, the map layout and the model on it; for a dish the beam convolution; for
+an array the uv tracks, weights, primary beams, PSFs, restoring beam and the noiseless dirty
+image of every channel and pointing. Each realisation adds its own noise-only dirty image
+(seeded as a full observation with that seed, so realisation ``s`` equals ``observe(...,
+seed=s)``) and is deconvolved on its own: CLEAN is not linear in its input. The survival
+reference (the model convolved to the restoring beam) is made once too.
 """
 
 from dataclasses import dataclass
@@ -61,19 +66,21 @@ def assess_realisations(cube, instrument, n, *, seed=0, emission_floor=0.01, mea
     ``measure``, a callable, is also applied to each ObservedMap (e.g. the statistics layer);
     its results are kept in ``measured``. ``observe_kw`` are :func:`synth.observe` options
     (the noise must be on)."""
-    from ..instrument.observe import observe
-    from .survival import assess_map
+    from ..instrument.observe import observe_seeds
+    from .survival import assess_map, reference_cube
     n = _check_n(n)
     if observe_kw.get("noise") is False:
         raise InstrumentError("realisations: noise = False gives n identical observations; "
                               "realisations need the noise on")
     observe_kw = {k: v for k, v in observe_kw.items() if k not in ("seed", "with_maps")}
     rows, curves, scales, measured = [], [], None, []
-    for i in range(n):
-        omap = observe(cube, instrument, seed=int(seed) + i, with_maps=True, **observe_kw)
+    observe_kw.pop("noise", None)
+    maps = observe_seeds(cube, instrument, [int(seed) + i for i in range(n)], **observe_kw)
+    ref = reference_cube(maps[0].sky, maps[0].corrected)  # same sky, grid, beam for all
+    for omap in maps:
         if measure is not None:
             measured.append(measure(omap))
-        m = assess_map(omap, emission_floor)
+        m = assess_map(omap, emission_floor, reference=ref)
         rows.append(m.as_row())
         t = m.recovery
         scales = np.asarray(t["scale_arcsec"])

@@ -144,9 +144,9 @@ def _flux_jy(data, kind, beam, nu_hz, pix_sr):
     """
     if kind == "Jy/beam":
         return data * (pix_sr / beam.sr.value)
-    fac = np.array([(1 * u.K).to_value(u.Jy, u.brightness_temperature(n * u.Hz,
-                                                                      pix_sr * u.sr))
-                    for n in np.atleast_1d(nu_hz)])
+    nu = np.atleast_1d(np.asarray(nu_hz, dtype=np.float64))
+    fac = (np.ones(nu.size) * u.K).to_value(u.Jy, u.brightness_temperature(nu * u.Hz,
+                                                                            pix_sr * u.sr))
     return data * fac[:, None, None]
 
 
@@ -194,7 +194,7 @@ def _moments(data, mask, v_kms, dv_kms, unit, sigma):
 
 
 def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.01,
-           nbins=None, attenuate=False, response=None):
+           nbins=None, attenuate=False, response=None, reference=None):
     """Measure what of the ideal cube survives in the observed cube.
 
     Parameters
@@ -216,6 +216,9 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
     response : ndarray (y, x), optional
         The relative response of a (mosaic) map; ``flux_fraction_pb`` is then the flux where
         it is >= 1/2.
+    reference : tuple, optional
+        ``reference_cube(ideal, observed)`` computed before for a cube with the same sky
+        grid, channels, unit and beam (noise realisations share it).
 
     Blank (NaN) voxels of the observed cube, e.g. where a primary-beam-corrected map is cut,
     are left out of every metric, from both cubes: the comparison covers the mapped area only.
@@ -231,7 +234,8 @@ def assess(ideal, observed, *, noise=None, primary_beam=None, emission_floor=0.0
     """
     if not 0 < emission_floor < 1:
         raise InstrumentError(f"emission_floor: {emission_floor}; valid: 0 < floor < 1")
-    ref, ideal_k, notes = reference_cube(ideal, observed)
+    ref, ideal_k, notes = reference if reference is not None else reference_cube(ideal, observed)
+    notes = list(notes)
     if attenuate:
         ref = ref * _pb_response(ref.shape[1:], pixel_scale_arcsec(observed), primary_beam)
         notes.append(f"attenuated the reference by a Gaussian primary beam of FWHM "
@@ -291,7 +295,7 @@ def recorded_noise(cube):
     return rms * u.Unit(str(meta.get("NOISEUNI") or cube.unit.to_string()))
 
 
-def assess_map(observed_map, emission_floor=0.01):
+def assess_map(observed_map, emission_floor=0.01, reference=None):
     """``assess`` of an :class:`~synth.instrument.mapping.ObservedMap` as a run does it: the
     primary-beam-corrected map of an array (blank below its cutoff) against the unattenuated
     model on the same grid, with the flux where the response is >= 1/2; a dish map against the
@@ -299,7 +303,7 @@ def assess_map(observed_map, emission_floor=0.01):
     m = observed_map
     response = m.response if m.layout.kind == "array" else None
     return assess(m.sky, m.corrected, noise=recorded_noise(m.corrected), response=response,
-                  emission_floor=emission_floor)
+                  emission_floor=emission_floor, reference=reference)
 
 
 def _ratio(a, b):

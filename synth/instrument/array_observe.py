@@ -25,14 +25,14 @@ from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
 from .grid import place_model
 from .imaging import fit_restoring_beam, restore
-from .interferometer import (OBSERVE_OPTIONS, RENAMED_OPTIONS, _channel_width_hz, _check_options, _dirty,
+from .interferometer import (OBSERVE_OPTIONS, RENAMED_OPTIONS, _channel_width_hz, _check_options,
                              _pb_images, _psf, _quantity, _seed, _visibilities,
                              antenna_phase_gains, assemble_tracks, new_observed_cube)
 from .uv import SIDEREAL_RATE_RAD_S
 from .mapping import (ObservedMap, array_canvas, array_layout, map_options,
                       pointing_hour_angles, primary_beam_fwhm_arcsec, sub_boxes)
 from .visibilities import (ImageGeometry, check_sampling, cube_frequencies_hz, cube_geometry,
-                           jy_per_pixel_factor)
+                           grid_dirty, jy_per_pixel_factor)
 from .weighting import image_noise_jy, imaging_weights
 
 __all__ = ["observe_interferometric", "simulate_visibilities", "MAP_KEYS",
@@ -83,75 +83,114 @@ def _scale_to_rms(pointings, rms, nu, opts):
     return out
 
 
-#: threads that CLEAN the pointings of one channel side by side (the Högbom kernel releases
-#: the GIL; every pointing is cleaned independently, so the result does not depend on it)
+#: threads that image and CLEAN the channels and pointings side by side (ducc0, numba and
+#: scipy's FFTs release the GIL; each (channel, pointing) is imaged independently and its
+#: noise drawn in a fixed order, so the result does not depend on the threads)
 CLEAN_THREADS = 2
 
 
-def _clean_all(jobs, opts):
-    """CLEAN of [(dirty, psf, threshold, noise)] (Högbom, or multi-scale with
-    ``opts["scales_px"]``), on CLEAN_THREADS threads; with ``opts["clean_mask_sigma"]`` only inside
-    a mask grown from each dirty image (at that many sigma, dilated by one beam)."""
-    def one(job):
-        mask = None
-        if opts["clean_mask_sigma"] is not None:
-            mask = grown_mask(job[0], job[3], float(opts["clean_mask_sigma"]), opts["beam_px"])
-        if opts["deconvolver"] == "multiscale":
-            return multiscale_clean(job[0], job[1], job[2], opts["scales_px"], opts["clean_loop_gain"],
-                                    opts["clean_max_components"], opts["beam_px"], mask)
-        return hogbom(job[0], job[1], job[2], opts["clean_loop_gain"], opts["clean_max_components"], mask)
-    if len(jobs) == 1 or CLEAN_THREADS == 1:
-        return [one(j) for j in jobs]
-    from concurrent.futures import ThreadPoolExecutor
-    with ThreadPoolExecutor(CLEAN_THREADS) as pool:
-        return list(pool.map(one, jobs))
+def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts):
+    """``dirty`` cleaned and restored (Högbom, or multi-scale with ``opts["scales_px"]``),
+    or as it is with ``opts["deconvolver"]`` "none"; with ``opts["clean_mask_sigma"]`` the components
+    are only inside a mask grown from the dirty image (at that many sigma, dilated by one
+    beam). Returns (image, CLEAN iterations)."""
+    if opts["deconvolver"] == "none":
+        return dirty, 0
+    mask = None
+    if opts["clean_mask_sigma"] is not None:
+        mask = grown_mask(dirty, noise, float(opts["clean_mask_sigma"]), opts["beam_px"])
+    if opts["deconvolver"] == "multiscale":
+        model, res, n_it = multiscale_clean(dirty, psf, threshold, opts["scales_px"],
+                                            opts["clean_loop_gain"], opts["clean_max_components"], opts["beam_px"],
+                                            mask)
+    else:
+        model, res, n_it = hogbom(dirty, psf, threshold, opts["clean_loop_gain"], opts["clean_max_components"], mask)
+    return restore(model, res, beam, geom.dx_rad, geom.dy_rad), n_it
 
 
-def _prepare(plane, pointing, nu, opts, rng):
-    """Dirty image, PSF (if deconvolving), image noise and effective primary beam of one
-    pointing in one channel (draws the pointing's thermal noise from ``rng``)."""
+def _draws(tracks, rngs):
+    """The unit complex noise of one (channel, pointing) per generator, drawn as
+    add_thermal_noise draws it (None for a noiseless observation)."""
+    n = 2 * tracks.uvw_m.shape[0]
+    return [None if r is None else r.standard_normal(n).view(np.complex128) for r in rngs]
+
+
+def _image_one(plane, pointing, nu, opts, beam, draws):
+    """One channel of one pointing: weights, primary beams, dirty image(s), PSF, CLEAN.
+
+    One draw: the noise is added to the visibilities before gridding (as
+    add_thermal_noise adds it). Several (noise realisations): the noiseless dirty image is
+    gridded once and each draw's noise-only dirty image added to it (gridding is linear).
+    Returns ([(image, CLEAN iterations) per draw], image noise, effective primary beam)."""
     tracks, geom, box = pointing
     w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
                         opts["robust"])
     pbs, pb_eff = _pb_images(tracks, geom, nu, w, opts["primary_beam"])
-    img = _dirty(plane[box], tracks, nu, w, geom, pbs, rng)
+    vis = _visibilities(plane[box], tracks, nu, geom, pbs, None)
+    if len(draws) == 1:
+        if draws[0] is not None:
+            vis = vis + tracks.sigma_jy * draws[0]
+        dirty = [grid_dirty(vis, tracks.uvw_m, nu, w, geom)]
+    else:
+        base = grid_dirty(vis, tracks.uvw_m, nu, w, geom)
+        dirty = [base + grid_dirty(tracks.sigma_jy * z, tracks.uvw_m, nu, w, geom)
+                 for z in draws]
     psf = _psf(tracks, nu, w, geom) if opts["deconvolver"] != "none" else None
-    return img, psf, image_noise_jy(w, tracks.sigma_jy), pb_eff
+    s_p = image_noise_jy(w, tracks.sigma_jy)
+    out = [_deconvolved(d, psf, opts["clean_stop_sigma"] * s_p, s_p, geom, beam, opts)
+           for d in dirty]
+    return out, s_p, pb_eff
 
 
-def _images(planes, pointings, freqs, opts, beam, rng):
-    """Every (channel, pointing) imaged, in channel-major order, CLEAN_THREADS at a time
-    (channels and pointings alike are cleaned side by side; the noise is drawn serially in
-    that fixed order, so the result does not depend on the threads). Yields, per channel,
-    (c, corrected, sum A^2/s^2, median pointing noise, CLEAN iterations)."""
-    n_p = len(pointings)
-    jobs = [(c, p) for c in range(freqs.size) for p in range(n_p)]
-    acc = {}
-    for start in range(0, len(jobs), max(1, CLEAN_THREADS)):
-        ready = []
-        for c, p in jobs[start:start + max(1, CLEAN_THREADS)]:
-            if c not in acc:
-                shape = planes(c).shape
-                acc[c] = [np.zeros(shape), np.zeros(shape), [], 0]
-            ready.append((c, p) + _prepare(planes(c), pointings[p], freqs[c], opts, rng))
-        if opts["deconvolver"] != "none":
-            cleaned = _clean_all([(r[2], r[3], opts["clean_stop_sigma"] * r[4], r[4]) for r in ready],
-                                 opts)
-        for k, (c, p, img, _, s_p, pb_eff) in enumerate(ready):
-            geom, (sy, sx) = pointings[p][1], pointings[p][2]
-            a = acc[c]
-            if opts["deconvolver"] != "none":
-                model, res, n_it = cleaned[k]
-                img = restore(model, res, beam, geom.dx_rad, geom.dy_rad)
-                a[3] += n_it
-            a[0][sy, sx] += pb_eff * img / s_p**2
-            a[1][sy, sx] += pb_eff**2 / s_p**2
-            a[2].append(s_p)
-            if len(a[2]) == n_p:
-                num, den, noise, iters = acc.pop(c)
-                with np.errstate(divide="ignore", invalid="ignore"):
-                    corrected = np.where(den > 0, num / den, 0.0)
-                yield c, corrected, den, float(np.median(noise)), iters
+def _in_order(fn, jobs, threads):
+    """fn(*job) for every job, results in order; on ``threads`` threads with a bounded
+    look-ahead (jobs are pulled from the iterator in order, in this thread)."""
+    if threads <= 1:
+        for job in jobs:
+            yield fn(*job)
+        return
+    from collections import deque
+    from concurrent.futures import ThreadPoolExecutor
+    with ThreadPoolExecutor(threads) as pool:
+        queue = deque()
+        for job in jobs:
+            queue.append(pool.submit(fn, *job))
+            if len(queue) > 2 * threads:
+                yield queue.popleft().result()
+        while queue:
+            yield queue.popleft().result()
+
+
+def _images(planes, pointings, freqs, opts, beams, rngs):
+    """Every (channel, pointing) imaged and cleaned, channels and pointings side by side on
+    CLEAN_THREADS threads. The noise is drawn in this thread in channel-major order as each
+    job is handed out, so the result does not depend on the threads. ``rngs``: one generator
+    per noise realisation ([None]: noiseless); ``beams`` the restoring beam of each channel.
+    Yields, per channel, (c, [corrected per realisation], sum A^2/s^2, median pointing
+    noise, [CLEAN iterations])."""
+    n_p, n_r = len(pointings), len(rngs)
+
+    def jobs():
+        for c in range(freqs.size):
+            plane = planes(c)
+            for p in range(n_p):
+                yield (plane, pointings[p], freqs[c], opts, beams[c],
+                       _draws(pointings[p][0], rngs))
+    results = _in_order(_image_one, jobs(), CLEAN_THREADS)
+    shape = planes(0).shape
+    for c in range(freqs.size):
+        nums, den, noise, iters = [np.zeros(shape) for _ in rngs], np.zeros(shape), [], [0] * n_r
+        for p in range(n_p):
+            out, s_p, pb_eff = next(results)
+            sy, sx = pointings[p][2]
+            for k, (img, n_it) in enumerate(out):
+                iters[k] += n_it
+                nums[k][sy, sx] += pb_eff * img / s_p**2
+            den[sy, sx] += pb_eff**2 / s_p**2
+            noise.append(s_p)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            corrected = [np.where(den > 0, num / den, 0.0) for num in nums]
+        yield c, corrected, den, float(np.median(noise)), iters
 
 
 def _scales_px(opts, beam, tracks, geom, freqs):
@@ -171,36 +210,70 @@ def _scales_px(opts, beam, tracks, geom, freqs):
     return default_scales(beam.major.to_value(u.rad) / pix, las_px, min(geom.nx, geom.ny))
 
 
-def _mosaic(sky, pointings, freqs, opts, noise, seed, out_sl):
-    """The channel loop: corrected and flat-noise mosaics, response and noise per channel,
-    restoring beam, CLEAN iterations, the sky fraction where the response is < 1/2."""
-    rng = np.random.default_rng(seed) if noise else None
+def _mosaic(sky, pointings, freqs, opts, noise, seeds, out_sl):
+    """The channel loop: corrected and flat-noise mosaics (one per seed in ``seeds``),
+    response and noise per channel, restoring beam, CLEAN iterations (per seed), the sky
+    fraction where the response is < 1/2."""
+    rngs = [np.random.default_rng(s) for s in seeds] if noise else [None]
     ref = freqs.size // 2
     t0, g0, _ = pointings[0]
-    w0 = imaging_weights(t0.uvw_m, freqs[ref], t0.sigma_jy, g0, opts["weighting"], opts["robust"])
-    beam = fit_restoring_beam(_psf(t0, freqs[ref], w0, g0), g0.dx_rad, g0.dy_rad)
+    beam, beams = restoring_beams(t0, g0, freqs, opts)
     opts = dict(opts, beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))
     if opts["deconvolver"] == "multiscale":
         opts["scales_px"] = _scales_px(opts, beam, t0, g0, freqs)
     canvas_geom = ImageGeometry(sky.shape[2], sky.shape[1], g0.dx_rad, g0.dy_rad, 0.0, 0.0)
     ny, nx = out_sl[0].stop - out_sl[0].start, out_sl[1].stop - out_sl[1].start
-    corrected = np.empty((freqs.size, ny, nx))
+    corrected = [np.empty((freqs.size, ny, nx)) for _ in rngs]
     response = np.empty((freqs.size, ny, nx))
-    rms, iters, outside, total = np.empty(freqs.size), 0, 0.0, 0.0
+    rms, iters, outside, total = np.empty(freqs.size), [0] * len(rngs), 0.0, 0.0
     data = np.asarray(sky.unmasked_data[:].value)          # finite: place_model made it
     to_jy = np.broadcast_to(jy_per_pixel_factor(sky, freqs, canvas_geom), freqs.shape)
     def planes(c):
         return data[c] * to_jy[c]
-    for c, img, den, s_ref, k in _images(planes, pointings, freqs, opts, beam, rng):
+    per_channel = beams if beams is not None else [beam] * freqs.size
+    for c, imgs, den, s_ref, ks in _images(planes, pointings, freqs, opts, per_channel, rngs):
         plane = planes(c)
         resp = s_ref * np.sqrt(den)
         outside += np.abs(plane[resp < 0.5]).sum()
         total += np.abs(plane).sum()
-        corrected[c], response[c] = img[out_sl], resp[out_sl]
+        response[c] = resp[out_sl]
+        for k, img in enumerate(imgs):
+            corrected[k][c] = img[out_sl]
+            iters[k] += ks[k]
         rms[c] = s_ref
-        iters += k
     frac = outside / total if total > 0 else 0.0
-    return corrected, response, rms, beam, iters, frac
+    return corrected, response, rms, beam if beams is None else beams, iters, frac
+
+
+#: the restoring beam is stored per channel when its major or minor axis changes by more
+#: than this fraction across the band (max / min - 1); below it one beam serves every channel
+BEAM_VARIES = 0.01
+
+
+def _fit_beam(tracks, geom, nu, opts):
+    w = imaging_weights(tracks.uvw_m, nu, tracks.sigma_jy, geom, opts["weighting"],
+                        opts["robust"])
+    return fit_restoring_beam(_psf(tracks, nu, w, geom), geom.dx_rad, geom.dy_rad)
+
+
+def restoring_beams(tracks, geom, freqs, opts):
+    """(beam, beams): the restoring beam fitted to the PSF main lobe at the middle channel,
+    and None when the beams fitted at the band's first and last channels differ from it by
+    at most BEAM_VARIES in major and minor axis, else the list of the beams fitted to every
+    channel's PSF (the synthesised beam scales about as 1 / frequency, so the band's ends
+    bound the change)."""
+    ref = freqs.size // 2
+    beam = _fit_beam(tracks, geom, freqs[ref], opts)
+    if freqs.size < 2:
+        return beam, None
+    ends = [_fit_beam(tracks, geom, freqs[c], opts) for c in (0, freqs.size - 1)]
+    axes = np.array([[b.major.to_value(u.rad), b.minor.to_value(u.rad)]
+                     for b in ends + [beam]])
+    if np.all(axes.max(axis=0) / axes.min(axis=0) - 1.0 <= BEAM_VARIES):
+        return beam, None
+    beams = [ends[0] if c == 0 else ends[1] if c == freqs.size - 1 else beam if c == ref
+             else _fit_beam(tracks, geom, freqs[c], opts) for c in range(freqs.size)]
+    return beam, beams
 
 
 @dataclass(frozen=True, eq=False)
@@ -291,7 +364,7 @@ def _warn_outside(frac, layout):
         warnings.warn(f"{100 * frac:.1f}% of the sky cube's flux lies where the map's response "
                       f"is below one half ({layout.n_pointings} pointing(s)); that emission is "
                       f"attenuated or lost: {hint}", FieldLargerThanPrimaryBeamWarning,
-                      stacklevel=5)
+                      stacklevel=6)
 
 
 def _split_options(kwargs):
@@ -345,34 +418,71 @@ def observe_interferometric(cube, instrument, *, noise=True, seed=None, integrat
     arrays, dish = split_instruments(instrument)
     opts, mopts, dish_opts = _split_options(dict(kwargs))
     plan = _prepare_plan(cube, arrays, opts, mopts, noise, seed, integration_time)
-    seed, freqs, layout, sky = plan.seed, plan.freqs, plan.layout, plan.sky
+    return _observations(cube, plan, dish, dish_opts, [plan.seed], noise, with_maps,
+                         hanning)[0]
+
+
+def observe_interferometric_seeds(cube, instrument, seeds, *, noise=True,
+                                  integration_time=None, with_maps=False, hanning=False,
+                                  **kwargs):
+    """``observe_interferometric`` once per seed in ``seeds`` (a list of observations, each
+    equal to the observation with that seed), reusing what the noise does not change: the
+    layout, model, uv tracks, weights, primary beams, PSFs, restoring beam and the noiseless
+    dirty image of every channel and pointing; each realisation adds its own noise-only
+    dirty image (seeded as a full observation) and is deconvolved on its own. With antenna
+    phase errors (seeded like the noise) or a single dish to feather, each seed is a full
+    observation."""
+    seeds = [_seed(s, True) for s in seeds]
+    arrays, dish = split_instruments(instrument)
+    opts, mopts, dish_opts = _split_options(dict(kwargs))
+    full = (not noise or dish is not None
+            or u.Quantity(opts["phase_rms"]).to_value(u.rad) > 0)
+    if full:
+        return [observe_interferometric(cube, instrument, noise=noise, seed=s,
+                                        integration_time=integration_time,
+                                        with_maps=with_maps, hanning=hanning, **kwargs)
+                for s in seeds]
+    plan = _prepare_plan(cube, arrays, opts, mopts, noise, seeds[0], integration_time)
+    return _observations(cube, plan, dish, dish_opts, seeds, noise, with_maps, hanning)
+
+
+def _observations(cube, plan, dish, dish_opts, seeds, noise, with_maps, hanning):
+    """The products of ``plan`` observed with each seed (one list entry per seed)."""
+    opts, mopts, freqs, layout, sky = plan.opts, plan.mopts, plan.freqs, plan.layout, plan.sky
     pointings, out_sl = plan.pointings, plan.out_sl
     corrected, response, rms, beam, iters, frac = _mosaic(sky, pointings, freqs, opts, noise,
-                                                          seed, out_sl)
+                                                          seeds, out_sl)
+    mid_beam = beam[freqs.size // 2] if isinstance(beam, list) else beam
     if mopts.map_size is None:      # the whole model was to be mapped: say what is lost
         _warn_outside(frac, layout)
     out_sky = sky[:, out_sl[0], out_sl[1]]
-    meta = dict(INSTRUME="+".join(pointings[0][0].names),
-                NOISERMS=float(np.median(rms)) if noise else 0.0,
-                NOISEUNI="Jy/beam", NSEED=seed if noise else -1, WEIGHTNG=opts["weighting"],
-                ROBUST=float(opts["robust"]), DECONV=opts["deconvolver"] != "none",
-                NPOINT=layout.n_pointings,
-                MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
-                PBLIMIT=float(opts["primary_beam_cutoff"]),
-                NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
-                CLEANIT=int(iters), THEORMS=float(np.median(rms)),
-                DECONVER=str(opts["deconvolver"]),
-                MASKSIG=float(opts["clean_mask_sigma"]) if opts["clean_mask_sigma"] is not None else 0.0,
-                PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
-    if dish is not None:
-        sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
-                                              seed, hanning)
-        corrected = feather_mosaic(corrected, response, sd_k, sd_beam, beam, freqs,
-                                   abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
-                                   opts["dish_flux_scale"])
-        meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
-                    SDSCALE=float(opts["dish_flux_scale"]))
-    return _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps)
+    out = []
+    for seed, corr, its in zip(seeds, corrected, iters):
+        meta = dict(INSTRUME="+".join(pointings[0][0].names),
+                    NOISERMS=float(np.median(rms)) if noise else 0.0,
+                    NOISEUNI="Jy/beam", NSEED=seed if noise else -1,
+                    WEIGHTNG=opts["weighting"],
+                    ROBUST=float(opts["robust"]), DECONV=opts["deconvolver"] != "none",
+                    NPOINT=layout.n_pointings,
+                    MOSAIC=layout.pattern if layout.n_pointings > 1 else "single",
+                    PBLIMIT=float(opts["primary_beam_cutoff"]),
+                    NVIS=int(sum(t.uvw_m.shape[0] for t, _, _ in pointings)),
+                    CLEANIT=int(its), THEORMS=float(np.median(rms)),
+                    DECONVER=str(opts["deconvolver"]),
+                    MASKSIG=float(opts["clean_mask_sigma"]) if opts["clean_mask_sigma"] is not None
+                    else 0.0,
+                    PHASERMS=float(u.Quantity(opts["phase_rms"]).to_value(u.deg)))
+        if dish is not None:
+            sd_k, sd_beam, sd_name = dish_on_grid(dish, sky, out_sl, out_sky, dish_opts, noise,
+                                                  seed, hanning)
+            corr = feather_mosaic(corr, response, sd_k, sd_beam, mid_beam, freqs,
+                                  abs(pointings[0][1].dx_rad) * ARCSEC_PER_RAD,
+                                  opts["dish_flux_scale"])
+            meta.update(INSTRUME=f"{meta['INSTRUME']}+{sd_name}", FEATHER=True,
+                        SDSCALE=float(opts["dish_flux_scale"]))
+        out.append(_products(out_sky, corr, response, rms, beam, meta, opts, layout,
+                             with_maps))
+    return out
 
 
 def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_maps):
@@ -394,7 +504,7 @@ def _products(out_sky, corrected, response, rms, beam, meta, opts, layout, with_
         sens = np.where(response[mid] > 0, rms[mid] / response[mid], np.inf)
     if unit == "K":
         nu = cube_frequencies_hz(out_sky)[mid]
-        sens = sens * float(beam.jtok(nu * u.Hz).value)
+        sens = sens * float((beam[mid] if isinstance(beam, list) else beam).jtok(nu * u.Hz).value)
     return ObservedMap(cube=chosen, corrected=c_cube, uncorrected=f_cube,
                        sensitivity=sens * u.Unit(unit), response=response[mid], sky=out_sky,
                        layout=layout)

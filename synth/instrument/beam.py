@@ -159,27 +159,40 @@ def _noise_in(cube, beam, unit):
     return {"NOISERMS": rms, "NOISEUNI": unit}
 
 
+def _factors(cube, beam):
+    """(Jy/beam per K for each channel, the beam of the noise card, the beam to attach):
+    with a beam per channel (a VaryingResolutionSpectralCube and no ``beam``), each channel
+    with its own and the middle channel's for the noise; the cube keeps its beams."""
+    beams = getattr(cube, "beams", None) if beam is None else None
+    freqs = sky_frequencies(cube)
+    if beams is None:
+        beam = _cube_beam(cube, beam)
+        return jy_per_k(beam, freqs), beam, beam
+    factor = np.array([float(jy_per_k(b, f)) for b, f in zip(cube.unmasked_beams, freqs)])
+    return factor, cube.unmasked_beams[len(factor) // 2], None
+
+
 def k_to_jy_per_beam(cube, beam=None):
-    """Convert a K cube to Jy/beam (per channel at its sky frequency); attaches the beam.
-    A NOISERMS card in the meta follows the unit (NOISEUNI)."""
-    beam = _cube_beam(cube, beam)
+    """Convert a K cube to Jy/beam (per channel at its sky frequency, with its own beam if
+    the cube has one per channel); attaches the beam. A NOISERMS card in the meta follows
+    the unit (NOISEUNI)."""
+    factor, noise_beam, beam = _factors(cube, beam)
     if brightness_kind(cube) == "Jy/beam":
         return cube
-    factor = jy_per_k(beam, sky_frequencies(cube))[:, None, None]
-    data = cube_values(cube, allow_blank=True) * cube.unit.to(u.K) * factor
+    data = cube_values(cube, allow_blank=True) * cube.unit.to(u.K) * factor[:, None, None]
     return new_cube(cube, data, u.Jy / u.beam, beam=beam,
-                    meta_update=_noise_in(cube, beam, "Jy/beam"))
+                    meta_update=_noise_in(cube, noise_beam, "Jy/beam"))
 
 
 def jy_per_beam_to_k(cube, beam=None):
-    """Convert a Jy/beam cube to K (per channel at its sky frequency). A NOISERMS card in the
-    meta follows the unit (NOISEUNI)."""
-    beam = _cube_beam(cube, beam)
+    """Convert a Jy/beam cube to K (per channel at its sky frequency, with its own beam if
+    the cube has one per channel). A NOISERMS card in the meta follows the unit
+    (NOISEUNI)."""
+    factor, noise_beam, beam = _factors(cube, beam)
     if brightness_kind(cube) == "K":
         return cube
-    factor = jy_per_k(beam, sky_frequencies(cube))[:, None, None]
-    data = cube_values(cube, allow_blank=True) * cube.unit.to(u.Jy / u.beam) / factor
-    return new_cube(cube, data, u.K, beam=beam, meta_update=_noise_in(cube, beam, "K"))
+    data = cube_values(cube, allow_blank=True) * cube.unit.to(u.Jy / u.beam) / factor[:, None, None]
+    return new_cube(cube, data, u.K, beam=beam, meta_update=_noise_in(cube, noise_beam, "K"))
 
 
 def unit_name(unit):

@@ -41,7 +41,7 @@ def brightness_kind(cube):
     if unit.is_equivalent(u.K):
         return "K"
     if unit.is_equivalent(u.Jy / u.beam):
-        if getattr(cube, "_beam", None) is None:
+        if getattr(cube, "_beam", None) is None and getattr(cube, "beams", None) is None:
             raise InstrumentError("cube: unit is Jy/beam but the cube carries no beam; "
                                   "attach one with cube.with_beam(Beam(...))")
         return "Jy/beam"
@@ -93,11 +93,17 @@ def cube_values(cube, allow_blank=False):
 
 def new_cube(template, data, unit, *, wcs=None, beam=None, meta_update=None):
     """A new SpectralCube from ``data`` with the template's WCS (or ``wcs``), its own copy of
-    the template's meta (plus ``meta_update``) and the given beam (default: the template's)."""
+    the template's meta (plus ``meta_update``) and the given beam (default: the template's,
+    or its beam per channel)."""
     meta = {k: v for k, v in template.meta.items() if k not in _NOT_COPIED}
     meta.update(meta_update or {})
     wcs = (template.wcs if wcs is None else wcs).deepcopy()
     # the data become the cube's own (no copy): callers hand over fresh arrays
+    if beam is None and getattr(template, "beams", None) is not None:   # a beam per channel
+        from spectral_cube import VaryingResolutionSpectralCube
+        return VaryingResolutionSpectralCube(u.Quantity(np.asarray(data), u.Unit(unit),
+                                                        copy=False), wcs, meta=meta,
+                                             beams=template.unmasked_beams)
     cube = SpectralCube(u.Quantity(np.asarray(data), u.Unit(unit), copy=False), wcs, meta=meta)
     if beam is None:
         beam = getattr(template, "_beam", None)

@@ -8,6 +8,7 @@ pointing; the observed cube. The channel and pointing loop, mosaics and featheri
 """
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 from pathlib import Path
 
 import astropy.units as u
@@ -298,14 +299,26 @@ def antenna_phase_gains(tracks, phase_rms_rad, interval_s, rng):
     return np.exp(1j * (phi[tracks.ant1, slot] - phi[tracks.ant2, slot]))
 
 
+@lru_cache(maxsize=64)
+def _radius(geom):
+    """Distance (rad) of every pixel from the phase centre: once per pointing's sub-image
+    (read-only; shared by its channels)."""
+    l, m = geom.lm()
+    r = np.hypot(l, m)
+    r.setflags(write=False)
+    return r
+
+
 def _pb_images(tracks, geom, nu_hz, weights, use_pb):
-    """Per-group pair beams and their weight-averaged effective beam on the image grid."""
+    """Per-group pair beams and their weight-averaged effective beam on the image grid (the
+    pixel radii once per sub-image, the beams, which scale with the wavelength, per
+    channel)."""
     if not use_pb:
         one = np.ones((geom.ny, geom.nx))
         return [one] * len(tracks.groups), one
-    l, m = geom.lm()
-    r = np.hypot(l, m)
-    pbs = [pair_beam(r, nu_hz, d1, d2, shape, fwhm_factor) for _, d1, d2, shape, fwhm_factor in tracks.groups]
+    r = _radius(geom)
+    pbs = [pair_beam(r, nu_hz, d1, d2, shape, fwhm_factor)
+           for _, d1, d2, shape, fwhm_factor in tracks.groups]
     wg = np.array([weights[g[0]].sum() for g in tracks.groups])
     return pbs, sum(w * p for w, p in zip(wg, pbs)) / wg.sum()
 
@@ -395,16 +408,30 @@ def _scaled_to_rms(tracks, rms, weights):
 
 def new_observed_cube(template, data, meta, beam, unit="Jy/beam"):
     """A SpectralCube of ``data`` (Jy/beam, or K via the beam's Rayleigh-Jeans factor) on the
-    template's WCS, with the beam and its own ``meta``."""
-    from spectral_cube import SpectralCube
+    template's WCS, with the beam and its own ``meta``. ``beam`` a list of one beam per
+    channel gives a VaryingResolutionSpectralCube (each channel converted with its own)."""
+    from spectral_cube import SpectralCube, VaryingResolutionSpectralCube
     meta = {k: v for k, v in meta.items() if k not in ("BUNIT", "beam")}
+    q_unit = u.Unit("K" if unit == "K" else "Jy/beam")
+    if isinstance(beam, list):
+        from radio_beam import Beams
+        beams = Beams(beams=beam)
+        if unit == "K":
+            freqs = cube_frequencies_hz(template)
+            data = data * np.array([b.jtok(f * u.Hz).value for b, f in zip(beam, freqs)])[
+                :, None, None]
+            meta["NOISEUNI"] = "K"
+            mid = len(beam) // 2
+            meta["NOISERMS"] = meta["NOISERMS"] * float(beam[mid].jtok(freqs[mid] * u.Hz).value)
+        return VaryingResolutionSpectralCube(data=u.Quantity(data, q_unit, copy=False),
+                                             wcs=template.wcs.deepcopy(), meta=meta,
+                                             beams=beams)
     if unit == "K":
         freqs = cube_frequencies_hz(template)
         data = data * beam.jtok(freqs * u.Hz).value[:, None, None]
         meta["NOISEUNI"] = "K"
         meta["NOISERMS"] = meta["NOISERMS"] * float(beam.jtok(np.median(freqs) * u.Hz).value)
-    cube = SpectralCube(data=u.Quantity(data, u.Unit("K" if unit == "K" else "Jy/beam"),
-                                        copy=False),
+    cube = SpectralCube(data=u.Quantity(data, q_unit, copy=False),
                         wcs=template.wcs.deepcopy(), meta=meta)
     return cube.with_beam(beam, raise_error_jybm=False)
 

@@ -17,10 +17,10 @@ from .grid import SkyGrid, model_grid, observation_grid, place_model
 from .mapping import ObservedMap, dish_layout, map_options
 from .mosaic import MAX_POINTINGS
 from .interferometer import RENAMED_OPTIONS
-from .single_dish import Dish, observe_single_dish
+from .single_dish import Dish, observe_single_dish_seeds
 from .spectral import SPECTRAL_AXES, resample_spectral, to_spectral_axis
 
-__all__ = ["observe"]
+__all__ = ["observe", "observe_seeds"]
 
 
 def _is_interferometric(instrument):
@@ -96,10 +96,44 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
     Examples
     --------
     >>> import astropy.units as u, synth
-    >>> dish = synth.Dish(diameter=30 * u.m, main_beam_efficiency=0.7, tsys=120 * u.K)
+    >>> dish = synth.Dish(diameter=30 * u.m, efficiency=0.7, tsys=120 * u.K)
     >>> obs = synth.observe(cube, dish, channel_width=0.5 * u.km / u.s,
     ...                     integration_time=2 * u.hr, seed=1)  # doctest: +SKIP
     """
+    maps = _observe_maps(cube, instrument, None, seed, channel_width, channel_start, hanning,
+                         spectral_axis, integration_time, rms, noise, unit,
+                         dict(map_size=map_size, map_offset=map_offset, pixel=pixel,
+                              beyond_box=beyond_box, pointing_pattern=pointing_pattern,
+                              pointing_spacing=pointing_spacing, guard_band=guard_band,
+                              max_pointings=max_pointings), kwargs)
+    return maps[0] if with_maps else maps[0].cube
+
+
+def observe_seeds(cube, instrument, seeds, *, channel_width=None, channel_start=None,
+                  hanning=False, spectral_axis="velocity", integration_time=None, rms=None,
+                  unit=None, map_size=None, map_offset=None, pixel=None, beyond_box="empty",
+                  pointing_pattern="hexagonal", pointing_spacing=None, guard_band=None,
+                  max_pointings=MAX_POINTINGS, **kwargs):
+    """:func:`observe` with the noise on, once per seed in ``seeds``: a list of
+    :class:`~synth.instrument.mapping.ObservedMap`, each equal to ``observe(...,
+    seed=s, with_maps=True)``. What the noise does not change is computed once: the spectral
+    step, the layout, the model on the map; a dish's beam convolution; an array's uv tracks,
+    weights, primary beams, PSFs and noiseless dirty images
+    (:func:`~synth.instrument.array_observe.observe_interferometric_seeds`)."""
+    if not isinstance(seeds, (list, tuple, np.ndarray)) or len(seeds) == 0:
+        raise InstrumentError(f"seeds: {seeds!r}; give a non-empty list of integers >= 0")
+    return _observe_maps(cube, instrument, list(seeds), None, channel_width, channel_start,
+                         hanning, spectral_axis, integration_time, rms, True, unit,
+                         dict(map_size=map_size, map_offset=map_offset, pixel=pixel,
+                              beyond_box=beyond_box, pointing_pattern=pointing_pattern,
+                              pointing_spacing=pointing_spacing, guard_band=guard_band,
+                              max_pointings=max_pointings), kwargs)
+
+
+def _observe_maps(cube, instrument, seeds, seed, channel_width, channel_start, hanning,
+                  spectral_axis, integration_time, rms, noise, unit, mkw, kwargs):
+    """ObservedMaps on the requested spectral axis: one (``seed``) if ``seeds`` is None,
+    else one per seed in ``seeds``."""
     for old in sorted(set(kwargs) & set(RENAMED_OPTIONS)):
         raise InstrumentError(f"observe: {old}= was renamed to {RENAMED_OPTIONS[old]}")
     check_cube(cube)
@@ -108,9 +142,6 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
                               f"{', '.join(SPECTRAL_AXES)}")
     if not isinstance(noise, bool):
         raise InstrumentError(f"noise: must be True or False, got {noise!r}")
-    mkw = dict(map_size=map_size, map_offset=map_offset, pixel=pixel, beyond_box=beyond_box,
-               pointing_pattern=pointing_pattern, pointing_spacing=pointing_spacing,
-               guard_band=guard_band, max_pointings=max_pointings)
     mopts = map_options(**mkw)
     if isinstance(instrument, Dish):
         if kwargs:
@@ -118,19 +149,19 @@ def observe(cube, instrument, *, channel_width=None, channel_start=None, hanning
                                   f"{', '.join(sorted(kwargs))}")
         layout = dish_layout(cube, instrument, mopts, reference_frequency(cube).to_value(u.Hz))
         spectral = resample_spectral(cube, channel_width, channel_start, hanning=hanning)
-        result = _observe_dish_map(spectral, instrument, layout, mopts, integration_time, rms,
-                                   noise, seed, unit, hanning)
+        results = _observe_dish_maps(spectral, instrument, layout, mopts, integration_time,
+                                     rms, noise, [seed] if seeds is None else seeds, unit,
+                                     hanning)
     elif _is_interferometric(instrument):
         spectral = resample_spectral(cube, channel_width, channel_start, hanning=hanning)
-        result = _observe_interferometric(spectral, instrument, integration_time, rms, noise,
-                                          seed, unit, dict(kwargs, **mkw, hanning=hanning,
-                                                           with_maps=True))
+        results = _observe_interferometric(spectral, instrument, integration_time, rms, noise,
+                                           seed, unit, dict(kwargs, **mkw, hanning=hanning,
+                                                            with_maps=True), seeds)
     else:
         raise InstrumentError(f"instrument: {type(instrument).__name__} is not an "
                               "instrument; use Dish(...), Array(...) or a list "
                               "of them")
-    final = _final_map(result, spectral_axis, spectral.meta)
-    return final if with_maps else final.cube
+    return [_final_map(r, spectral_axis, spectral.meta) for r in results]
 
 
 def observe_spectral(cube, options):
@@ -139,12 +170,13 @@ def observe_spectral(cube, options):
                              hanning=options.get("hanning", False))
 
 
-def _observe_dish_map(spectral, dish, layout, mopts, integration_time, rms, noise, seed, unit,
-                      hanning):
-    """An on-the-fly dish map: the model on the map's grid (area + guard band), then the
-    beam, noise and unit of :func:`observe_single_dish`. The beam is applied on the map
-    grid grown by two beams on each side and the result cut back to the map, so sky beyond
-    the map (a larger model, or a repeated box) spills into its edges as on the sky."""
+def _observe_dish_maps(spectral, dish, layout, mopts, integration_time, rms, noise, seeds,
+                       unit, hanning):
+    """On-the-fly dish maps, one per seed: the model on the map's grid (area + guard band),
+    then the beam, noise and unit of :func:`observe_single_dish`. The beam is applied on the
+    map grid grown by two beams on each side and the result cut back to the map, so sky
+    beyond the map (a larger model, or a repeated box) spills into its edges as on the sky.
+    The model and the beam convolution are shared by the seeds."""
     model = model_grid(spectral)
     pix = mopts.pixel if mopts.pixel is not None else min(model.pixel_arcsec, layout.pixel)
     grid, zoom, (ox, oy) = observation_grid(model, pix, layout.center, layout.grid_size)
@@ -153,16 +185,19 @@ def _observe_dish_map(spectral, dish, layout, mopts, integration_time, rms, nois
     canvas = SkyGrid(grid.nx + 2 * m, grid.ny + 2 * m, grid.pixel_arcsec, grid.x_ref + m,
                      grid.y_ref + m)
     big = place_model(spectral, canvas, zoom, (ox + m, oy + m), mopts.beyond_box)
-    obs = observe_single_dish(big, dish, integration_time=integration_time, rms=rms,
-                              noise=noise, seed=seed, unit=unit, hanning=hanning)
     cut = (slice(None), slice(m, m + grid.ny), slice(m, m + grid.nx))
-    sky, obs = big[cut], obs[cut]
-    obs = new_cube(obs, cube_values(obs), obs.unit,
-                   meta_update={"NPOINT": layout.n_pointings, "MOSAIC": "on-the-fly",
-                                "GUARD": float(layout.guard), "PBCORR": False})
-    sens = np.full(obs.shape[1:], float(obs.meta["NOISERMS"])) * obs.unit
-    return ObservedMap(cube=obs, corrected=obs, uncorrected=obs, sensitivity=sens,
-                       response=np.ones(obs.shape[1:]), sky=sky, layout=layout)
+    sky = big[cut]
+    out = []
+    for obs in observe_single_dish_seeds(big, dish, seeds, integration_time=integration_time,
+                                         rms=rms, noise=noise, unit=unit, hanning=hanning):
+        obs = obs[cut]
+        obs = new_cube(obs, cube_values(obs), obs.unit,
+                       meta_update={"NPOINT": layout.n_pointings, "MOSAIC": "on-the-fly",
+                                    "GUARD": float(layout.guard), "PBCORR": False})
+        sens = np.full(obs.shape[1:], float(obs.meta["NOISERMS"])) * obs.unit
+        out.append(ObservedMap(cube=obs, corrected=obs, uncorrected=obs, sensitivity=sens,
+                               response=np.ones(obs.shape[1:]), sky=sky, layout=layout))
+    return out
 
 
 def _final_map(result, spectral_axis, spectral_meta):
@@ -180,15 +215,19 @@ def _final_map(result, spectral_axis, spectral_meta):
 
 
 def _observe_interferometric(spectral, instrument, integration_time, rms, noise, seed, unit,
-                             kwargs):
-    from .array_observe import observe_interferometric
+                             kwargs, seeds=None):
+    from .array_observe import observe_interferometric, observe_interferometric_seeds
     extra = dict(kwargs)
     if rms is not None:
         extra["rms"] = rms
     if unit is not None:
         extra["unit"] = unit
-    return observe_interferometric(spectral, instrument, integration_time=integration_time,
-                                   noise=noise, seed=seed, **extra)
+    if seeds is not None:
+        return observe_interferometric_seeds(spectral, instrument, seeds,
+                                             integration_time=integration_time, noise=noise,
+                                             **extra)
+    return [observe_interferometric(spectral, instrument, integration_time=integration_time,
+                                    noise=noise, seed=seed, **extra)]
 
 
 def _final_axis(result, spectral_axis, spectral_meta):

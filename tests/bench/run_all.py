@@ -49,7 +49,21 @@ OTHERS = {
     "deconvolve": ("bench_deconvolve.py", [], ["--quick"], [
         ("multi-scale / Högbom CLEAN time per channel", rf"multi-scale / Högbom = {_NUM}"),
         ("CLEAN channel loop, 1 thread / 2 threads",
-         rf"speed-up {_NUM} \(target (<=|>=) {_NUM}\)"),
+         rf"channel loop with CLEAN.*speed-up {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("19-pointing multi-scale mosaic: wall time on 2 threads (s)",
+         rf"mosaic, multi-scale CLEAN.*wall time on 2 threads {_NUM} s"),
+        ("19-pointing multi-scale mosaic, 1 thread / 2 threads",
+         rf"mosaic, multi-scale CLEAN.*speed-up {_NUM} \(target (<=|>=) {_NUM}"),
+        ("plain 1 -> 2 thread speed-up of GIL-free work (before the mosaic)",
+         rf"GIL-free work just before and after: {_NUM},"),
+    ]),
+    "realisations": ("bench_realisations.py", [], ["--quick"], [
+        ("10 noise realisations / one observation, array, no deconvolution",
+         rf"no deconvolution: .*ratio N=10 / one = {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("10 noise realisations / one observation, array with Högbom CLEAN",
+         rf"Högbom CLEAN: .*ratio N=10 / one = {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("10 noise realisations / one observation, dish map",
+         rf"dish map: .*ratio N=10 / one = {_NUM} \(target (<=|>=) {_NUM}\)"),
     ]),
     "mosaic": ("bench_mosaic.py", [], ["--quick"], [
         ("time per pointing, 7 pointings / 1",
