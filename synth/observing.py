@@ -162,47 +162,69 @@ def _config_message(msg, where):
     return where + body
 
 
-def observe_setups(conf, ideal, tmp, chash, progress, log):
+def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None):
     """Observe every ideal cube with every setup; write cubes and figures.
 
+    The observations are independent (each has its own seed) and run side by side: on
+    threads, or as tasks of ``executor`` when it is a dask cluster (synth.sweep.map_jobs);
+    files are written here as results arrive, the summary in the setups' order.
     Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
     """
-    from .instrument.observe import observe
+    from .sweep import map_jobs
     setups = {st["name"]: st for st in conf["setup"]}
     instruments = {name: make_instrument(st) for name, st in setups.items()}
     figures = conf["output"]["figures"]
-    summary, observed = {}, {}
     from tqdm.auto import tqdm
     # dishes first, then arrays, then combinations (they feather with the dish's own cube)
     order = sorted(setups, key=lambda n: (setups[n]["kind"] != "dish",
                                           bool(setups[n]["combine_with"])))
     jobs = [(t, s) for t in ideal for s in order]
     beyond = conf["sky"]["beyond_box"]
-    for tname, sname in tqdm(jobs, desc="observations", unit="obs", disable=not progress):
-        st, cube = setups[sname], ideal[tname]
-        inst, kw = instruments[sname], observe_options(st, beyond)
-        if st["combine_with"]:
-            inst = [inst] + [instruments[o] for o in st["combine_with"]]
-            dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
-            if dish:
-                kw["dish_options"] = _dish_options(setups[dish[0]])
-        omap = observe(cube, inst, with_maps=True, **kw)
+    args = [(ideal[t], *_observe_args(setups, instruments, s, beyond)) for t, s in jobs]
+    done = {}
+    bar = tqdm(total=len(jobs), desc="observations", unit="obs", disable=not progress)
+    for i, omap in map_jobs(_observe_one, args, executor):
+        tname, sname = jobs[i]
+        cube, inst, kw = args[i]
         _write_observation(omap, run_path(tmp, f"{tname}_{sname}"), chash,
                            dict(_model_cards(cube), OBJECT=object_name(conf), TELESCOP=sname,
                                 SETUP=sname, TRACER=tname))
-        if st["kind"] == "array" and st["write_visibilities"]:
+        if setups[sname]["kind"] == "array" and setups[sname]["write_visibilities"]:
             _write_visibilities(cube, inst, kw, run_path(tmp, f"{tname}_{sname}"),
                                 object_name(conf))
         entry = _obs_summary(omap.cube)
         entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
                      pixel_arcsec=float(abs(omap.cube.wcs.wcs.cdelt[0]) * 3600),
                      map_shape=list(omap.cube.shape[1:]))
-        summary.setdefault(sname, {})[tname] = entry
-        observed[(tname, sname)] = omap
+        done[i] = (entry, omap)
+        bar.update(1)
+    bar.close()
+    summary, observed = {}, {}
+    for i, (tname, sname) in enumerate(jobs):
+        summary.setdefault(sname, {})[tname] = done[i][0]
+        observed[(tname, sname)] = done[i][1]
     if figures:
         _uv_figures(setups, instruments, ideal, tmp)
         _layout_figures(setups, observed, tmp)
     return summary, observed
+
+
+def _observe_args(setups, instruments, sname, beyond):
+    """(instrument or list of instruments, observe keywords) of one setup."""
+    st = setups[sname]
+    inst, kw = instruments[sname], observe_options(st, beyond)
+    if st["combine_with"]:
+        inst = [inst] + [instruments[o] for o in st["combine_with"]]
+        dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
+        if dish:
+            kw["dish_options"] = _dish_options(setups[dish[0]])
+    return inst, kw
+
+
+def _observe_one(cube, inst, kw):
+    """One observation (a job of observe_setups; runs on a thread or a dask worker)."""
+    from .instrument.observe import observe
+    return observe(cube, inst, with_maps=True, **kw)
 
 
 #: cards of the ideal cube that every observation of it repeats (the line, its excitation

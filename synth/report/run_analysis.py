@@ -324,6 +324,9 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
                  if st["kind"] == "array" and os.path.exists(run_path(tmp, f"uv_{s}.png"))}
     out["survival"] = _survival_files(results, tmp, spreads) if results else []
     out["files"] += ["survival.csv", "survival.json"] if results else []
+    from ..sweep import sweep_analysis   # [sweep]: metrics against the swept values
+    out["sweep"] = sweep_analysis(conf, out["survival"], tmp, figures)
+    out["files"] += (out["sweep"] or {}).get("files", [])
     _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)
     out["plan"] = _write_plan(rows, tmp) if setups else []
     out["files"] += ["plan.csv", "plan.txt"] if setups else []
