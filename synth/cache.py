@@ -146,8 +146,8 @@ def as_written(cube):
 def _read_back(path, key, want_shape=None):
     """(data, header) of a file this cache wrote with ``key``; raises _Miss otherwise."""
     from astropy.io import fits
-    try:
-        with fits.open(path, memmap=False) as hdul:
+    try:  # our own file handle: astropy leaves its own open when a damaged file fails
+        with open(path, "rb") as fh, fits.open(fh, memmap=False) as hdul:
             header = hdul[0].header.copy()
             data = np.array(hdul[0].data)
     except Exception as exc:  # any unreadable file is a miss, never a crash
@@ -237,9 +237,10 @@ def _index(folder):
     out = []
     for path in sorted(glob.glob(os.path.join(glob.escape(folder), "*_ideal.fits"))):
         try:
-            out.append((path, fits.getheader(path)))
-        except Exception:  # a damaged header: not a candidate
-            continue
+            with open(path, "rb") as fh, fits.open(fh, memmap=False) as hdul:
+                out.append((path, hdul[0].header.copy()))
+        except Exception:  # a damaged header: not a candidate, named in the reason
+            out.append((path, None))
     try:
         with open(os.path.join(folder, "summary.json"), encoding="utf-8") as fh:
             summary = json.load(fh)
@@ -252,7 +253,7 @@ def _nearest(candidates, parts):
     """The earlier cube sharing most parts of the key, and the parts that differ."""
     best, differ = None, None
     for path, header in candidates:
-        if KEY_CARD not in header:
+        if header is None or KEY_CARD not in header:
             continue
         d = [p for p, card in PART_CARDS.items() if header.get(card) != parts[p]]
         if differ is None or len(d) < len(differ):
@@ -298,7 +299,7 @@ def find_reusable(conf, folders, log=print, keys=None):
         key, parts = (keys or {}).get(tr["name"]) or ideal_key(conf, tr, memo)
         reasons = []
         for folder, candidates, summary in indexes:
-            match = [p for p, h in candidates if h.get(KEY_CARD) == key]
+            match = [p for p, h in candidates if h is not None and h.get(KEY_CARD) == key]
             if not match:
                 reasons.append(_why_not(folder, candidates, summary, parts, conf, tr))
                 continue
@@ -320,13 +321,15 @@ def find_reusable(conf, folders, log=print, keys=None):
 def _why_not(folder, candidates, summary, parts, conf, tr):
     if not candidates:
         return f"{folder} holds no ideal cubes"
+    broken = [os.path.basename(p) for p, h in candidates if h is None]
+    note = f"; {', '.join(broken)} does not read" if broken else ""
     path, differ = _nearest(candidates, parts)
     if path is None:
-        return f"no ideal cube in {folder} records an {KEY_CARD}"
+        return f"no ideal cube in {folder} records an {KEY_CARD}{note}"
     name = os.path.basename(path)[:-len("_ideal.fits")]
     texts = []
     for p in differ:
         keys = _changed_keys(p, (summary or {}).get("config"), conf, tr, name)
         texts.append(_PART_NAMES[p] + (f" ({', '.join(keys)})" if keys else ""))
-    return f"no ideal cube in {folder} has the same inputs; the nearest, {name}, differs in " \
-           + "; ".join(texts)
+    return (f"no ideal cube in {folder} has the same inputs; the nearest, {name}, differs in "
+            + "; ".join(texts) + note)

@@ -216,8 +216,8 @@ def map_jobs(fn, args_list, executor=None, threads=None):
     dask cluster when ``executor`` is a synth.parallel.DaskExecutor, else on ``threads``
     threads (default :data:`OBSERVE_THREADS`; the numeric work releases the GIL)."""
     from .parallel import DaskExecutor
-    if isinstance(executor, DaskExecutor):
-        yield from executor.map(fn, args_list)
+    if isinstance(executor, DaskExecutor):  # one object per job: a dict scattered alone
+        yield from executor.map(_call, [(_Job(fn, args),) for args in args_list])
         return
     n = max(1, min(threads or OBSERVE_THREADS, len(args_list)))
     if n == 1:
@@ -235,6 +235,19 @@ def map_jobs(fn, args_list, executor=None, threads=None):
         finally:
             for fut in pending:
                 fut.cancel()
+
+
+class _Job:
+    """A function and its arguments, shipped to a dask worker as one object (dask scatters
+    the values of a dict argument under the dict's keys, so two jobs' keyword dicts would
+    share their keys)."""
+
+    def __init__(self, fn, args):
+        self.fn, self.args = fn, tuple(args)
+
+
+def _call(job):
+    return job.fn(*job.args)
 
 
 def _label(v):
