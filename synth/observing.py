@@ -162,14 +162,18 @@ def _config_message(msg, where):
     return where + body
 
 
-def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None):
+def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=None):
     """Observe every ideal cube with every setup; write cubes and figures.
 
     The observations are independent (each has its own seed) and run side by side: on
     threads, or as tasks of ``executor`` when it is a dask cluster (synth.sweep.map_jobs);
-    files are written here as results arrive, the summary in the setups' order.
+    files are written here as results arrive, the summary in the setups' order. ``after``,
+    if given, is called as ``after(tracer, setup, ideal cube, observed map)`` once an
+    observation is done (on its thread; here for a dask cluster), e.g. to analyse it while
+    other observations run.
     Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
     """
+    from .parallel import DaskExecutor
     from .sweep import map_jobs
     setups = {st["name"]: st for st in conf["setup"]}
     instruments = {name: make_instrument(st) for name, st in setups.items()}
@@ -181,11 +185,15 @@ def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None):
     jobs = [(t, s) for t in ideal for s in order]
     beyond = conf["sky"]["beyond_box"]
     args = [(ideal[t], *_observe_args(setups, instruments, s, beyond)) for t, s in jobs]
+    remote = isinstance(executor, DaskExecutor)
+    then = [() if (after is None or remote) else (after, t, s) for t, s in jobs]
     done = {}
     bar = tqdm(total=len(jobs), desc="observations", unit="obs", disable=not progress)
-    for i, omap in map_jobs(_observe_one, args, executor):
+    for i, omap in map_jobs(_observe_one, [a + b for a, b in zip(args, then)], executor):
         tname, sname = jobs[i]
         cube, inst, kw = args[i]
+        if after is not None and remote:
+            after(tname, sname, cube, omap)
         _write_observation(omap, run_path(tmp, f"{tname}_{sname}"), chash,
                            dict(_model_cards(cube), OBJECT=object_name(conf), TELESCOP=sname,
                                 SETUP=sname, TRACER=tname))
@@ -221,10 +229,14 @@ def _observe_args(setups, instruments, sname, beyond):
     return inst, kw
 
 
-def _observe_one(cube, inst, kw):
-    """One observation (a job of observe_setups; runs on a thread or a dask worker)."""
+def _observe_one(cube, inst, kw, after=None, tname=None, sname=None):
+    """One observation (a job of observe_setups; runs on a thread or a dask worker), then
+    ``after`` of it if given."""
     from .instrument.observe import observe
-    return observe(cube, inst, with_maps=True, **kw)
+    omap = observe(cube, inst, with_maps=True, **kw)
+    if after is not None:
+        after(tname, sname, cube, omap)
+    return omap
 
 
 #: cards of the ideal cube that every observation of it repeats (the line, its excitation

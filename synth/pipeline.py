@@ -265,11 +265,15 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     order = [tr["name"] for tr in conf["tracer"]]
     ideal = {n: ideal[n] for n in order}
     summary["tracers"] = {n: summary["tracers"][n] for n in order}
-    summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log,
-                                               execution["executor"])
     from .report.html import write_report
-    from .report.run_analysis import run_analysis
-    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log)
+    from .report.run_analysis import analyse_observation, run_analysis
+    analysed = {}   # each observation analysed on its thread as soon as it is done
+
+    def after(tname, sname, cube, omap):
+        analysed[(tname, sname)] = analyse_observation(conf, tname, sname, cube, omap, tmp)
+    summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log,
+                                               execution["executor"], after)
+    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log, done=analysed)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
     write_report(tmp, summary, log=log)
     write_json(summary, run_path(tmp, "summary.json"))
@@ -331,9 +335,9 @@ def _write_tracer(tmp, tr, line, res, conf, chash, key=None, reused_from=None):
     return entry
 
 
-def _observe_all(conf, ideal, tmp, chash, progress, log, executor=None):
+def _observe_all(conf, ideal, tmp, chash, progress, log, executor=None, after=None):
     """Observe every ideal cube with every [[setup]] (filled in by the instrument stage)."""
     if not conf["setup"]:
         return {}, {}
     from .observing import observe_setups
-    return observe_setups(conf, ideal, tmp, chash, progress, log, executor)
+    return observe_setups(conf, ideal, tmp, chash, progress, log, executor, after)
