@@ -48,6 +48,14 @@ OTHERS = {
         ("256^3 run with a 19-pointing mosaic: wall time (s)", rf"wall time {_NUM} s"),
         ("256^3 run with a 19-pointing mosaic: peak RSS (MB)", rf"peak RSS {_NUM} MB"),
     ]),
+    "sweep": ("bench_sweep.py", [], ["--quick"], [
+        ("sweep of 8 setups / 8 separate runs (time)",
+         rf"sweep of 8 setups / 8 separate runs = {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("synth demo cold (s)", rf"synth demo cold = {_NUM} s"),
+        ("synth demo warm, ideal cubes reused (s)",
+         rf"synth demo warm = {_NUM} s \(target (<=|>=) {_NUM}\)"),
+        ("synth demo warm / cold", rf"synth demo warm / cold = {_NUM}"),
+    ]),
 }
 SCALE_PARTS = ("scaling", "memory", "dask")
 
