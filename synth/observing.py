@@ -174,11 +174,9 @@ def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=
     Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
     """
     from .parallel import DaskExecutor
-    from .sweep import map_jobs
     setups = {st["name"]: st for st in conf["setup"]}
     instruments = {name: make_instrument(st) for name, st in setups.items()}
     figures = conf["output"]["figures"]
-    from tqdm.auto import tqdm
     # dishes first, then arrays, then combinations (they feather with the dish's own cube)
     order = sorted(setups, key=lambda n: (setups[n]["kind"] != "dish",
                                           bool(setups[n]["combine_with"])))
@@ -187,6 +185,30 @@ def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=
     args = [(ideal[t], *_observe_args(setups, instruments, s, beyond)) for t, s in jobs]
     remote = isinstance(executor, DaskExecutor)
     then = [() if (after is None or remote) else (after, t, s) for t, s in jobs]
+    from concurrent.futures import ThreadPoolExecutor
+    side = ThreadPoolExecutor(1)   # the uv figures need no observation: drawn meanwhile
+    uv = side.submit(_uv_figures, setups, instruments, ideal, tmp) if figures else None
+    try:
+        done = _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after,
+                             remote, executor)
+        summary, observed = {}, {}
+        for i, (tname, sname) in enumerate(jobs):
+            summary.setdefault(sname, {})[tname] = done[i][0]
+            observed[(tname, sname)] = done[i][1]
+        if figures:
+            uv.result()     # first: both draw with pyplot, which is not thread-safe
+            _layout_figures(setups, observed, tmp)
+    finally:
+        side.shutdown(wait=True, cancel_futures=True)
+    return summary, observed
+
+
+def _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after, remote,
+                  executor):
+    """Run the observation jobs; write each one's files as it arrives. {index: (summary
+    entry, observed map)}."""
+    from tqdm.auto import tqdm
+    from .sweep import map_jobs
     done = {}
     bar = tqdm(total=len(jobs), desc="observations", unit="obs", disable=not progress)
     for i, omap in map_jobs(_observe_one, [a + b for a, b in zip(args, then)], executor):
@@ -207,14 +229,7 @@ def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=
         done[i] = (entry, omap)
         bar.update(1)
     bar.close()
-    summary, observed = {}, {}
-    for i, (tname, sname) in enumerate(jobs):
-        summary.setdefault(sname, {})[tname] = done[i][0]
-        observed[(tname, sname)] = done[i][1]
-    if figures:
-        _uv_figures(setups, instruments, ideal, tmp)
-        _layout_figures(setups, observed, tmp)
-    return summary, observed
+    return done
 
 
 def _observe_args(setups, instruments, sname, beyond):

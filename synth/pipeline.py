@@ -250,7 +250,7 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
         ideal[name] = hit.result.cube
         summary["tracers"][name] = _write_tracer(tmp, tr, line, hit.result, conf, chash,
                                                  keys[name], hit.source)
-        summary["snapshot"] = dict(hit.snapshot, ideal_cubes_reused=True)
+        summary["snapshot"] = dict(hit.snapshot, ideal_cubes_reused=sorted(hits))
     if todo:
         for tr, line, res in synthesize_config(conf, progress, execution["memory"],
                                                execution["executor"], lines,
