@@ -283,8 +283,8 @@ def sweep_figure(rows, base, key, keys, title):
     values = keys[key]
     xs, ticks = _x_positions(values)
     others = [k for k in keys if k != key]
-    fig = Figure(figsize=(11, 6.4))
-    axes = fig.subplots(2, 3, gridspec_kw=dict(left=0.07, right=0.98, bottom=0.1, top=0.86,
+    fig = Figure(figsize=(11, 6.8))
+    axes = fig.subplots(2, 3, gridspec_kw=dict(left=0.07, right=0.98, bottom=0.19, top=0.9,
                                                hspace=0.38, wspace=0.3)).ravel()
     mine = [r for r in rows if r["base"] == base]
     groups = sorted({(r["tracer"],) + tuple(_label(r[f"sweep_{k}"]) for k in others)
@@ -312,9 +312,9 @@ def sweep_figure(rows, base, key, keys, title):
         elif min(xs) > 0 and max(xs) / min(xs) >= 8:
             ax.set_xscale("log")
     handles, labels = axes[0].get_legend_handles_labels()
-    fig.legend(handles, labels, loc="upper right", fontsize=7, ncol=max(1, len(labels) // 4),
+    fig.legend(handles, labels, loc="lower center", fontsize=7, ncol=min(4, len(labels) or 1),
                title="tracer" + "".join(f", {k}" for k in others), title_fontsize=7)
-    fig.suptitle(title, fontsize=10, x=0.3)
+    fig.suptitle(title, fontsize=10)
     return fig
 
 
