@@ -187,3 +187,13 @@ def test_bad_sweep_is_refused_before_work():
         preflight(conf)
     with pytest.raises(ConfigError, match="lists 1 twice"):
         expand_sweep(dict(raw, sweep={"setups": ["arr"], "seed": [1, 1]}))
+
+
+def test_example_config_expands_to_eight_setups():
+    """configs/sweep.toml (the example of docs/sweeps.md) validates into 4 x 2 setups."""
+    import os
+    from synth.config import load_config
+    conf = load_config(os.path.join(os.path.dirname(__file__), "..", "configs", "sweep.toml"))
+    names = [s["name"] for s in conf["setup"]]
+    assert len(names) == 8 and names[0] == "compact_t0.5h_ring-16"
+    assert {s["integration_time_h"] for s in conf["setup"]} == {0.5, 1, 2, 4}
