@@ -157,6 +157,7 @@ def test_sweep_figure_draws_the_metrics():
     assert len(fig2.axes[0].lines) == 6               # 2 tracers x 3 times
 
 
+@pytest.mark.slow
 def test_sweep_runs_on_a_dask_cluster_like_on_threads(tmp_path):
     """The observations as tasks of a dask cluster give the cubes of the threads."""
     distributed = pytest.importorskip("distributed")
@@ -170,7 +171,7 @@ def test_sweep_runs_on_a_dask_cluster_like_on_threads(tmp_path):
     (tmp_path / "b").mkdir()
     _, on_threads = observe_setups(conf, ideal, str(tmp_path / "a"), "x", False, print)
     with distributed.Client(processes=False, n_workers=1, threads_per_worker=2,
-                            dashboard_address=None) as client:
+                            dashboard_address=None, timeout="60s") as client:
         _, on_dask = observe_setups(conf, ideal, str(tmp_path / "b"), "x", False, print,
                                     DaskExecutor(client))
     assert on_threads.keys() == on_dask.keys()
