@@ -31,6 +31,9 @@ def _add_run_options(p):
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (must not exist)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing output folder")
     p.add_argument("--quiet", action="store_true", help="no progress bars or messages")
+    p.add_argument("--reuse", action="append", default=None, metavar="EARLIER",
+                   help="reuse the ideal cubes of an earlier run folder where their inputs are "
+                        "unchanged (repeat for several folders; see docs/guide.md)")
     g = p.add_argument_group("execution")
     g.add_argument("--memory", metavar="SIZE", default=None,
                    help="memory budget for the transfer stage, e.g. 8GB or 512MiB "
@@ -184,7 +187,7 @@ def _run(conf, args, run_config):
     log = (lambda *a, **k: None) if args.quiet else print
     summary = run_config(conf, args.out, overwrite=args.overwrite, progress=not args.quiet, log=log,
                          memory=args.memory, workers=args.workers, scheduler=args.scheduler,
-                         dashboard=args.dashboard)
+                         dashboard=args.dashboard, reuse=args.reuse)
     if not args.quiet:
         for name, t in summary["tracers"].items():
             print(f"{name:>14s}: peak T_B {t['peak_tb_k']:7.2f} K, peak ∫T dv "

@@ -2,8 +2,9 @@
 
 Sections: ``[cloud]`` (the snapshot), ``[sky]`` (where the cloud is), ``[channels]`` (the ideal
 cube's spectral grid), ``[[tracer]]`` (one per line, several per run), ``[output]``,
-``[[setup]]`` (observing setups, one per instrument) and ``[analysis]`` (survival metrics,
-spectra and planning in the run report). Unknown or misspelled keys are errors that suggest
+``[[setup]]`` (observing setups, one per instrument), ``[sweep]`` (setups expanded over
+lists of values, synth/sweep.py) and ``[analysis]`` (survival metrics, spectra and planning
+in the run report). Unknown or misspelled keys are errors that suggest
 the nearest valid key; values are checked for type and range. The schema below is the config
 reference (docs/config.md mirrors it; a test keeps them in step).
 """
@@ -229,6 +230,8 @@ def validate_config(raw):
     """Check a parsed config dict; return a complete one with defaults filled in."""
     if not isinstance(raw, dict):
         raise ConfigError("a configuration must be a TOML table")
+    from .sweep import expand_sweep   # [sweep] -> more [[setup]] tables (synth/sweep.py)
+    raw, sweep = expand_sweep(raw)
     for section in raw:
         if section not in SCHEMA:
             raise ConfigError(f"unknown section [{section}]{_suggest(section, SCHEMA)}")
@@ -248,6 +251,8 @@ def validate_config(raw):
                 raise ConfigError(f"[{section}] must be a table")
             conf[section] = _check_table(table, spec, f"[{section}]")
     _check_values(conf)
+    if sweep is not None:
+        conf["sweep"] = sweep
     return conf
 
 

@@ -180,47 +180,96 @@ def _config_message(msg, where):
     return where + body
 
 
-def observe_setups(conf, ideal, tmp, chash, progress, log):
+def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=None):
     """Observe every ideal cube with every setup; write cubes and figures.
 
+    The observations are independent (each has its own seed) and run side by side: on
+    threads, or as tasks of ``executor`` when it is a dask cluster (synth.sweep.map_jobs);
+    files are written here as results arrive, the summary in the setups' order. ``after``,
+    if given, is called as ``after(tracer, setup, ideal cube, observed map)`` once an
+    observation is done (on its thread; here for a dask cluster), e.g. to analyse it while
+    other observations run.
     Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
     """
-    from .instrument.observe import observe
+    from .parallel import DaskExecutor
     setups = {st["name"]: st for st in conf["setup"]}
     instruments = {name: make_instrument(st) for name, st in setups.items()}
     figures = conf["output"]["figures"]
-    summary, observed = {}, {}
-    from tqdm.auto import tqdm
     # dishes first, then arrays, then combinations (they feather with the dish's own cube)
     order = sorted(setups, key=lambda n: (setups[n]["kind"] != "dish",
                                           bool(setups[n]["combine_with"])))
     jobs = [(t, s) for t in ideal for s in order]
     beyond = conf["sky"]["beyond_box"]
-    for tname, sname in tqdm(jobs, desc="observations", unit="obs", disable=not progress):
-        st, cube = setups[sname], ideal[tname]
-        inst, kw = instruments[sname], observe_options(st, beyond)
-        if st["combine_with"]:
-            inst = [inst] + [instruments[o] for o in st["combine_with"]]
-            dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
-            if dish:
-                kw["dish_options"] = _dish_options(setups[dish[0]])
-        omap = observe(cube, inst, with_maps=True, **kw)
+    args = [(ideal[t], *_observe_args(setups, instruments, s, beyond)) for t, s in jobs]
+    remote = isinstance(executor, DaskExecutor)
+    then = [() if (after is None or remote) else (after, t, s) for t, s in jobs]
+    from concurrent.futures import ThreadPoolExecutor
+    side = ThreadPoolExecutor(1)   # the uv figures need no observation: drawn meanwhile
+    uv = side.submit(_uv_figures, setups, instruments, ideal, tmp) if figures else None
+    try:
+        done = _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after,
+                             remote, executor)
+        summary, observed = {}, {}
+        for i, (tname, sname) in enumerate(jobs):
+            summary.setdefault(sname, {})[tname] = done[i][0]
+            observed[(tname, sname)] = done[i][1]
+        if figures:
+            uv.result()     # first: both draw with pyplot, which is not thread-safe
+            _layout_figures(setups, observed, tmp)
+    finally:
+        side.shutdown(wait=True, cancel_futures=True)
+    return summary, observed
+
+
+def _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after, remote,
+                  executor):
+    """Run the observation jobs; write each one's files as it arrives. {index: (summary
+    entry, observed map)}."""
+    from tqdm.auto import tqdm
+    from .sweep import map_jobs
+    done = {}
+    bar = tqdm(total=len(jobs), desc="observations", unit="obs", disable=not progress)
+    for i, omap in map_jobs(_observe_one, [a + b for a, b in zip(args, then)], executor):
+        tname, sname = jobs[i]
+        cube, inst, kw = args[i]
+        if after is not None and remote:
+            after(tname, sname, cube, omap)
         _write_observation(omap, run_path(tmp, f"{tname}_{sname}"), chash,
                            dict(_model_cards(cube), OBJECT=object_name(conf), TELESCOP=sname,
                                 SETUP=sname, TRACER=tname))
-        if st["kind"] == "array" and st["write_visibilities"]:
+        if setups[sname]["kind"] == "array" and setups[sname]["write_visibilities"]:
             _write_visibilities(cube, inst, kw, run_path(tmp, f"{tname}_{sname}"),
                                 object_name(conf))
         entry = _obs_summary(omap.cube)
         entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
                      pixel_arcsec=float(abs(omap.cube.wcs.wcs.cdelt[0]) * 3600),
                      map_shape=list(omap.cube.shape[1:]))
-        summary.setdefault(sname, {})[tname] = entry
-        observed[(tname, sname)] = omap
-    if figures:
-        _uv_figures(setups, instruments, ideal, tmp)
-        _layout_figures(setups, observed, tmp)
-    return summary, observed
+        done[i] = (entry, omap)
+        bar.update(1)
+    bar.close()
+    return done
+
+
+def _observe_args(setups, instruments, sname, beyond):
+    """(instrument or list of instruments, observe keywords) of one setup."""
+    st = setups[sname]
+    inst, kw = instruments[sname], observe_options(st, beyond)
+    if st["combine_with"]:
+        inst = [inst] + [instruments[o] for o in st["combine_with"]]
+        dish = [o for o in st["combine_with"] if setups[o]["kind"] == "dish"]
+        if dish:
+            kw["dish_options"] = _dish_options(setups[dish[0]])
+    return inst, kw
+
+
+def _observe_one(cube, inst, kw, after=None, tname=None, sname=None):
+    """One observation (a job of observe_setups; runs on a thread or a dask worker), then
+    ``after`` of it if given."""
+    from .instrument.observe import observe
+    omap = observe(cube, inst, with_maps=True, **kw)
+    if after is not None:
+        after(tname, sname, cube, omap)
+    return omap
 
 
 #: cards of the ideal cube that every observation of it repeats (the line, its excitation

@@ -84,18 +84,23 @@ def prepare_output(out_dir, overwrite, inputs=(), log=None):
 
 
 def run_config(config, out_dir, overwrite=False, progress=True, log=print, memory=None,
-               workers=None, scheduler=None, dashboard=False):
+               workers=None, scheduler=None, dashboard=False, reuse=None):
     """Run a configuration (a path or a dict) and write its products into ``out_dir``.
 
     ``memory`` (bytes or "8GB") caps the transfer stage and makes snapshot files in HDF5,
     zarr or FITS be read tile by tile; ``workers`` runs the tiles on a local dask cluster,
     ``scheduler`` on an existing one (a cluster you trust), ``dashboard`` serves the local
-    cluster's dask dashboard on 127.0.0.1. Returns the run summary (also ``summary.json``).
+    cluster's dask dashboard on 127.0.0.1. ``reuse`` (a folder or a list of folders of
+    earlier runs) reuses their ideal cubes where the inputs are unchanged (synth.cache).
+    Returns the run summary (also ``summary.json``).
     """
     conf = load_config(config) if isinstance(config, (str, os.PathLike)) else validate_config(config)
     chash = config_hash(conf)
     from .preflight import preflight
     lines = preflight(conf, memory, workers, scheduler)  # every check before any work
+    from .cache import check_reuse_folders
+    reuse = [reuse] if isinstance(reuse, (str, os.PathLike)) else list(reuse or [])
+    check_reuse_folders(reuse)
     if memory is not None:
         from .transfer.tiles import parse_memory
         memory = parse_memory(memory)
@@ -106,7 +111,7 @@ def run_config(config, out_dir, overwrite=False, progress=True, log=print, memor
             if getattr(executor, "dashboard_link", None):
                 log(f"dask dashboard: {executor.dashboard_link}")
             summary = _run(conf, lines, chash, tmp, progress, log,
-                           {"memory": memory, "executor": executor})
+                           {"memory": memory, "executor": executor, "reuse": reuse})
         finish_output(tmp, out_dir)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -141,12 +146,13 @@ def _reader_kwargs(cloud):
 
 
 def synthesize_config(conf, progress=False, memory=None, executor=None, lines=None, info=None,
-                      preflight=None):
+                      preflight=None, only=None):
     """Yield (tracer table, Line, SynthesisResult) for every [[tracer]] of a validated config:
     the snapshot, view, channel grid and source placement the config describes. ``info``, a
     dict, receives the snapshot's shape and whether it is read by tiles. ``preflight``, if
     given, is called with the ideal cubes' sky size (width, height) in arcsec before any
-    synthesis."""
+    synthesis. ``only``, a set of tracer names, synthesises those tracers alone (the band
+    still covers every tracer)."""
     from .transfer.synthesize import auto_velocity_range, synthesize_products
     lines = lines or [tracer_line(tr) for tr in conf["tracer"]]
     lazy = _lazy_source(conf, memory)
@@ -177,7 +183,8 @@ def synthesize_config(conf, progress=False, memory=None, executor=None, lines=No
         preflight(_sky_size_arcsec(snap, lazy, los, sky["distance_pc"]))
     from tqdm.auto import tqdm
     from .parallel import spilled_snapshot
-    bar = tqdm(list(zip(conf["tracer"], lines)), desc="tracers", unit="tracer",
+    bar = tqdm([(tr, ln) for tr, ln in zip(conf["tracer"], lines)
+                if only is None or tr["name"] in only], desc="tracers", unit="tracer",
                disable=not progress)
     with spilled_snapshot(view, executor) as source:  # a local cluster reads a file itself
         for tr, line in bar:
@@ -215,55 +222,94 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
                "snapshot": {}, "tracers": {}}
     ideal = {}
+    from .cache import as_written, find_reusable, ideal_key
     from .observing import check_setups
-    for tr, line, res in synthesize_config(conf, progress, execution["memory"],
-                                           execution["executor"], lines, summary["snapshot"],
-                                           lambda size: check_setups(conf, lines, size)):
-        ideal[tr["name"]] = res.cube
-        summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash)
-    summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log)
+    memo = {}
+    keys = {tr["name"]: ideal_key(conf, tr, memo) for tr in conf["tracer"]}
+    hits = find_reusable(conf, execution.get("reuse"), log, keys)
+    todo = {tr["name"] for tr in conf["tracer"]} - set(hits)
+    for name, hit in hits.items():
+        tr, line = next((t, ln) for t, ln in zip(conf["tracer"], lines) if t["name"] == name)
+        ideal[name] = hit.result.cube
+        summary["tracers"][name] = _write_tracer(tmp, tr, line, hit.result, conf, chash,
+                                                 keys[name], hit.source)
+        summary["snapshot"] = dict(hit.snapshot, ideal_cubes_reused=sorted(hits))
+    if todo:
+        for tr, line, res in synthesize_config(conf, progress, execution["memory"],
+                                               execution["executor"], lines,
+                                               summary["snapshot"],
+                                               lambda size: check_setups(conf, lines, size),
+                                               only=todo):
+            ideal[tr["name"]] = as_written(res.cube)
+            summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash,
+                                                           keys[tr["name"]])
+    else:
+        check_setups(conf, lines, _cube_sky_size(next(iter(ideal.values()))))
+    order = [tr["name"] for tr in conf["tracer"]]
+    ideal = {n: ideal[n] for n in order}
+    summary["tracers"] = {n: summary["tracers"][n] for n in order}
     from .report.html import write_report
-    from .report.run_analysis import run_analysis
-    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log)
+    from .report.run_analysis import analyse_observation, run_analysis
+    analysed = {}   # each observation analysed on its thread as soon as it is done
+
+    def after(tname, sname, cube, omap):
+        analysed[(tname, sname)] = analyse_observation(conf, tname, sname, cube, omap, tmp)
+    summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log,
+                                               execution["executor"], after)
+    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log, done=analysed)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
     write_report(tmp, summary, log=log)
     write_json(summary, run_path(tmp, "summary.json"))
     return summary
 
 
-def _write_tracer(tmp, tr, line, res, conf, chash):
+def _cube_sky_size(cube):
+    """(width, height) in arcsec of an ideal cube."""
+    _, ny, nx = cube.shape
+    return (nx * abs(cube.wcs.wcs.cdelt[0]) * 3600, ny * abs(cube.wcs.wcs.cdelt[1]) * 3600)
+
+
+def _write_tracer(tmp, tr, line, res, conf, chash, key=None, reused_from=None):
+    """Write a tracer's ideal cube (and tau cube, column map, figure); return its summary
+    entry. ``key`` = (key, parts) of synth.cache, recorded in every file; ``reused_from``:
+    the earlier ideal cube ``res`` was read from."""
+    from .cache import data_card, key_cards
     name = tr["name"]
     cube = res.cube
     from .config import object_name
     extra = {"OBJECT": object_name(conf), "LINE": str(line), "EXCIT": tr["excitation"],
-             "ABUND": tr["abundance"]}
+             "ABUND": tr["abundance"], **(key_cards(*key) if key else {})}
     write_cube(cube, run_path(tmp, f"{name}_ideal.fits"), chash,
-               dict(extra, BTYPE="Intensity"))
+               dict(extra, BTYPE="Intensity", **data_card(cube.unmasked_data[:].value)))
     if "tau" in conf["output"]["products"]:
         write_cube(res.tau, run_path(tmp, f"{name}_tau.fits"), chash,
-                   dict(extra, BTYPE="Optical depth"))
+                   dict(extra, BTYPE="Optical depth", **data_card(res.tau.unmasked_data[:].value)))
     if res.column is not None:
         hdr = cube.wcs.celestial.to_header()
         hdr["BUNIT"] = "cm-2"
         write_image(res.column.value, hdr, run_path(tmp, f"{name}_column.fits"), chash,
-                    dict(extra, BTYPE="Column density"))
+                    dict(extra, BTYPE="Column density", **data_card(res.column.value)))
     data = cube.unmasked_data[:].value
     dv = abs(cube.spectral_axis[1] - cube.spectral_axis[0]).to_value(u.km / u.s)
     mom0 = data.sum(axis=0) * dv
-    tau = res.tau.unmasked_data[:].value
+    tau = res.tau.unmasked_data[:].value if res.tau is not None else None
     entry = {
         "line": str(line), "excitation": tr["excitation"], "abundance": tr["abundance"],
         "frequency_ghz": line.frequency.to_value(u.GHz),
         "peak_tb_k": float(data.max()),
         "peak_integrated_k_kms": float(mom0.max()),
         "mean_integrated_k_kms": float(mom0.mean()),
-        "tau_max": float(tau.max()), "tau_median_peak": float(np.median(tau.max(axis=0))),
+        "tau_max": float(tau.max()) if tau is not None else res.stats["tau_max"],
+        "tau_median_peak": (float(np.median(tau.max(axis=0))) if tau is not None
+                            else res.stats["tau_median_peak"]),
         "channels": int(cube.shape[0]), "pixel_arcsec": float(
             abs(cube.wcs.wcs.cdelt[1]) * 3600),
         "excitation_info": {k: v for k, v in res.excitation_info.items()
                             if isinstance(v, (int, float, str, bool))},
         "velocity_resolution": res.stats["velocity_resolution"],
     }
+    if reused_from is not None:
+        entry["reused_from"] = os.path.abspath(reused_from)
     from .transfer.synthesize import warn_if_underresolved
     warn_if_underresolved(name, entry["velocity_resolution"])
     if conf["output"]["figures"]:
@@ -272,9 +318,9 @@ def _write_tracer(tmp, tr, line, res, conf, chash):
     return entry
 
 
-def _observe_all(conf, ideal, tmp, chash, progress, log):
+def _observe_all(conf, ideal, tmp, chash, progress, log, executor=None, after=None):
     """Observe every ideal cube with every [[setup]] (filled in by the instrument stage)."""
     if not conf["setup"]:
         return {}, {}
     from .observing import observe_setups
-    return observe_setups(conf, ideal, tmp, chash, progress, log)
+    return observe_setups(conf, ideal, tmp, chash, progress, log, executor, after)

@@ -127,6 +127,11 @@ def _job(page, s):
              f"snapshot shape {_e(str(s.get('snapshot', {}).get('shape')))}; "
              f"run time {_e(_fmt(s.get('elapsed_s'), '{:.1f}'))} s; "
              f"date {_e(str(an.get('date', '-')))}.</p>")
+    reused = [(n, t["reused_from"]) for n, t in s.get("tracers", {}).items()
+              if t.get("reused_from")]
+    if reused:
+        page.add("<p>Ideal cubes reused from an earlier run (same inputs; docs/guide.md): "
+                 + "; ".join(f"{_e(n)} from {_e(p)}" for n, p in reused) + ".</p>")
     page.add(_table(("tracer", "line", "excitation", "abundance", "GHz", "peak T_B (K)",
                      "peak ∫T dv (K km/s)", "max tau"), rows, left=3))
     obs = [(sname, tname, e.get("unit"), _fmt(e.get("beam_major_arcsec"), "{:.3g}"),
@@ -258,6 +263,22 @@ def _statistics(page, s):
         page.add(f'<p class="note">{_e(st["truth_note"])}</p>')
 
 
+def _sweep(page, s):
+    sw = (s.get("analysis") or {}).get("sweep")
+    if not sw:
+        return
+    keys = ", ".join(f"{k} = {v}" for k, v in sw.get("keys", {}).items())
+    page.add('<h2 id="sweep">Sweep</h2>')
+    page.add(f"<p>Setups expanded over {_e(keys)} ([sweep]); sweep.csv holds their survival "
+             "rows with a column per swept key. Each figure draws the survival metrics "
+             "against one swept key: one line per tracer and per value of the other swept "
+             "keys.</p>")
+    for base, figs in sw.get("figures", {}).items():
+        page.add('<div class="row">' + "".join(
+            page.img(f, f"setup '{base}': survival metrics against {k}")
+            for k, f in figs.items()) + "</div>")
+
+
 def _planning(page, s):
     an = s.get("analysis") or {}
     rows = an.get("plan", [])
@@ -322,8 +343,9 @@ def report_html(run_dir, summary):
              + " · ".join(f'<a href="#{a}">{b}</a>' for a, b in (
                  ("job", "job"), ("config", "configuration"), ("tracers", "tracers"),
                  ("instruments", "maps and uv coverage"), ("survival", "survival matrix"),
+                 ("sweep", "sweep"),
                  ("planning", "planning"), ("provenance", "provenance"))) + "</p>")
-    for section in (_job, _config, _tracers, _instruments, _survival, _statistics, _planning,
+    for section in (_job, _config, _tracers, _instruments, _survival, _statistics, _sweep, _planning,
                     _provenance):
         section(page, summary)
     _others(page)

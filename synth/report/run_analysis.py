@@ -20,7 +20,7 @@ from ..fitsio import atomic_path, write_json, write_text
 from ..rundir import csv_cell, run_path
 from ..planning import duration_text
 
-__all__ = ["run_analysis", "analysis_settings", "assess_observation", "plan_config",
+__all__ = ["run_analysis", "analyse_observation", "analysis_settings", "assess_observation", "plan_config",
            "spectra_positions", "rows_csv", "survival_text", "cell_text", "SURVIVAL_COLUMNS",
            "plan_text", "PLAN_COLUMNS"]
 
@@ -272,7 +272,22 @@ def _survival_files(results, tmp, spreads=None, columns=None):
     return clean
 
 
-def run_analysis(conf, ideal, observed, tmp, *, log=None):
+def analyse_observation(conf, tname, sname, cube, obs, tmp, settings=None):
+    """The survival metrics of one observation and its report entry (notes, noise, figures
+    written into ``tmp``): (Survival, entry). Observations are analysed this way as they
+    finish, on the observing threads (synth.observing), or by :func:`run_analysis`."""
+    settings = settings or analysis_settings(conf)
+    setups = {st["name"]: st for st in conf["setup"]}
+    positions = spectra_positions(cube, settings["spectra_positions"])
+    m = assess_observation(cube, obs, setups.get(sname), settings["emission_floor"])
+    sky, image = (obs.sky, obs.corrected) if hasattr(obs, "layout") else (cube, obs)
+    return m, {"notes": list(m.notes), "noise": float(m.noise.value), "unit": m.unit,
+               "figures": (_observation_figures(tname, sname, sky, image, m,
+                                                _positions_on(cube, image, positions), tmp)
+                           if conf["output"]["figures"] else {})}
+
+
+def run_analysis(conf, ideal, observed, tmp, *, log=None, done=None):
     """Assess every observation, write figures, survival and planning files into ``tmp``.
 
     Parameters
@@ -285,6 +300,9 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
         ``{(tracer, setup): SpectralCube}`` observed cubes (may be empty).
     tmp : str
         The run folder being written.
+    done : dict, optional
+        ``{(tracer, setup): (Survival, entry)}`` of observations already analysed by
+        :func:`analyse_observation`.
 
     Returns
     -------
@@ -306,14 +324,9 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
         for (t, sname), obs in observed.items():
             if t != tname:
                 continue
-            m = assess_observation(cube, obs, setups.get(sname), settings["emission_floor"])
+            m, entry["setups"][sname] = (done or {}).get((tname, sname)) or \
+                analyse_observation(conf, tname, sname, cube, obs, tmp, settings)
             results[(tname, sname)] = m
-            sky, image = (obs.sky, obs.corrected) if hasattr(obs, "layout") else (cube, obs)
-            entry["setups"][sname] = {
-                "notes": list(m.notes), "noise": float(m.noise.value), "unit": m.unit,
-                "figures": (_observation_figures(tname, sname, sky, image, m,
-                                                 _positions_on(cube, image, positions), tmp)
-                            if figures else {})}
         if figures and entry["setups"]:
             from ..analysis.plots import recovery_figure
             mine = {s: results[(tname, s)] for s in entry["setups"]}
@@ -334,6 +347,9 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None):
         out["files"] += out["statistics"]["files"]
     out["survival"] = _survival_files(results, tmp, spreads, columns) if results else []
     out["files"] += ["survival.csv", "survival.json"] if results else []
+    from ..sweep import sweep_analysis   # [sweep]: metrics against the swept values
+    out["sweep"] = sweep_analysis(conf, out["survival"], tmp, figures)
+    out["files"] += (out["sweep"] or {}).get("files", [])
     _, rows, out["plan_skipped"] = plan_config(conf, ideal, settings)
     out["plan"] = _write_plan(rows, tmp) if setups else []
     out["files"] += ["plan.csv", "plan.txt"] if setups else []

@@ -78,6 +78,14 @@ OTHERS = {
          rf"peak RSS / budget\s+{_NUM}\s+\(target (<=|>=) {_NUM}"),
         ("LTE + LVG from HDF5 under --memory: wall time (s)", rf"both tracers\s+{_NUM} s"),
     ]),
+    "sweep": ("bench_sweep.py", [], ["--quick"], [
+        ("sweep of 8 setups / 8 separate runs (time)",
+         rf"sweep of 8 setups / 8 separate runs = {_NUM} \(target (<=|>=) {_NUM}\)"),
+        ("synth demo cold (s)", rf"synth demo cold = {_NUM} s"),
+        ("synth demo warm, ideal cubes reused (s)",
+         rf"synth demo warm = {_NUM} s \(target (<=|>=) {_NUM}\)"),
+        ("synth demo warm / cold", rf"synth demo warm / cold = {_NUM}"),
+    ]),
 }
 SCALE_PARTS = ("scaling", "memory", "dask")
 
