@@ -52,14 +52,14 @@ def make_cube(nch, n=192, pix=0.2):
     w.wcs.cunit = ["deg", "deg", "m/s"]
     w.wcs.cdelt = [-pix / 3600, pix / 3600, 500.0]
     w.wcs.crpix = [n // 2 + 1, n // 2 + 1, 1]
-    w.wcs.crval = [150.0, -35.0, 0.0]
+    w.wcs.crval = [150.0, 10.0, 0.0]
     w.wcs.restfrq = 230.538e9
     return SpectralCube(data=data * u.Jy / u.pix, wcs=w)
 
 
 def timed(cube, **kw):
     t0 = time.perf_counter()
-    obs = observe_interferometric(cube, Array("ring-24", tsys=90 * u.K), noise=False, deconvolver="hogbom",
+    obs = observe_interferometric(cube, Array("ring-24", tsys=90 * u.K), noise=False,
                                   weighting="natural", sample_interval=300 * u.s,
                                   pointing_pattern="single", pixel=0.2 * u.arcsec,
                                   primary_beam=False, correct_primary_beam=False, **kw)
@@ -101,7 +101,7 @@ def mosaic_throughput(nch, n, array="ring-24"):
     mosaic with multi-scale CLEAN (noise on, 3 sigma, Briggs 0.5) whose area is ``n``
     pixels wide, of an ``n``^2 model."""
     nu = 230.538e9
-    hex_arcsec = 299792458.0 / nu / 12.0 / np.sqrt(3.0) * 206264.80624709636
+    hex_arcsec = 299792458.0 / nu / 10.0 / np.sqrt(3.0) * 206264.80624709636
     pix = 6.0 * hex_arcsec / n                    # the mosaic's width is n pixels
     cube = make_cube(nch, n, pix=pix)
     kw = dict(seed=1, deconvolver="multiscale", weighting="robust",

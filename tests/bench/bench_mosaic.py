@@ -30,7 +30,7 @@ from synth.instrument.interferometer import Array, observe_interferometric
 NU = 230.538e9
 C = 299792458.0
 ARCSEC = 206264.80624709636
-HEX = C / NU / 12.0 / np.sqrt(3.0) * ARCSEC          # hexagonal Nyquist spacing, 12 m
+HEX = C / NU / 10.0 / np.sqrt(3.0) * ARCSEC          # hexagonal Nyquist spacing, 10 m
 
 
 def make_cube(nch, n, pix):
@@ -57,10 +57,10 @@ def per_pointing(nch, deconvolve, interval_s=60):
              7: dict(map_size=2.1 * HEX * u.arcsec),
              19: dict(map_size=[6.0 * HEX, 1.74 * HEX] * u.arcsec)}
     out = {}
-    observe_interferometric(cube[:1], arr, **kw, deconvolver="none", correct_primary_beam=False, **sizes[1])       # warm-up (numba)
+    observe_interferometric(cube[:1], arr, **kw, correct_primary_beam=False, **sizes[1])       # warm-up (numba)
     for n, extra in sizes.items():
         t0 = time.perf_counter()
-        m = observe_interferometric(cube, arr, with_maps=True, **kw, deconvolver="none", correct_primary_beam=False, **extra)
+        m = observe_interferometric(cube, arr, with_maps=True, **kw, correct_primary_beam=False, **extra)
         dt = time.perf_counter() - t0
         assert m.layout.n_pointings == n, m.layout.n_pointings
         out[n] = dt / n
@@ -126,7 +126,7 @@ seed = 3
 
 def real_size(size):
     """Wall time and peak RSS of `synth run` on the 19-pointing config, in a subprocess."""
-    hex110 = C / 109.78e9 / 12.0 / np.sqrt(3.0) * ARCSEC   # the lower line: 19 for both
+    hex110 = C / 109.78e9 / 10.0 / np.sqrt(3.0) * ARCSEC   # the lower line: 19 for both
     with tempfile.TemporaryDirectory() as tmp:
         cfg = os.path.join(tmp, "run.toml")
         with open(cfg, "w") as fh:
@@ -152,7 +152,7 @@ def main():
     nch = 4 if args.quick else 32
     import warnings
     warnings.simplefilter("ignore")          # the random sky fills more than the mosaics
-    t = per_pointing(nch, deconvolver="none", interval_s=600 if args.quick else 60)
+    t = per_pointing(nch, deconvolve=False, interval_s=600 if args.quick else 60)
     for n in (7, 19):
         print(f"time per pointing, {n}-pointing mosaic / one pointing (no CLEAN, {nch} channels): "
               f"{t[n] / t[1]:.2f} (target <= 1.2)")
@@ -160,7 +160,7 @@ def main():
         print(f"  marginal cost of a pointing in the {n}-pointing mosaic / the whole one-pointing "
               f"run: {marginal / t['total1']:.2f} (the one-pointing run is "
               f"{t['total1']:.2f} s, of which set-up is shared by a mosaic's pointings)")
-    t = per_pointing(max(2, nch // 8), deconvolver="hogbom", interval_s=600 if args.quick else 60)
+    t = per_pointing(max(2, nch // 8), deconvolve=True, interval_s=600 if args.quick else 60)
     for n in (7, 19):
         print(f"time per pointing with CLEAN, {n} pointings / one: {t[n] / t[1]:.2f} "
               f"(one pointing {t[1]:.2f} s)")

@@ -42,7 +42,7 @@ def make_cube(nch, n=256, pix_arcsec=0.1):
 
 def main(nch=64):
     cube = make_cube(nch)
-    arr = Array(spiral_layout(50, 20.0, 500.0, seed=5), name="bench-50", tsys=90 * u.K)
+    arr = Array(spiral_layout(50, 20.0, 500.0, seed=5), name="bench-50", tsys=90 * u.K, diameter=10 * u.m)
     # one pointing on the cube's own pixels, as the bare calls image it (observe would
     # otherwise resample onto 4 pixels per synthesized beam)
     kw = dict(hour_angles=(-2, 2) * u.hourangle, sample_interval=60 * u.s,

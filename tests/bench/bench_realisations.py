@@ -81,7 +81,7 @@ def main():
     cube = make_cube(nch, n)
     arr = Array("compact-16", tsys=90 * u.K)
     common = dict(integration_time=1800 * u.s, sample_interval=600 * u.s,
-                  map_size=30 * u.arcsec, pixel=0.5 * u.arcsec)
+                  map_size=36 * u.arcsec, pixel=0.5 * u.arcsec, deconvolver="none")
     one_and_many(cube[:2], arr, dict(common, deconvolver="hogbom"))      # warm up (numba, imports)
     cases = [("array, 7 pointings, no deconvolution", arr, common),
              ("array, 7 pointings, Högbom CLEAN", arr, dict(common, deconvolver="hogbom")),

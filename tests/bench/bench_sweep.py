@@ -58,7 +58,7 @@ def bench_sweep(n, channels_kms, tmp):
     quiet = dict(progress=False, log=lambda *a: None)
     base = _conf(n, channels_kms)
     # warm-up: imports, numba kernels, layouts (not timed)
-    synth.run_config(dict(copy.deepcopy(base), cloud=dict(base["cloud"], size=12)),
+    synth.run_config(dict(copy.deepcopy(base), cloud=dict(base["cloud"], cells=12)),
                      os.path.join(tmp, "warmup"), **quiet)
     sweep = dict(copy.deepcopy(base), sweep={"setups": ["arr"], "integration_time_h": TIMES,
                                              "antennas": ARRAYS})
@@ -104,11 +104,11 @@ def _synth_cmd(*args):
 
 
 def bench_demo(size, tmp):
-    extra = [] if size is None else ["--size", str(size)]
+    extra = [] if size is None else ["--cells", str(size)]
     cold, _ = _synth_cmd("demo", "--out", os.path.join(tmp, "cold"), *extra)
     warm, _ = _synth_cmd("demo", "--out", os.path.join(tmp, "warm"), "--reuse",
                          os.path.join(tmp, "cold"), *extra)
-    print(f"demo{'' if size is None else f' --size {size}'}: cold {cold:.1f} s, warm "
+    print(f"demo{'' if size is None else f' --cells {size}'}: cold {cold:.1f} s, warm "
           f"(--reuse) {warm:.1f} s; {os.cpu_count()} cores, load average "
           f"{os.getloadavg()[0]:.1f}")
     print(f"synth demo warm / cold = {warm / cold:.3f}")
