@@ -173,3 +173,15 @@ def test_moment0_noise_is_measured_per_pixel_from_line_free_channels():
     few = np.zeros(60, bool)
     few[3:] = True                      # 3 line-free channels: the cube's one rms
     assert line_moment0(data, few, 0.5, noise=1.0)[1] == pytest.approx(0.5 * np.sqrt(57))
+
+
+def test_moment0_noise_follows_a_given_noise_map():
+    """With too few line-free channels, a given map of the rms per channel (an observation's
+    sensitivity map) sets the moment-0 noise pixel by pixel: sigma = rms x dv x sqrt(N)."""
+    noise = np.ones((8, 10))
+    noise[:, 5:] = 3.0
+    data = np.zeros((12, 8, 10))
+    line = np.ones(12, bool)
+    line[:2] = False
+    _, sigma = line_moment0(data, line, 0.25, noise=noise)
+    np.testing.assert_allclose(sigma, noise * 0.25 * np.sqrt(10))

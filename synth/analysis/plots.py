@@ -36,7 +36,8 @@ def line_moment0(data, line_channels, channel_kms, noise):
     bowls stay visible, and its noise: rms per channel x channel width x sqrt(number of
     channels) (independent channels). The rms per channel is measured per pixel over the
     line-free channels when there are at least MIN_FREE_CHANNELS of them (a primary-beam-
-    corrected mosaic is noisier at its edges), else ``noise`` everywhere. Blank (NaN) voxels
+    corrected mosaic is noisier at its edges), else ``noise``: a number, or a map of the rms
+    per channel (an observation's sensitivity map). Blank (NaN) voxels
     count as 0; a pixel blank in every channel stays NaN. Returns (map, sigma) in the data's
     unit x km/s; sigma is a map or a number."""
     data = np.asarray(data, dtype=float)
@@ -44,12 +45,13 @@ def line_moment0(data, line_channels, channel_kms, noise):
     sel = data[line]
     mom0 = np.nansum(sel, axis=0) * float(channel_kms)
     mom0[~np.isfinite(sel).any(axis=0)] = np.nan
-    rms = float(noise)
+    given = np.asarray(noise, dtype=float)
+    rms = float(given) if given.ndim == 0 else np.where(np.isfinite(given), given, np.inf)
     if (~line).sum() >= MIN_FREE_CHANNELS:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)    # all-NaN (blank) pixels
             per_pixel = np.nanstd(data[~line], axis=0)
-        rms = np.where(np.isfinite(per_pixel) & (per_pixel > 0), per_pixel, float(noise))
+        rms = np.where(np.isfinite(per_pixel) & (per_pixel > 0), per_pixel, rms)
     return mom0, rms * float(channel_kms) * np.sqrt(max(sel.shape[0], 1))
 
 
@@ -118,7 +120,7 @@ def _extent(shape, pixel_arcsec):
     return [half_x, -half_x, -half_y, half_y]
 
 
-def moment_figure(survival, path=None, title="", observed=None):
+def moment_figure(survival, path=None, title="", observed=None, noise_map=None):
     """Ideal (beam-convolved) and observed moment maps 0 and 1, side by side.
 
     With ``observed`` (the observed cube given to ``assess``) the maps are drawn in offset
@@ -144,7 +146,7 @@ def moment_figure(survival, path=None, title="", observed=None):
         data = observed.unmasked_data[:].to_value(survival.noise.unit)   # blanks stay NaN
         line = np.asarray(mi.mask).any(axis=(1, 2))
         obs0, sigma0 = line_moment0(data, line, channel_width_ms(observed) / 1e3,
-                                    survival.noise.value)
+                                    survival.noise.value if noise_map is None else noise_map)
         obs1 = masked_moment1(mo.mom1.value, obs0, sigma0)
         title0 = "observed moment 0 (line channels, no mask)"
         title1 = f"observed moment 1 (moment 0 >= {MOM1_NSIGMA:g} sigma)"

@@ -126,12 +126,13 @@ def _reference_as_cube(ideal, observed):
     return SpectralCube(ref * observed.unit, wcs=observed.wcs)
 
 
-def _observation_figures(tname, sname, ideal, obs, m, positions, tmp):
+def _observation_figures(tname, sname, ideal, obs, m, positions, tmp, noise_map=None):
     from ..analysis.plots import moment_figure, spectra_figure
     base = run_path(tmp, f"{tname}_{sname}")
     from .html import typeset_line
     line = typeset_line(ideal.meta.get("LINE") or ideal.meta.get("line") or tname)
-    out = {"moments": _save(moment_figure(m, title=f"{line} with {sname}", observed=obs),
+    out = {"moments": _save(moment_figure(m, title=f"{line} with {sname}", observed=obs,
+                                          noise_map=noise_map),
                             f"{base}_moments.png")}
     ref = _reference_as_cube(ideal, obs).with_spectral_unit(u.km / u.s,
                                                             velocity_convention="radio")
@@ -283,8 +284,22 @@ def analyse_observation(conf, tname, sname, cube, obs, tmp, settings=None):
     sky, image = (obs.sky, obs.corrected) if hasattr(obs, "layout") else (cube, obs)
     return m, {"notes": list(m.notes), "noise": float(m.noise.value), "unit": m.unit,
                "figures": (_observation_figures(tname, sname, sky, image, m,
-                                                _positions_on(cube, image, positions), tmp)
+                                                _positions_on(cube, image, positions), tmp,
+                                                _noise_map(obs, m))
                            if conf["output"]["figures"] else {})}
+
+
+def _noise_map(obs, m):
+    """The rms per channel at each pixel of an observed map (its sensitivity map) in the
+    unit of the survival noise, or None (a plain cube, or units that do not convert)."""
+    sens = getattr(obs, "sensitivity", None)
+    if sens is None:
+        return None
+    try:
+        out = u.Quantity(sens).to_value(m.noise.unit)
+    except u.UnitsError:
+        return None
+    return out if np.shape(out) == tuple(obs.corrected.shape[1:]) else None
 
 
 def run_analysis(conf, ideal, observed, tmp, *, log=None, done=None):
