@@ -145,7 +145,8 @@ def statistics_figure(rows, title="Survival of statistics: |shift| / uncertainty
     h = max(1.6, 0.45 * len(tracers) + 1.1)
     fig = Figure(figsize=(ncol * w + 1.2, nrow * h + 0.8))
     axes = np.atleast_1d(fig.subplots(nrow, ncol, squeeze=False)).ravel()
-    cmap, vmax = colormaps["magma_r"], 5.0
+    # grey: not measurable on one of the two (not "a large shift")
+    cmap, vmax = colormaps["magma_r"].with_extremes(bad="0.85"), 5.0
     image = None
     index = {(r["tracer"], r["setup"], r["statistic"]): r for r in rows}
     for ax, s in zip(axes, stats):
@@ -154,12 +155,14 @@ def statistics_figure(rows, title="Survival of statistics: |shift| / uncertainty
             for j, st in enumerate(setups):
                 r = index.get((t, st, s))
                 if r is not None:
-                    grid[i, j] = abs(r["shift_sigma"])
-                    txt = f"{r['shift_sigma']:+.1f}σ" if np.isfinite(r["shift_sigma"]) else "-"
+                    ok = (np.isfinite(r["shift_sigma"]) and np.isfinite(r["ideal"])
+                          and np.isfinite(r["observed"]))
+                    grid[i, j] = abs(r["shift_sigma"]) if ok else np.nan
+                    txt = f"{r['shift_sigma']:+.1f}σ" if ok else "n/a"
                     ax.text(j, i, txt, ha="center", va="center", fontsize=8,
                             color="white" if np.nan_to_num(grid[i, j], nan=0) > 2.5 else "black")
-        image = ax.imshow(np.clip(grid, 0, vmax), cmap=cmap, vmin=0, vmax=vmax,
-                          aspect="auto")
+        image = ax.imshow(np.ma.masked_invalid(np.clip(grid, 0, vmax)), cmap=cmap, vmin=0,
+                          vmax=vmax, aspect="auto")
         ax.set_title(s.replace("_", " "), fontsize=9)
         ax.set_xticks(range(len(setups)), setups, fontsize=8, rotation=30, ha="right")
         ax.set_yticks(range(len(tracers)), tracers, fontsize=8)
@@ -168,7 +171,7 @@ def statistics_figure(rows, title="Survival of statistics: |shift| / uncertainty
     fig.subplots_adjust(left=0.08, right=0.9, bottom=0.12, top=0.9, hspace=0.9, wspace=0.6)
     if image is not None:
         cax = fig.add_axes([0.92, 0.15, 0.015, 0.7])
-        fig.colorbar(image, cax=cax, label="|shift| / uncertainty (clipped at 5)")
+        fig.colorbar(image, cax=cax, label="|shift| / uncertainty (clipped at 5; grey: n/a)")
     fig.suptitle(title, fontsize=11)
     return fig
 
