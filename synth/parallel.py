@@ -100,8 +100,10 @@ class DaskExecutor(Executor):
                     exhausted = True
                     break
                 i, args = item
+                # each argument as one piece under a fresh key: scatter of a dict (or a list)
+                # would scatter its items, under the dict's own keys
                 args = tuple(a if isinstance(a, (int, float, str, bool, type(None)))
-                             else self.client.scatter(a, hash=False) for a in args)
+                             else self.client.scatter([a], hash=False)[0] for a in args)
                 fut = self.client.submit(fn, *args, pure=False, key=f"synth-tile-{run}-{i}")
                 pending[fut.key] = (i, fut)
                 ac.add(fut)

@@ -189,3 +189,19 @@ def test_npz_file_source(cloud, tmp_path):
     write_npz(cloud, str(path))
     res = synthesize_products(SnapshotFile(str(path)), LINE, 2e-6, memory="1MB", **KW)
     _same(res, synthesize_products(cloud, LINE, 2e-6, **KW))
+
+
+def _value_of(d):
+    return d["t"]
+
+
+def test_dask_map_keeps_dict_arguments_apart():
+    """Two jobs whose argument is a dict with the same keys each get their own dict (dask's
+    scatter of a dict scatters its values under the dict's keys, so the second job used to
+    read the first one's values)."""
+    distributed = pytest.importorskip("distributed")
+    from synth.parallel import DaskExecutor
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=2,
+                            dashboard_address=None, timeout="60s") as client:
+        out = dict(DaskExecutor(client).map(_value_of, [({"t": 1},), ({"t": 4},)]))
+    assert out == {0: 1, 1: 4}
