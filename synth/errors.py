@@ -83,3 +83,17 @@ class FieldLargerThanPrimaryBeamWarning(SynthWarning):
 
 class TableAccuracyWarning(SynthWarning):
     """An interpolation table did not reach its requested accuracy."""
+
+
+def refuse_renamed_fields(cls, renamed):
+    """Wrap the dataclass ``cls``'s __init__ so that a renamed keyword is refused with its new
+    name (one line), instead of Python's bare "unexpected keyword argument"."""
+    init = cls.__init__
+
+    def __init__(self, *args, **kwargs):
+        for old in sorted(set(kwargs) & set(renamed)):
+            raise InstrumentError(f"{cls.__name__}: {old}= was renamed to {renamed[old]}")
+        init(self, *args, **kwargs)
+    __init__.__doc__, __init__.__wrapped__ = init.__doc__, init
+    cls.__init__ = __init__
+    return cls

@@ -113,3 +113,20 @@ def test_break_it_a_changed_default_is_caught(monkeypatch):
     monkeypatch.setitem(SCHEMA["setup"], "primary_beam_cutoff", (types, 0.25, text))
     with pytest.raises(AssertionError, match="primary_beam_cutoff"):
         test_setup_key_has_the_python_default("array", "primary_beam_cutoff", "observe")
+
+
+@pytest.mark.parametrize("make, match", [
+    (lambda: Array("ring-16", taper=1.1), "Array: taper= was renamed to fwhm_factor"),
+    (lambda: Array("ring-16", efficiency=0.7), "Array: efficiency= was renamed to aperture_efficiency"),
+    (lambda: Array("ring-16", dish_diameter=10 * u.m), "dish_diameter= was renamed to diameter"),
+    (lambda: Array("ring-16", quantization_efficiency=0.9),
+     "quantization_efficiency= was renamed to system_efficiency"),
+    (lambda: Dish(diameter=30 * u.m, efficiency=0.7),
+     "Dish: efficiency= was renamed to main_beam_efficiency"),
+    (lambda: Dish(diameter=30 * u.m, taper=1.1), "Dish: taper= was renamed to fwhm_factor"),
+])
+def test_renamed_instrument_fields_are_refused_with_their_new_name(make, match):
+    """The instruments' old keywords get the same one-line hint as old config keys."""
+    from synth.errors import InstrumentError
+    with pytest.raises(InstrumentError, match=match):
+        make()

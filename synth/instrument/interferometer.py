@@ -14,7 +14,7 @@ from pathlib import Path
 import astropy.units as u
 import numpy as np
 
-from ..errors import InstrumentError
+from ..errors import InstrumentError, refuse_renamed_fields
 from ..sky import C_M_S
 from .arrays import BUILTIN_LAYOUTS, builtin_layout, read_layout_csv
 from .primary_beam import PB_SHAPES, pair_beam
@@ -221,6 +221,12 @@ class Array:
     def total_efficiency(self):
         """system_efficiency x aperture_efficiency."""
         return self.system_efficiency * self.aperture_efficiency
+
+
+refuse_renamed_fields(Array, {
+    "efficiency": "aperture_efficiency", "dish_diameter": "diameter", "taper": "fwhm_factor",
+    "pb_shape": "primary_beam_shape", "quantization_efficiency": "system_efficiency",
+    "correlator_efficiency": "system_efficiency"})
 
 
 @dataclass(frozen=True, eq=False)

@@ -13,7 +13,7 @@ import numpy as np
 import astropy.units as u
 from radio_beam import Beam
 
-from ..errors import InstrumentError
+from ..errors import InstrumentError, refuse_renamed_fields
 from .beam import (FWHM_FACTOR_RANGE, convolve_beam, dish_beam, jy_per_k, sky_frequencies,
                    to_unit, unit_name)
 from .cube_utils import check_cube, cube_values, new_cube, pixel_scale, reference_frequency
@@ -168,6 +168,9 @@ def _check_angle(value, field, lo, hi):
             and lo <= value.to_value(u.deg) <= hi):
         raise InstrumentError(f"{field}: {value!r}; give an angle within [{lo}, {hi}] deg "
                               f"(e.g. 8 * u.deg)")
+
+
+refuse_renamed_fields(Dish, {"efficiency": "main_beam_efficiency", "taper": "fwhm_factor"})
 
 
 def _check_quantity(value, unit, field, hint, allow_zero=True):
