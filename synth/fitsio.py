@@ -155,7 +155,7 @@ def write_cube(cube, path, conf_hash=None, extra=None):
     A cube with a beam per channel (VaryingResolutionSpectralCube) gets the FITS beams table:
     a BEAMS binary extension with BMAJ, BMIN (arcsec), BPA (deg), CHAN and POL per channel
     (as spectral-cube writes and reads it), and BMAJ/BMIN/BPA of the middle channel in the
-    primary header (CASAMBM = T says that the table holds the channels' own beams)."""
+    primary header."""
     beams = getattr(cube, "beams", None)
     if beams is not None:
         from astropy import units as u
@@ -165,7 +165,6 @@ def write_cube(cube, path, conf_hash=None, extra=None):
         hdu.header["BMAJ"] = (mid.major.to_value(u.deg), "[deg] beam major axis, middle channel")
         hdu.header["BMIN"] = (mid.minor.to_value(u.deg), "[deg] beam minor axis, middle channel")
         hdu.header["BPA"] = (mid.pa.to_value(u.deg), "[deg] beam position angle, middle channel")
-        hdu.header["CASAMBM"] = (True, "a beam per channel in the BEAMS table")
     else:
         hdu = cube.hdu
         hdus = fits.HDUList([hdu])
