@@ -26,7 +26,6 @@ def test_through_synth_observe_entry_point():
     from synth.instrument.observe import observe
     d = np.zeros((2, 64, 64))
     d[:, 32, 32] = 1.0                               # 1 Jy per pixel, given in K
-    cube = make_cube(d)
     from synth.instrument.visibilities import cube_geometry, jy_per_pixel_factor
     kcube = make_cube(d, unit=u.K)
     fac = jy_per_pixel_factor(kcube, 230.538e9, cube_geometry(kcube)[0])  # Jy per K

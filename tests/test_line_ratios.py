@@ -209,7 +209,7 @@ def test_thin_co_21_10_rises_with_density_to_lte(t_k):
     freq = {2: 115.2712018e9, 3: 230.5380000e9}   # the file's GHz column, Hz
 
     def thin_w(up, low, a):
-        (e_u, g_u), (e_l, g_l) = levels[up], levels[low]
+        (_, g_u), (e_l, g_l) = levels[up], levels[low]
         nu = freq[up]
         hnu_k = 6.62607015e-34 * nu / 1.380649e-23
         x_l = g_l * math.exp(-e_l * HC_OVER_K / t_k)   # Boltzmann, partition sum cancels

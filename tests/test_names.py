@@ -130,3 +130,14 @@ def test_renamed_instrument_fields_are_refused_with_their_new_name(make, match):
     from synth.errors import InstrumentError
     with pytest.raises(InstrumentError, match=match):
         make()
+
+
+def test_one_spelling_of_units_in_text():
+    """Text, tables and figures write Jy/beam, K km/s and km/s one way (astropy writes
+    "Jy / beam"); FITS cards keep the FITS spelling."""
+    from synth.sky import unit_text
+    assert unit_text(u.Jy / u.beam) == "Jy/beam"
+    assert unit_text("Jy/beam") == "Jy/beam"
+    assert unit_text(u.K * u.km / u.s) == "K km/s"
+    assert unit_text(u.Jy / u.beam * u.km / u.s) == "Jy/beam km/s"
+    assert unit_text(u.km / u.s) == "km/s"

@@ -8,7 +8,7 @@ from radio_beam import Beam
 
 from synth.analysis.deltavariance import delta_variance, fit_delta_slope
 from synth.analysis.matching import cube_from_array
-from synth.analysis.pdfs import pdf_width, powerlaw_tail_fit
+from synth.analysis.pdfs import powerlaw_tail_fit
 from synth.analysis.power import gaussian_random_field
 from synth.analysis.statistics import (GROUPS, STATISTICS, TRUE_STATISTICS, measure_statistics,
                                        snapshot_statistics)

@@ -17,6 +17,8 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Ellipse
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
+from ..sky import unit_text
+
 __all__ = ["moment_figure", "recovery_figure", "fidelity_figure", "structure_figure",
            "spectra_figure", "line_moment0", "masked_moment1", "readable_log_axis",
            "MOM1_NSIGMA", "BOWL_NSIGMA"]
@@ -107,11 +109,6 @@ def _beam_ellipse(ax, beam, extent, colour):
                          edgecolor=colour, lw=1.2, label="beam"))
 
 
-def _unit_label(unit):
-    from ..sky import unit_text
-    return unit_text(unit)
-
-
 def _extent(shape, pixel_arcsec):
     if pixel_arcsec is None:
         return None
@@ -152,7 +149,7 @@ def moment_figure(survival, path=None, title="", observed=None, noise_map=None):
         title1 = f"observed moment 1 (moment 0 >= {MOM1_NSIGMA:g} sigma)"
     top = np.nanmax(mi.mom0.value) if np.isfinite(np.nanmax(mi.mom0.value)) else None
     low = np.nanmin(obs0) if np.isfinite(obs0).any() else 0.0
-    unit0 = _unit_label(mi.mom0.unit)
+    unit0 = unit_text(mi.mom0.unit)
     if low < -BOWL_NSIGMA * float(np.nanmedian(sigma0)):   # negative bowls: a diverging map, symmetric limits
         peak = max(abs(low), top or 0.0, float(np.nanmax(obs0)))
         cmap0, lo0, hi0 = "RdBu_r", -peak, peak
@@ -262,7 +259,7 @@ def spectra_figure(ideal, observed, positions, path=None, title="Spectra: ideal 
         for cube, label in ((ideal, "ideal"), (observed, "observed")):
             v = cube.spectral_axis
             ax.step(v.value, cube.unmasked_data[:, y, x].value, where="mid",
-                    label=f"{label} ({_unit_label(cube.unit)})")
+                    label=f"{label} ({unit_text(cube.unit)})")
         ax.set_title(f"pixel ({x}, {y})", fontsize=9)
         ax.set_ylabel(_brightness_label(observed.unit), fontsize=8)
         ax.legend(fontsize=7)
@@ -274,7 +271,7 @@ def spectra_figure(ideal, observed, positions, path=None, title="Spectra: ideal 
 
 
 def _brightness_label(unit):
-    text = _unit_label(unit)
+    text = unit_text(unit)
     if text == "K":
         return "T_B (K)"
     return f"intensity ({text})"

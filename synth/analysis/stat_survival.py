@@ -22,6 +22,7 @@ import numpy as np
 import astropy.units as u
 
 from .statistics import STATISTICS, measure_statistics
+from .survival import recorded_noise
 
 __all__ = ["observation_statistics", "measure_observed", "statistics_survival", "survival_line",
            "statistics_figure", "statistics_columns", "SHIFT_COLUMNS", "time_for_uncertainty",
@@ -29,11 +30,6 @@ __all__ = ["observation_statistics", "measure_observed", "statistics_survival", 
 
 #: per-statistic columns added to a survival-matrix row (suffixes of ``<statistic>_``)
 SHIFT_COLUMNS = ("ideal", "ideal_err", "observed", "observed_err", "shift", "shift_sigma")
-
-
-def _noise_of(cube):
-    from .survival import recorded_noise
-    return recorded_noise(cube)
 
 
 def observation_statistics(ideal, observed, *, noise=None, statistics=None, dendrogram=None,
@@ -49,7 +45,7 @@ def observation_statistics(ideal, observed, *, noise=None, statistics=None, dend
     if hasattr(observed, "layout"):
         ideal = observed.sky if ideal is None else ideal
         observed = observed.corrected
-    noise = _noise_of(observed) if noise is None else noise
+    noise = recorded_noise(observed) if noise is None else noise
     beam = cube_beam(observed)
     info = {}
     obs = measure_statistics(observed, beam=beam, noise=noise, statistics=statistics,
@@ -181,7 +177,7 @@ def measure_observed(observed, statistics=None, dendrogram=None):
     with its beam and recorded noise, as :func:`observation_statistics` measures it."""
     from .matching import cube_beam
     cube = observed.corrected if hasattr(observed, "layout") else observed
-    return measure_statistics(cube, beam=cube_beam(cube), noise=_noise_of(cube),
+    return measure_statistics(cube, beam=cube_beam(cube), noise=recorded_noise(cube),
                               statistics=statistics, dendrogram=dendrogram)
 
 
@@ -226,10 +222,9 @@ def planning_lines(rows):
                     "needs >= 2 noise realisations and a known time")
         else:
             what = readable_time(t)
-        out.append(f"{r['tracer']} {r['statistic']} to ± {r['target']:g} with {r['setup']}: "
-                   f"{what} (spread ± {r['observed_spread']:.3g} in "
-                   f"{readable_time(r['time_s'])}, fit ± {r['observed_fit_err']:.3g})"
-                   if r.get("time_s") else
-                   f"{r['tracer']} {r['statistic']} to ± {r['target']:g} with {r['setup']}: "
-                   f"{what}")
+        line = f"{r['tracer']} {r['statistic']} to ± {r['target']:g} with {r['setup']}: {what}"
+        if r.get("time_s"):
+            line += (f" (spread ± {r['observed_spread']:.3g} in "
+                     f"{readable_time(r['time_s'])}, fit ± {r['observed_fit_err']:.3g})")
+        out.append(line)
     return out

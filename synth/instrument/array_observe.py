@@ -215,7 +215,6 @@ def _mosaic(sky, pointings, freqs, opts, noise, seeds, out_sl):
     response and noise per channel, restoring beam, CLEAN iterations (per seed), the sky
     fraction where the response is < 1/2."""
     rngs = [np.random.default_rng(s) for s in seeds] if noise else [None]
-    ref = freqs.size // 2
     t0, g0, _ = pointings[0]
     beam, beams = restoring_beams(t0, g0, freqs, opts)
     opts = dict(opts, beam_px=beam.major.to_value(u.rad) / abs(g0.dx_rad))

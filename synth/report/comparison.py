@@ -11,6 +11,7 @@ import numpy as np
 
 from ..errors import ConfigError, OutputError, SynthError
 from ..fitsio import atomic_path, write_json
+from ..sky import unit_text
 from ..rundir import (check_overwrite, finish_output, make_partial, run_path, sweep_debris,
                       unregister_cleanup)
 
@@ -66,17 +67,12 @@ def statistic_units(stats):
     for key in stats.as_dict():
         name, _, what = key.partition("_")
         if key == "flux":
-            out[key] = f"{_unit_text(mom.mom0.unit)} pixel"   # the moment-0 map summed
+            out[key] = f"{unit_text(mom.mom0.unit)} pixel"   # the moment-0 map summed
         elif name in units and what in ("mean", "std"):
-            out[key] = _unit_text(units[name])
+            out[key] = unit_text(units[name])
         else:
             out[key] = "none"
     return out
-
-
-def _unit_text(unit):
-    from ..sky import unit_text
-    return unit_text(unit)
 
 
 #: why a value can be missing ("-" in the table), per statistic
@@ -134,7 +130,7 @@ def _moment0_figure(comparison):
     maps = {n: comparison.stats[n].moments.mom0 for n in comparison.names}
     top = max(float(np.nanmax(m.value)) for m in maps.values())
     from ..analysis.matching import pixel_scale_arcsec
-    from ..analysis.plots import _beam_ellipse, _extent, _unit_label
+    from ..analysis.plots import _beam_ellipse, _extent
     for ax, (name, m) in zip(axes, maps.items()):
         extent = _extent(m.shape, float(pixel_scale_arcsec(comparison.matched[name])))
         im = ax.imshow(m.value, origin="lower", cmap="viridis", vmin=0, vmax=top,
@@ -144,7 +140,7 @@ def _moment0_figure(comparison):
         ax.set_ylabel("Dec offset (arcsec)", fontsize=8)
         if comparison.beam is not None:
             _beam_ellipse(ax, comparison.beam, extent, "white")
-        fig.colorbar(im, ax=ax, shrink=0.8, label=_unit_label(m.unit))
+        fig.colorbar(im, ax=ax, shrink=0.8, label=unit_text(m.unit))
     return fig
 
 
