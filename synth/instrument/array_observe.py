@@ -19,7 +19,7 @@ import numpy as np
 
 from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
 from ..sky import ARCSEC_PER_RAD, C_M_S
-from .clean import grown_mask, hogbom
+from .clean import grown_mask, hogbom, pb_box
 from .multiscale import default_scales, multiscale_clean
 from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
@@ -89,7 +89,15 @@ def _scale_to_rms(pointings, rms, nu, opts):
 CLEAN_THREADS = 2
 
 
-def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts):
+#: components are placed only inside the bounding box of the part of each pointing where
+#: its primary beam is at least this fraction of ``primary_beam_cutoff`` (0.1 for the
+#: default cutoff 0.2): farther out the pointing adds little to the mosaic, and the
+#: corrected map is blanked where the response falls under the cutoff. CLEAN then works on
+#: the box alone (clean.hogbom), a third or less of the sub-image for a Gaussian beam.
+CLEAN_REGION = 0.5
+
+
+def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts, box=None):
     """``dirty`` cleaned and restored (Högbom, or multi-scale with ``opts["scales_px"]``),
     or as it is with ``opts["deconvolver"]`` "none"; with ``opts["clean_mask_sigma"]`` the components
     are only inside a mask grown from the dirty image (at that many sigma, dilated by one
@@ -101,10 +109,12 @@ def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts):
         mask = grown_mask(dirty, noise, float(opts["clean_mask_sigma"]), opts["beam_px"])
     if opts["deconvolver"] == "multiscale":
         model, res, n_it = multiscale_clean(dirty, psf, threshold, opts["scales_px"],
-                                            opts["clean_loop_gain"], opts["clean_max_components"], opts["beam_px"],
-                                            mask)
+                                            opts["clean_loop_gain"],
+                                            opts["clean_max_components"], opts["beam_px"],
+                                            mask, box)
     else:
-        model, res, n_it = hogbom(dirty, psf, threshold, opts["clean_loop_gain"], opts["clean_max_components"], mask)
+        model, res, n_it = hogbom(dirty, psf, threshold, opts["clean_loop_gain"],
+                                  opts["clean_max_components"], mask, box)
     return restore(model, res, beam, geom.dx_rad, geom.dy_rad), n_it
 
 
@@ -137,7 +147,8 @@ def _image_one(plane, pointing, nu, opts, beam, draws):
                  for z in draws]
     psf = _psf(tracks, nu, w, geom) if opts["deconvolver"] != "none" else None
     s_p = image_noise_jy(w, tracks.sigma_jy)
-    out = [_deconvolved(d, psf, opts["clean_stop_sigma"] * s_p, s_p, geom, beam, opts)
+    box = pb_box(pb_eff, CLEAN_REGION * opts["primary_beam_cutoff"])
+    out = [_deconvolved(d, psf, opts["clean_stop_sigma"] * s_p, s_p, geom, beam, opts, box)
            for d in dirty]
     return out, s_p, pb_eff
 

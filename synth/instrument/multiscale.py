@@ -18,6 +18,7 @@ from numba import njit
 from scipy.signal import fftconvolve
 
 from ..errors import InstrumentError
+from .clean import _smaller, first_at, psf_convolve, row_peak, subtract_row
 
 __all__ = ["multiscale_clean", "default_scales", "SCALE_BIAS"]
 
@@ -56,39 +57,46 @@ def _conv(a, b):
 
 @njit(cache=True, nogil=True)
 def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx, win):
+    """In-place multi-scale loop: the component is the first (scale, row, column) of largest
+    b_k |R_k| (inside the mask); each row's peak of every scale is kept up to date as
+    responses are subtracted, so a search reads one number per row and scale."""
     ns, ny, nx = res.shape
+    peaks = np.empty((ns, ny))
+    for k in range(ns):
+        for y in range(ny):
+            peaks[k, y] = row_peak(res[k, y], win[y], bias[k])
     it = 0
     while it < niter:
-        best, bk, by, bx, top0 = -1.0, 0, 0, 0, 0.0
+        best, bk, by = -1.0, 0, 0
         for k in range(ns):
             for y in range(ny):
-                for x in range(nx):
-                    a = abs(res[k, y, x]) * win[y, x]
-                    if k == 0 and a > top0:
-                        top0 = a
-                    v = a * bias[k]
-                    if v > best:
-                        best, bk, by, bx = v, k, y, x
-        if top0 < threshold:
+                if peaks[k, y] > best:
+                    best, bk, by = peaks[k, y], k, y
+        top0 = 0.0
+        for y in range(ny):
+            top0 = max(top0, peaks[0, y])
+        if top0 / bias[0] < threshold:
             break
+        bx = first_at(res[bk, by], win[by], bias[bk], best)
         amp = gain * res[bk, by, bx] / peak[bk]
         amps[bk, by, bx] += amp
         oy, ox = cy - by, cx - bx
         for l in range(ns):
             for y in range(ny):
-                row = cross[bk, l, y + oy]
-                for x in range(nx):
-                    res[l, y, x] -= amp * row[x + ox]
+                peaks[l, y] = subtract_row(res[l, y], cross[bk, l, y + oy, ox:ox + nx], amp,
+                                           win[y], bias[l])
         it += 1
     return it
 
 
 def multiscale_clean(dirty, psf, threshold, scales, loop_gain=0.1, max_components=10000, beam_px=None,
-                     mask=None):
+                     mask=None, box=None):
     """Multi-scale CLEAN of ``dirty`` (ny, nx) with ``psf`` (2ny, 2nx; peak 1 at its
     shape // 2 pixel) and ``scales`` (FWHM in pixels, the first 0). ``beam_px``, the
     restoring beam's FWHM in pixels, lets scales the array barely measures be left out.
-    Components are placed only where ``mask`` (bool, optional) is True.
+    Components are placed only where ``mask`` (bool, optional) is True, with their centres
+    inside ``box`` ((slice y, slice x), optional: the loop runs on the box alone; the model
+    and the residual outside it are made on the whole image at the end, by FFT convolutions).
     Returns (model image, point-scale residual, components)."""
     scales = [float(s) for s in scales]
     ny, nx = dirty.shape
@@ -97,6 +105,33 @@ def multiscale_clean(dirty, psf, threshold, scales, loop_gain=0.1, max_component
     if max(scales) > max(ny, nx):
         raise InstrumentError(f"clean_scales: {max(scales):.4g} pixels is larger than the map "
                               f"({nx} x {ny} pixels)")
+    if box is not None and _smaller(box, dirty.shape):
+        sub = None if mask is None else np.asarray(mask)[box]
+        amps_b, res_b, n, kernels = _multiscale(np.asarray(dirty)[box], psf, threshold, scales,
+                                                loop_gain, max_components, beam_px, sub)
+        amps = np.zeros((len(kernels),) + dirty.shape)
+        amps[(slice(None),) + tuple(box)] = amps_b
+        model = _model(amps, kernels)
+        res = np.asarray(dirty, dtype=np.float64) - psf_convolve(model, psf)
+        res[box] = res_b
+        return model, res, n
+    amps, res0, n, kernels = _multiscale(dirty, psf, threshold, scales, loop_gain,
+                                         max_components, beam_px, mask)
+    return _model(amps, kernels), res0, n
+
+
+def _model(amps, kernels):
+    """The model image: sum over scales of the component amplitudes x their kernels."""
+    model = amps[0].copy()
+    for k in range(1, len(kernels)):
+        model += _conv(amps[k], kernels[k])
+    return model
+
+
+def _multiscale(dirty, psf, threshold, scales, loop_gain, max_components, beam_px, mask):
+    """The loop of multiscale_clean: (amplitudes per kept scale, point-scale residual,
+    components, kernels per kept scale)."""
+    ny, nx = dirty.shape
     py, px = psf.shape
     kernels = [None if s == 0 else _kernel(s) for s in scales]   # unit-flux components
     ns = len(scales)
@@ -142,7 +177,4 @@ def multiscale_clean(dirty, psf, threshold, scales, loop_gain=0.1, max_component
         # the map edge: recompute them from the point-scale residual
         for k in range(1, ns):
             res[k] = _conv(res[0], kernels[k])
-    model = amps[0].copy()
-    for k in range(1, ns):
-        model += _conv(amps[k], kernels[k])
-    return model, res[0].copy(), n
+    return amps, res[0].copy(), n, kernels
