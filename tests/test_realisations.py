@@ -107,6 +107,7 @@ def _equal_maps(a, b, tol):
 @pytest.mark.parametrize("kw", [
     dict(deconvolver="multiscale", clean_mask_sigma=2.0, pointing_pattern="single"),
     dict(deconvolver="hogbom", map_size=36 * u.arcsec, weighting="robust"),   # a 7-pointing mosaic
+    dict(deconvolver="none", map_size=36 * u.arcsec),         # no PSF, no CLEAN box
 ])
 def test_a_realisation_equals_the_full_observation_with_its_seed(kw):
     """observe_seeds([s1, s2, s3]) reuses the noiseless dirty images, PSFs and weights and

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..errors import FieldLargerThanPrimaryBeamWarning, InstrumentError
 from ..sky import ARCSEC_PER_RAD, C_M_S
-from .clean import grown_mask, hogbom, pb_box
+from .clean import grown_mask, hogbom, pb_box, psf_transform
 from .multiscale import default_scales, multiscale_clean
 from .cube_utils import reference_frequency
 from .combine import dish_on_grid, feather_mosaic, split_instruments
@@ -97,7 +97,7 @@ CLEAN_THREADS = 2
 CLEAN_REGION = 0.5
 
 
-def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts, box=None):
+def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts, box=None, psf_ft=None):
     """``dirty`` cleaned and restored (Högbom, or multi-scale with ``opts["scales_px"]``),
     or as it is with ``opts["deconvolver"]`` "none"; with ``opts["clean_mask_sigma"]`` the components
     are only inside a mask grown from the dirty image (at that many sigma, dilated by one
@@ -111,10 +111,10 @@ def _deconvolved(dirty, psf, threshold, noise, geom, beam, opts, box=None):
         model, res, n_it = multiscale_clean(dirty, psf, threshold, opts["scales_px"],
                                             opts["clean_loop_gain"],
                                             opts["clean_max_components"], opts["beam_px"],
-                                            mask, box)
+                                            mask, box, psf_ft)
     else:
         model, res, n_it = hogbom(dirty, psf, threshold, opts["clean_loop_gain"],
-                                  opts["clean_max_components"], mask, box)
+                                  opts["clean_max_components"], mask, box, psf_ft)
     return restore(model, res, beam, geom.dx_rad, geom.dy_rad), n_it
 
 
@@ -148,8 +148,10 @@ def _image_one(plane, pointing, nu, opts, beam, draws):
     psf = _psf(tracks, nu, w, geom) if opts["deconvolver"] != "none" else None
     s_p = image_noise_jy(w, tracks.sigma_jy)
     box = pb_box(pb_eff, CLEAN_REGION * opts["primary_beam_cutoff"])
-    out = [_deconvolved(d, psf, opts["clean_stop_sigma"] * s_p, s_p, geom, beam, opts, box)
-           for d in dirty]
+    psf_ft = (psf_transform(psf) if psf is not None and box is not None and len(dirty) > 1
+              else None)
+    out = [_deconvolved(d, psf, opts["clean_stop_sigma"] * s_p, s_p, geom, beam, opts, box,
+                        psf_ft) for d in dirty]
     return out, s_p, pb_eff
 
 

@@ -9,7 +9,7 @@ is below ``threshold`` or after ``max_components`` iterations. Loop gain 0.1 (co
 import numpy as np
 from numba import njit
 
-__all__ = ["hogbom", "grown_mask", "psf_convolve", "pb_box"]
+__all__ = ["hogbom", "grown_mask", "psf_convolve", "psf_transform", "pb_box"]
 
 
 #: lets LLVM vectorise the max reductions (no NaN or inf reaches a residual)
@@ -75,7 +75,8 @@ def _hogbom_kernel(res, psf, model, gain, threshold, niter, cy, cx, win):
     return it
 
 
-def hogbom(dirty, psf, threshold, loop_gain=0.1, max_components=10000, mask=None, box=None):
+def hogbom(dirty, psf, threshold, loop_gain=0.1, max_components=10000, mask=None, box=None,
+           psf_ft=None):
     """Högbom CLEAN of ``dirty`` (ny, nx) with ``psf`` (>= 2ny-1, 2nx-1; peak 1 at its
     (shape // 2) pixel); components only where ``mask`` (bool, optional) is True and inside
     ``box`` ((slice y, slice x), optional). Returns (model, residual, iterations). Inputs are
@@ -83,14 +84,15 @@ def hogbom(dirty, psf, threshold, loop_gain=0.1, max_components=10000, mask=None
 
     With a box the loop runs on the box alone and the residual outside it is computed once
     at the end, by an FFT convolution of the model with the PSF: the same result as a mask
-    of the box (to round-off outside it), at the cost of the box's pixels per component."""
+    of the box (to round-off outside it), at the cost of the box's pixels per component.
+    ``psf_ft`` (psf_transform(psf)) saves that FFT of the PSF when it serves several CLEANs."""
     if box is not None and _smaller(box, dirty.shape):
         sub = None if mask is None else np.asarray(mask)[box]
         model_b, res_b, n = hogbom(np.asarray(dirty)[box], psf, threshold, loop_gain,
                                    max_components, sub)
         model = np.zeros(dirty.shape)
         model[box] = model_b
-        res = np.asarray(dirty, dtype=np.float64) - psf_convolve(model, psf)
+        res = np.asarray(dirty, dtype=np.float64) - psf_convolve(model, psf, psf_ft)
         res[box] = res_b
         return model, res, n
     res = np.array(dirty, dtype=np.float64, order="C")
@@ -106,11 +108,23 @@ def _smaller(box, shape):
     return any(len(range(*s.indices(n))) < n for s, n in zip(box, shape))
 
 
-def psf_convolve(model, psf):
+def _fast_shape(shape):
+    from scipy.fft import next_fast_len
+    return tuple(next_fast_len(int(n), True) for n in shape)
+
+
+def psf_transform(psf):
+    """The PSF's FFT on the grid psf_convolve uses (each side the next fast FFT length at or
+    above the PSF's): computed once, it serves every CLEAN with that PSF."""
+    from scipy.fft import rfft2
+    return rfft2(psf, s=_fast_shape(psf.shape))
+
+
+def psf_convolve(model, psf, psf_ft=None):
     """sum over components of model x the PSF centred on them: out[y, x] = sum model[y', x']
     psf[cy + y - y', cx + x - x'] with (cy, cx) = psf.shape // 2. A circular convolution on
-    the PSF's grid (FFTs of the PSF's size): psf.shape >= 2 model.shape - 1 keeps every
-    offset y - y' inside the grid, so nothing wraps."""
+    a grid at least the PSF's size: psf.shape >= 2 model.shape - 1 keeps every offset
+    cy + y - y' inside [0, psf.shape), so nothing wraps. ``psf_ft``: psf_transform(psf)."""
     from scipy.fft import irfft2, rfft2
     ny, nx = model.shape
     py, px = psf.shape
@@ -119,10 +133,10 @@ def psf_convolve(model, psf):
         return np.zeros(model.shape)
     if py < 2 * ny - 1 or px < 2 * nx - 1:
         raise ValueError(f"psf {psf.shape} smaller than twice the image {model.shape}")
-    pad = np.zeros((py, px))
-    pad[:ny, :nx] = model
-    full = irfft2(rfft2(pad) * rfft2(psf), s=(py, px))
-    return np.roll(full, (-cy, -cx), axis=(0, 1))[:ny, :nx]
+    ft = psf_transform(psf) if psf_ft is None else psf_ft
+    shape = _fast_shape(psf.shape)
+    full = irfft2(rfft2(model, s=shape) * ft, s=shape)
+    return full[cy:cy + ny, cx:cx + nx]
 
 
 def _window(mask, shape):

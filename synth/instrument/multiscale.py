@@ -90,13 +90,14 @@ def _ms_kernel(res, cross, peak, bias, amps, gain, threshold, niter, cy, cx, win
 
 
 def multiscale_clean(dirty, psf, threshold, scales, loop_gain=0.1, max_components=10000, beam_px=None,
-                     mask=None, box=None):
+                     mask=None, box=None, psf_ft=None):
     """Multi-scale CLEAN of ``dirty`` (ny, nx) with ``psf`` (2ny, 2nx; peak 1 at its
     shape // 2 pixel) and ``scales`` (FWHM in pixels, the first 0). ``beam_px``, the
     restoring beam's FWHM in pixels, lets scales the array barely measures be left out.
     Components are placed only where ``mask`` (bool, optional) is True, with their centres
     inside ``box`` ((slice y, slice x), optional: the loop runs on the box alone; the model
-    and the residual outside it are made on the whole image at the end, by FFT convolutions).
+    and the residual outside it are made on the whole image at the end, by FFT convolutions;
+    ``psf_ft``, clean.psf_transform(psf), saves the PSF's FFT).
     Returns (model image, point-scale residual, components)."""
     scales = [float(s) for s in scales]
     ny, nx = dirty.shape
@@ -112,7 +113,7 @@ def multiscale_clean(dirty, psf, threshold, scales, loop_gain=0.1, max_component
         amps = np.zeros((len(kernels),) + dirty.shape)
         amps[(slice(None),) + tuple(box)] = amps_b
         model = _model(amps, kernels)
-        res = np.asarray(dirty, dtype=np.float64) - psf_convolve(model, psf)
+        res = np.asarray(dirty, dtype=np.float64) - psf_convolve(model, psf, psf_ft)
         res[box] = res_b
         return model, res, n
     amps, res0, n, kernels = _multiscale(dirty, psf, threshold, scales, loop_gain,

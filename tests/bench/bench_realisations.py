@@ -1,7 +1,8 @@
 """Benchmark: survival metrics over N = 10 noise realisations / one observation (and its
 assessment), measured in this run. Target <= 5 (issue 11): the realisations share the
-layout, model, uv tracks, weights, primary beams, PSFs and noiseless dirty images; each one
-grids its own noise, is deconvolved (CLEAN is not linear) and assessed.
+layout, model, uv tracks, weights, primary beams, PSFs (and their FFTs, which give the
+residual outside each pointing's CLEAN box) and noiseless dirty images; each one grids its own
+noise, is deconvolved (CLEAN is not linear) and assessed (two realisations side by side).
 
 Three setups: an array 7-pointing mosaic without deconvolution, the same with Högbom CLEAN
 (3 sigma), and a dish map. Before the reuse each realisation was a full observation
