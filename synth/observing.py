@@ -180,7 +180,8 @@ def _config_message(msg, where):
     return where + body
 
 
-def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=None):
+def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=None,
+                   draw=None):
     """Observe every ideal cube with every setup; write cubes and figures.
 
     The observations are independent (each has its own seed) and run side by side: on
@@ -188,7 +189,8 @@ def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=
     files are written here as results arrive, the summary in the setups' order. ``after``,
     if given, is called as ``after(tracer, setup, ideal cube, observed map)`` once an
     observation is done (on its thread; here for a dask cluster), e.g. to analyse it while
-    other observations run.
+    other observations run. ``draw``, a process pool (synth.report.drawing), draws the uv
+    figures.
     Returns (summary, observed): the per-setup summary dict and ``{(tracer, setup): cube}``.
     """
     from .parallel import DaskExecutor
@@ -205,26 +207,39 @@ def observe_setups(conf, ideal, tmp, chash, progress, log, executor=None, after=
     then = [() if (after is None or remote) else (after, t, s) for t, s in jobs]
     from concurrent.futures import ThreadPoolExecutor
     side = ThreadPoolExecutor(1)   # the uv figures need no observation: drawn meanwhile
-    uv = side.submit(_uv_figures, setups, instruments, ideal, tmp) if figures else None
+    uv = None
+    if figures:            # in the drawing process (synth.report.drawing) when there is one
+        uv = (side if draw is None else draw).submit(_uv_figures, setups, instruments,
+                                                     {k: v for k, v in list(ideal.items())[:1]},
+                                                     tmp)
+    layouts, first = [], jobs[0][0] if jobs else None
+
+    def arrived(tname, sname, omap):     # a setup's layout, drawn aside as soon as it can be
+        if figures and draw is not None and tname == first:
+            layouts.append(draw.submit(_layout_one, sname, omap, tmp))
     try:
         done = _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after,
-                             remote, executor)
+                             remote, executor, arrived)
         summary, observed = {}, {}
         for i, (tname, sname) in enumerate(jobs):
             summary.setdefault(sname, {})[tname] = done[i][0]
             observed[(tname, sname)] = done[i][1]
         if figures:
             uv.result()     # first: both draw with pyplot, which is not thread-safe
-            _layout_figures(setups, observed, tmp)
+            if draw is None:
+                _layout_figures(setups, observed, tmp)
+            for job in layouts:
+                job.result()
     finally:
         side.shutdown(wait=True, cancel_futures=True)
     return summary, observed
 
 
 def _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after, remote,
-                  executor):
-    """Run the observation jobs; write each one's files as it arrives. {index: (summary
-    entry, observed map)}."""
+                  executor, arrived=None):
+    """Run the observation jobs; write each one's files as it arrives (then call
+    ``arrived(tracer, setup, observed map)`` if given). {index: (summary entry, observed
+    map)}."""
     from tqdm.auto import tqdm
     from .sweep import map_jobs
     done = {}
@@ -240,6 +255,8 @@ def _observe_jobs(conf, tmp, chash, progress, setups, jobs, args, then, after, r
         if setups[sname]["kind"] == "array" and setups[sname]["write_visibilities"]:
             _write_visibilities(cube, inst, kw, run_path(tmp, f"{tname}_{sname}"),
                                 object_name(conf))
+        if arrived is not None:
+            arrived(tname, sname, omap)
         entry = _obs_summary(omap.cube)
         entry.update(n_pointings=omap.layout.n_pointings, layout=omap.layout.describe(),
                      pixel_arcsec=float(abs(omap.cube.wcs.wcs.cdelt[0]) * 3600),
@@ -343,14 +360,18 @@ def _num(v):
 def _layout_figures(setups, observed, tmp):
     """One figure per setup: its pointings (or dish map positions) over the first tracer's
     moment-0 map."""
-    from .report.figures import layout_figure
     done = set()
     for (tname, sname), omap in observed.items():
         if sname in done:
             continue
         done.add(sname)
-        layout_figure(omap, f"{sname}: {omap.layout.describe()}",
-                      run_path(tmp, f"layout_{sname}.png"))
+        _layout_one(sname, omap, tmp)
+
+
+def _layout_one(sname, omap, tmp):
+    from .report.figures import layout_figure
+    layout_figure(omap, f"{sname}: {omap.layout.describe()}",
+                  run_path(tmp, f"layout_{sname}.png"))
 
 
 def _uv_figures(setups, instruments, ideal, tmp):

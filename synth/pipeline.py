@@ -218,6 +218,18 @@ def ideal_cubes(config):
 
 
 def _run(conf, lines, chash, tmp, progress, log, execution):
+    draw = None
+    if conf["output"]["figures"] and conf["setup"]:
+        from .report.drawing import figure_process    # per-observation figures, drawn aside
+        draw = figure_process()
+    try:
+        return _run_stages(conf, lines, chash, tmp, progress, log, execution, draw)
+    finally:
+        if draw is not None:
+            draw.shutdown(wait=True, cancel_futures=True)
+
+
+def _run_stages(conf, lines, chash, tmp, progress, log, execution, draw):
     t_start = time.perf_counter()
     summary = {"synth_version": __version__, "config_hash": chash, "config": conf,
                "snapshot": {}, "tracers": {}}
@@ -232,7 +244,7 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
         tr, line = next((t, ln) for t, ln in zip(conf["tracer"], lines) if t["name"] == name)
         ideal[name] = hit.result.cube
         summary["tracers"][name] = _write_tracer(tmp, tr, line, hit.result, conf, chash,
-                                                 keys[name], hit.source)
+                                                 keys[name], hit.source, draw)
         summary["snapshot"] = dict(hit.snapshot, ideal_cubes_reused=sorted(hits))
     if todo:
         for tr, line, res in synthesize_config(conf, progress, execution["memory"],
@@ -242,7 +254,7 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
                                                only=todo):
             ideal[tr["name"]] = as_written(res.cube)
             summary["tracers"][tr["name"]] = _write_tracer(tmp, tr, line, res, conf, chash,
-                                                           keys[tr["name"]])
+                                                           keys[tr["name"]], None, draw)
     else:
         check_setups(conf, lines, _cube_sky_size(next(iter(ideal.values()))))
     order = [tr["name"] for tr in conf["tracer"]]
@@ -253,10 +265,16 @@ def _run(conf, lines, chash, tmp, progress, log, execution):
     analysed = {}   # each observation analysed on its thread as soon as it is done
 
     def after(tname, sname, cube, omap):
-        analysed[(tname, sname)] = analyse_observation(conf, tname, sname, cube, omap, tmp)
+        analysed[(tname, sname)] = analyse_observation(conf, tname, sname, cube, omap, tmp,
+                                                       draw=draw)
     summary["setups"], observed = _observe_all(conf, ideal, tmp, chash, progress, log,
-                                               execution["executor"], after)
-    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log, done=analysed)
+                                               execution["executor"], after, draw)
+    for entry in summary["tracers"].values():   # the moment-0 figures (the report looks
+        job = entry.pop("_figure_job", None)      # for their files)
+        if job is not None:
+            job.result()
+    summary["analysis"] = run_analysis(conf, ideal, observed, tmp, log=log, done=analysed,
+                                       draw=draw)
     summary["elapsed_s"] = round(time.perf_counter() - t_start, 2)
     write_report(tmp, summary, log=log)
     write_json(summary, run_path(tmp, "summary.json"))
@@ -269,7 +287,7 @@ def _cube_sky_size(cube):
     return (nx * abs(cube.wcs.wcs.cdelt[0]) * 3600, ny * abs(cube.wcs.wcs.cdelt[1]) * 3600)
 
 
-def _write_tracer(tmp, tr, line, res, conf, chash, key=None, reused_from=None):
+def _write_tracer(tmp, tr, line, res, conf, chash, key=None, reused_from=None, draw=None):
     """Write a tracer's ideal cube (and tau cube, column map, figure); return its summary
     entry. ``key`` = (key, parts) of synth.cache, recorded in every file; ``reused_from``:
     the earlier ideal cube ``res`` was read from."""
@@ -314,13 +332,17 @@ def _write_tracer(tmp, tr, line, res, conf, chash, key=None, reused_from=None):
     warn_if_underresolved(name, entry["velocity_resolution"])
     if conf["output"]["figures"]:
         from .report.figures import moment0_figure
-        moment0_figure(mom0, cube, str(line), run_path(tmp, f"{name}_mom0.png"))
+        job = (moment0_figure, mom0, cube, str(line), run_path(tmp, f"{name}_mom0.png"))
+        if draw is None:
+            job[0](*job[1:])
+        else:                     # drawn aside (synth.report.drawing); awaited at the end
+            entry["_figure_job"] = draw.submit(*job)
     return entry
 
 
-def _observe_all(conf, ideal, tmp, chash, progress, log, executor=None, after=None):
+def _observe_all(conf, ideal, tmp, chash, progress, log, executor=None, after=None, draw=None):
     """Observe every ideal cube with every [[setup]] (filled in by the instrument stage)."""
     if not conf["setup"]:
         return {}, {}
     from .observing import observe_setups
-    return observe_setups(conf, ideal, tmp, chash, progress, log, executor, after)
+    return observe_setups(conf, ideal, tmp, chash, progress, log, executor, after, draw)

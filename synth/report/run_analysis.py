@@ -19,6 +19,7 @@ from ..errors import ConfigError, InstrumentError
 from ..fitsio import atomic_path, write_json, write_text
 from ..rundir import csv_cell, run_path
 from ..planning import duration_text
+from .drawing import resolved
 
 __all__ = ["run_analysis", "analyse_observation", "analysis_settings", "assess_observation", "plan_config",
            "spectra_positions", "rows_csv", "survival_text", "cell_text", "SURVIVAL_COLUMNS",
@@ -144,6 +145,15 @@ def _observation_figures(tname, sname, ideal, obs, m, positions, tmp, noise_map=
     if os.path.exists(f"{base}_mom0.png"):
         out["mom0"] = os.path.basename(f"{base}_mom0.png")
     return out
+
+
+def _recovery_png(tname, survivals, spreads, tmp):
+    """The recovered-power figure of a tracer's observations (its file name)."""
+    from ..analysis.plots import recovery_figure
+    return _save(recovery_figure(survivals, title=f"{tname}: recovered power per scale"
+                                 + (" (error bars: spread over noise realisations)"
+                                    if spreads else ""), spreads=spreads),
+                 run_path(tmp, f"{tname}_recovery.png"))
 
 
 def _tracer_figures(tname, cube, positions, tmp):
@@ -273,20 +283,25 @@ def _survival_files(results, tmp, spreads=None, columns=None):
     return clean
 
 
-def analyse_observation(conf, tname, sname, cube, obs, tmp, settings=None):
+def analyse_observation(conf, tname, sname, cube, obs, tmp, settings=None, draw=None):
     """The survival metrics of one observation and its report entry (notes, noise, figures
     written into ``tmp``): (Survival, entry). Observations are analysed this way as they
-    finish, on the observing threads (synth.observing), or by :func:`run_analysis`."""
+    finish, on the observing threads (synth.observing), or by :func:`run_analysis`.
+    ``draw``, a process pool (synth.report.drawing), draws the figures there: the entry's
+    "figures" is then a Future of them (synth.report.drawing.resolved)."""
     settings = settings or analysis_settings(conf)
     setups = {st["name"]: st for st in conf["setup"]}
     positions = spectra_positions(cube, settings["spectra_positions"])
     m = assess_observation(cube, obs, setups.get(sname), settings["emission_floor"])
     sky, image = (obs.sky, obs.corrected) if hasattr(obs, "layout") else (cube, obs)
+    figures = {}
+    if conf["output"]["figures"]:
+        args = (tname, sname, sky, image, m, _positions_on(cube, image, positions), tmp,
+                _noise_map(obs, m))
+        figures = (_observation_figures(*args) if draw is None
+                   else draw.submit(_observation_figures, *args))
     return m, {"notes": list(m.notes), "noise": float(m.noise.value), "unit": m.unit,
-               "figures": (_observation_figures(tname, sname, sky, image, m,
-                                                _positions_on(cube, image, positions), tmp,
-                                                _noise_map(obs, m))
-                           if conf["output"]["figures"] else {})}
+               "figures": figures}
 
 
 def _noise_map(obs, m):
@@ -302,7 +317,7 @@ def _noise_map(obs, m):
     return out if np.shape(out) == tuple(obs.corrected.shape[1:]) else None
 
 
-def run_analysis(conf, ideal, observed, tmp, *, log=None, done=None):
+def run_analysis(conf, ideal, observed, tmp, *, log=None, done=None, draw=None):
     """Assess every observation, write figures, survival and planning files into ``tmp``.
 
     Parameters
@@ -318,6 +333,8 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None, done=None):
     done : dict, optional
         ``{(tracer, setup): (Survival, entry)}`` of observations already analysed by
         :func:`analyse_observation`.
+    draw : concurrent.futures.Executor, optional
+        Draws the per-tracer figures (synth.report.drawing) while the rest goes on.
 
     Returns
     -------
@@ -335,22 +352,28 @@ def run_analysis(conf, ideal, observed, tmp, *, log=None, done=None):
     for tname, cube in ideal.items():
         positions = spectra_positions(cube, settings["spectra_positions"])
         entry = {"spectra_positions": [list(p) for p in positions], "setups": {},
-                 "figures": _tracer_figures(tname, cube, positions, tmp) if figures else {}}
+                 "figures": ((_tracer_figures(tname, cube, positions, tmp) if draw is None
+                              else draw.submit(_tracer_figures, tname, cube, positions, tmp))
+                             if figures else {})}
         for (t, sname), obs in observed.items():
             if t != tname:
                 continue
             m, entry["setups"][sname] = (done or {}).get((tname, sname)) or \
                 analyse_observation(conf, tname, sname, cube, obs, tmp, settings)
+            figs = entry["setups"][sname]["figures"]
+            entry["setups"][sname]["figures"] = resolved(figs)
             results[(tname, sname)] = m
+        recovery = None
         if figures and entry["setups"]:
-            from ..analysis.plots import recovery_figure
             mine = {s: results[(tname, s)] for s in entry["setups"]}
             spread = {s: spreads[(tname, s)] for s in entry["setups"] if (tname, s) in spreads}
-            entry["figures"]["recovery"] = _save(
-                recovery_figure(mine, title=f"{tname}: recovered power per scale"
-                                + (" (error bars: spread over noise realisations)"
-                                   if spread else ""), spreads=spread),
-                run_path(tmp, f"{tname}_recovery.png"))
+            job = (_recovery_png, tname, mine, spread, tmp)
+            recovery = job[0](*job[1:]) if draw is None else draw.submit(*job)
+        out["tracers"][tname] = (entry, recovery)
+    for tname, (entry, recovery) in list(out["tracers"].items()):   # drawn by now
+        entry["figures"] = resolved(entry["figures"])
+        if recovery is not None:
+            entry["figures"]["recovery"] = resolved(recovery)
         out["tracers"][tname] = entry
     out["uv"] = {s: f"uv_{s}.png" for s, st in setups.items()
                  if st["kind"] == "array" and os.path.exists(run_path(tmp, f"uv_{s}.png"))}
