@@ -2,9 +2,9 @@
 
 Drawing with matplotlib is pure Python: it holds the interpreter lock, so figures drawn on
 the observing threads wait for, and hold up, the Python parts of the observations. A run
-that writes figures hands them to one worker process instead: ``python -m
-synth.report.drawing``, started at the beginning of the run (its imports overlap the run's
-own work). Jobs (a module-level function and its arguments) go to it pickled through its
+that writes figures hands them to FIGURE_WORKERS (2) worker processes instead, each ``python
+-m synth.report.drawing``, started at the beginning of the run (their imports overlap the
+run's own work); a job goes to the worker with the fewest jobs waiting. Jobs (a module-level function and its arguments) go to it pickled through its
 standard input, results come back through its standard output; the worker writes the PNG
 files into the run folder and returns their names.
 
@@ -170,6 +170,8 @@ def _serve(inp, out):
 
 
 if __name__ == "__main__":
+    import signal
+    signal.signal(signal.SIGINT, signal.SIG_IGN)   # Ctrl-C is the run's: it ends this worker
     _in, _out = sys.stdin.buffer, sys.stdout.buffer
     sys.stdout = sys.stderr          # nothing but results on the pipe
     _serve(_in, _out)
