@@ -350,6 +350,10 @@ def _check_map_keys(st):
                                           isinstance(v, bool) and v >= 0 for v in sc)):
         raise ConfigError(f"{where}: clean_scales_arcsec = {sc!r}; give component FWHMs >= 0 in "
                           "arcsec, e.g. [0, 4, 8]")
+    if sc is not None and st["deconvolver"] != "multiscale":
+        raise ConfigError(f"{where}: clean_scales_arcsec = {sc!r} is for deconvolver = "
+                          f"\"multiscale\"; this setup's deconvolver is "
+                          f"\"{st['deconvolver']}\"")
     if st["clean_mask_sigma"] is not None and not st["clean_mask_sigma"] > 0:
         raise ConfigError(f"{where}: clean_mask_sigma = {st['clean_mask_sigma']}; must be > 0")
     if st["write_visibilities"] and st["kind"] != "array":

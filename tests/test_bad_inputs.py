@@ -216,6 +216,9 @@ CONFIG_CASES = [
      "[analysis].noise_realisations must be >= 1"),
     ("mask-sigma-zero", _setup(clean_mask_sigma=0.0),
      "setup 'arr': clean_mask_sigma = 0.0; must be > 0"),
+    ("scales-without-multiscale", _setup(deconvolver="hogbom", clean_scales_arcsec=[0, 4]),
+     "setup 'arr': clean_scales_arcsec = [0, 4] is for deconvolver = \"multiscale\"; this "
+     "setup's deconvolver is \"hogbom\""),
     ("unknown-deconvolver", _setup(deconvolver="maxent"),
      "setup 'arr': deconvolver = 'maxent'; valid: hogbom, multiscale, none"),
     ("visibilities-from-a-dish", _setup(_kind="dish", write_visibilities=True),

@@ -144,6 +144,7 @@ def test_multiscale_with_points_only_is_hogbom():
     (dict(deconvolver="maxent"), "deconvolver='maxent' is not one of none, hogbom, multiscale"),
     (dict(deconvolver="multiscale", clean_scales=[0, 500] * u.arcsec), "clean_scales: 500 arcsec is larger"),
     (dict(deconvolver="multiscale", clean_scales=[0, -1] * u.arcsec), "clean_scales="),
+    (dict(clean_scales=[0, 4] * u.arcsec), "clean_scales=.* is for deconvolver=\"multiscale\"; this one is .hogbom."),
 ])
 def test_bad_deconvolver_options(kw, match):
     from synth.errors import InstrumentError

@@ -62,8 +62,9 @@ def test_two_workers_share_the_jobs():
 def test_a_script_without_a_main_guard_runs_once(tmp_path):
     """A user's script that calls run_config at module level (no ``if __name__ ==
     "__main__"``) draws its figures through the worker without being run a second time:
-    the worker is ``python -m synth.report.drawing``, which never imports the caller's main
-    module (multiprocessing's spawn and fork-server workers would)."""
+    the worker is ``python -m synth.report.figure_worker``, which never imports the caller's main
+    module (multiprocessing's spawn and fork-server workers would), and starts without a
+    warning."""
     out = tmp_path / "run"
     script = tmp_path / "user_script.py"
     marker = tmp_path / "started.txt"
@@ -87,6 +88,7 @@ def test_a_script_without_a_main_guard_runs_once(tmp_path):
                           text=True, timeout=300)
     assert proc.returncode == 0, proc.stderr
     assert marker.read_text() == "started\n"
+    assert "Warning" not in proc.stderr, proc.stderr     # the workers start cleanly
     for name in ("13CO_1-0_d8_moments.png", "13CO_1-0_d8_spectra.png", "13CO_1-0_mom0.png",
                  "13CO_1-0_recovery.png", "13CO_1-0_spectra.png", "layout_d8.png"):
         assert (out / name).stat().st_size > 1000, name

@@ -374,6 +374,10 @@ def _check_options(opts):
     if opts["deconvolver"] not in DECONVOLVERS:
         raise InstrumentError(f"deconvolver={opts['deconvolver']!r} is not one of "
                               f"{', '.join(DECONVOLVERS)}")
+    if opts["clean_scales"] is not None and opts["deconvolver"] != "multiscale":
+        raise InstrumentError(f"clean_scales={opts['clean_scales']!r} is for "
+                              f"deconvolver=\"multiscale\"; this one is "
+                              f"{opts['deconvolver']!r}")
     if opts["clean_scales"] is not None:
         sc = u.Quantity(opts["clean_scales"])
         if sc.unit.physical_type != "angle" or sc.ndim != 1 or not np.all(sc.value >= 0):

@@ -3,7 +3,7 @@
 Drawing with matplotlib is pure Python: it holds the interpreter lock, so figures drawn on
 the observing threads wait for, and hold up, the Python parts of the observations. A run
 that writes figures hands them to FIGURE_WORKERS (2) worker processes instead, each ``python
--m synth.report.drawing``, started at the beginning of the run (their imports overlap the
+-m synth.report.figure_worker``, started at the beginning of the run (their imports overlap the
 run's own work); a job goes to the worker with the fewest jobs waiting. Jobs (a module-level function and its arguments) go to it pickled through its
 standard input, results come back through its standard output; the worker writes the PNG
 files into the run folder and returns their names.
@@ -31,7 +31,7 @@ class FigureProcess:
     def __init__(self):
         paths = [p for p in sys.path if p]
         env = dict(os.environ, PYTHONPATH=os.pathsep.join(paths))
-        self._proc = subprocess.Popen([sys.executable, "-m", "synth.report.drawing"],
+        self._proc = subprocess.Popen([sys.executable, "-m", "synth.report.figure_worker"],
                                       stdin=subprocess.PIPE, stdout=subprocess.PIPE, env=env)
         self._jobs = queue.Queue()
         self._pending = {}
@@ -167,11 +167,3 @@ def _serve(inp, out):
             del exc
         out.write(data)
         out.flush()
-
-
-if __name__ == "__main__":
-    import signal
-    signal.signal(signal.SIGINT, signal.SIG_IGN)   # Ctrl-C is the run's: it ends this worker
-    _in, _out = sys.stdin.buffer, sys.stdout.buffer
-    sys.stdout = sys.stderr          # nothing but results on the pipe
-    _serve(_in, _out)
