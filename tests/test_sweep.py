@@ -35,18 +35,6 @@ BASE = {
 }
 
 
-@pytest.fixture
-def count(monkeypatch):
-    from synth.transfer import synthesize as mod
-    calls, real = [], mod.synthesize_products
-
-    def counted(snapshot, line, *a, **k):
-        calls.append(str(line))
-        return real(snapshot, line, *a, **k)
-    monkeypatch.setattr(mod, "synthesize_products", counted)
-    return calls
-
-
 def _sweep_conf():
     conf = copy.deepcopy(BASE)
     conf["sweep"] = {"setups": ["arr"], "integration_time_h": TIMES, "antennas": ARRAYS}

@@ -137,6 +137,7 @@ def _mills_m(y):
     p = p * y + 0.385616209430632
     return p
 
+
 @njit(cache=True, inline="always")
 def _mills_h(y):
     """H(x) ((x + _L) / _L)^2 as a polynomial in y = (x - _L) / (x + _L)."""
@@ -158,6 +159,7 @@ def _mills_h(y):
     p = p * y + -0.23275309254102589
     p = p * y + 0.14383790569368513
     return p
+
 
 @njit(cache=True, inline="always")
 def _exp_small(x):
