@@ -16,8 +16,8 @@ from numpy.polynomial import chebyshev
 from scipy.special import erfcx, ndtr
 
 from synth.transfer import kernel as K
-from synth.transfer.kernel import cumulative_profile, emission_counts, sub_channels, \
-    transfer_columns
+from synth.transfer.kernel import column_inputs, cumulative_profile, emission_counts, \
+    sub_channels, transfer_columns
 
 
 def _mills(x):
@@ -261,3 +261,29 @@ def test_emission_counts_match_numpy():
     want = [emitting.sum(), bad.sum(), w.sum(), w[bad].sum()]
     np.testing.assert_allclose(emission_counts(tau_int, src, delta, sigma, j_bg, fwhm), want,
                                rtol=1e-12)
+
+
+@pytest.mark.parametrize("nz, per_cell_sigma", [(9, False), (9, True), (2, True), (1, False)])
+def test_column_inputs_match_numpy(nz, per_cell_sigma):
+    """The kernel's inputs made in one pass against the same formulas in float64 numpy:
+    J(T_ex) = t0 / expm1(t0 / T_ex) (inverted, negative T_ex included), numpy.gradient of v_z
+    along z (edge_order 1), sigma = sqrt(k T / m + sigma_turb^2); float32 rounding."""
+    rng = np.random.default_rng(nz)
+    n, ny = 3, 4
+    shape = (n, ny, nz)
+    opac = rng.uniform(1e-10, 1e-8, shape).astype(np.float32)
+    t_ex = rng.uniform(3.0, 60.0, shape).astype(np.float32)
+    t_ex[0, 0, 0] = -8.0
+    vz = rng.normal(0, 2e5, shape).astype(np.float32)
+    t_kin = rng.uniform(8.0, 40.0, shape).astype(np.float32)
+    sig = rng.uniform(1e4, 5e4, shape) if per_cell_sigma else np.array(3e4)
+    depth, t0, v_sys, therm = 3.1e13, 5.53, 42.0, 1.380649e-16 / (28.0 * 1.66053907e-24)
+    got = [np.empty((n * ny, nz), np.float32) for _ in range(5)]
+    column_inputs(opac, t_ex, vz, t_kin, sig.reshape(-1), depth, t0, v_sys, therm, *got)
+    v = vz.astype(np.float64)
+    grad = np.gradient(v, axis=2) if nz > 1 else np.zeros_like(v)
+    want = [opac.astype(np.float64) * depth, t0 / np.expm1(t0 / t_ex.astype(np.float64)), v * 1e-5 + v_sys,
+            np.sqrt(therm * t_kin.astype(np.float64) + np.square(sig)) * 1e-5,
+            np.abs(grad) * 1e-5]
+    for g, w in zip(got, want):
+        np.testing.assert_allclose(g, w.reshape(n * ny, nz), rtol=6e-8, atol=0)

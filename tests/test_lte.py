@@ -40,6 +40,31 @@ def test_lte_opacity_matches_mangum_shirley_column_relation():
     assert exc.t_ex_k[0, 0, 0] == pytest.approx(t)
 
 
+def test_lte_opacity_over_a_range_of_temperatures_matches_the_level_sum():
+    """Every cell of a snapshot with T_kin from 5 to 300 K and a per-cell abundance against
+    the Boltzmann formula with the exact level sum for Q(T) (Mangum & Shirley 2015, eqs.
+    29-32): the interpolated partition function (1e-7) and float32 rounding, 3e-7."""
+    rng = np.random.default_rng(7)
+    shape = (6, 5, 7)
+    t = np.exp(rng.uniform(np.log(5.0), np.log(300.0), shape)).astype(np.float32)
+    n = np.exp(rng.uniform(np.log(1e2), np.log(1e6), shape)).astype(np.float32)
+    ab = rng.uniform(1e-5, 1e-4, shape)
+    snap = synth.Snapshot(n_h2=n * u.cm**-3, t_kin=t * u.K,
+                          velocity=np.zeros((3,) + shape) * u.km / u.s, cell_size=0.1 * u.pc,
+                          abundance={"CO": ab})
+    line = synth.Line("CO", "2-1")
+    exc = lte_excitation(snap, line, 1e-4)
+    mol = line.molecule
+    tt = t.astype(np.float64)
+    q = np.sum(mol.g[:, None] * np.exp(-mol.energy_k[:, None] / tt.reshape(-1)), axis=0)
+    c, h, k = 2.99792458e10, 6.62607015e-27, 1.380649e-16
+    nu, a, g_u = line.freq_hz, line.a_ul_s, mol.g[line.upper]
+    n_u = n * ab * g_u * np.exp(-mol.energy_k[line.upper] / tt) / q.reshape(shape)
+    want = c**3 / (8 * np.pi * nu**3) * a * n_u * np.expm1(h * nu / (k * tt))
+    np.testing.assert_allclose(exc.opacity_integral, want, rtol=3e-7)
+    assert np.array_equal(exc.t_ex_k, t)
+
+
 def test_fixed_t_ex_and_per_cell_abundance():
     """t_ex overrides T_kin; a snapshot abundance field overrides the constant abundance and
     opacity scales linearly with it (definition)."""

@@ -92,6 +92,27 @@ def test_snapshot_and_file_give_the_same_blocks_with_halo(tmp_path):
         src.view("z").block(0, 2, halo=-1)
 
 
+def test_snapshot_block_is_a_read_only_view_of_its_rows():
+    """An in-memory Snapshot's block shares its rows with the snapshot (no copy), cannot be
+    written, and carries the fields with their units, the per-cell abundance and sigma_turb."""
+    snap = _cloud(10)
+    cells = snap.shape
+    ab = np.random.default_rng(2).uniform(1e-5, 2e-5, cells)
+    sig = np.full(cells, 3e4)
+    snap = snap._replace(abundance={"CO": ab}, sigma_turb_cms=sig)
+    b = snap.block(3, 6, halo=1)
+    assert b.shape == (5,) + cells[1:]
+    for got, whole in ((b.n_h2_cm3, snap.n_h2_cm3), (b.t_kin_k, snap.t_kin_k),
+                       (b.velocity_cms, snap.velocity_cms),
+                       (b.sigma_turb_cms, snap.sigma_turb_cms)):
+        assert np.shares_memory(got, whole) and not got.flags.writeable
+    np.testing.assert_array_equal(b.velocity_cms, snap.velocity_cms[:, 2:7])
+    np.testing.assert_array_equal(b.abundance_for("CO", 1e-4), ab[2:7])
+    assert b.n_h2.unit == u.cm**-3 and b.velocity.unit == u.cm / u.s
+    np.testing.assert_array_equal(b.t_kin.to_value(u.K), snap.t_kin_k[2:7])
+    assert b.cell_size_cm == snap.cell_size_cm
+
+
 def test_transfer_imports_no_solver_and_no_executor():
     """synth/transfer never imports an excitation solver (lte, lvg, statistical_equilibrium,
     tables, gradient) nor synth.parallel: the excitation arrives as a product or a block

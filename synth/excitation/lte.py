@@ -12,7 +12,10 @@ T_ex = T. The velocity-integrated opacity coefficient is
 (the same paper, eq. 29, per unit velocity; see :mod:`synth.excitation.product`).
 """
 
+import math
+
 import numpy as np
+from numba import njit, prange
 
 from ..errors import ExcitationError
 from ..radiation import C_CGS, H_CGS, K_CGS
@@ -20,7 +23,7 @@ from .product import Excitation
 
 __all__ = ["lte_excitation", "lte_fractions", "partition_table"]
 
-_SLAB = 1 << 20  # cells per work slab: bounds the float64 temporaries to ~8 MB each
+_CHUNK = 1 << 14  # cells per parallel task
 
 
 def partition_table(molecule, t_min_k, t_max_k, n=2048):
@@ -80,20 +83,35 @@ def lte_excitation(snapshot, line, abundance, t_ex=None):
     share_t = t_ex is None and t_field.dtype == np.float32
     t_out = t_field if share_t else np.empty(snapshot.shape, dtype=np.float32)
     k_out = np.empty(snapshot.shape, dtype=np.float32)
-    flat_t, flat_n = t_field.reshape(-1), n_h2.reshape(-1)
-    flat_x = None if np.ndim(x_ab) == 0 else np.asarray(x_ab).reshape(-1)
-    tv, kv = (None if share_t else t_out.reshape(-1)), k_out.reshape(-1)
-    for s in range(0, flat_t.size, _SLAB):
-        sl = slice(s, s + _SLAB)
-        t = flat_t[sl].astype(np.float64)
-        xab = x_ab if flat_x is None else flat_x[sl]
-        q = np.exp(np.interp(np.log(t), log_t, log_q))
-        n_u = flat_n[sl] * xab * g_u * np.exp(-e_u / t) / q
-        kv[sl] = pref * n_u * np.expm1(t0 / t)
-        if not share_t:
-            tv[sl] = t
+    flat_x = np.atleast_1d(np.asarray(x_ab, dtype=np.float64)).reshape(-1)
+    _lte_cells(t_field.reshape(-1), n_h2.reshape(-1), flat_x, float(log_t[0]),
+               float(log_t[1] - log_t[0]), log_q, g_u, e_u, t0, pref, k_out.reshape(-1),
+               np.empty(0, np.float32) if share_t else t_out.reshape(-1), not share_t)
     return Excitation(line=line, t_ex_k=t_out, opacity_integral=k_out, method="lte",
                       info={"t_ex": "fixed" if t_ex is not None else "t_kin"})
+
+
+@njit(cache=True, parallel=True, nogil=True)
+def _lte_cells(t, n_h2, x_ab, log_t0, log_step, log_q, g_u, e_u, t0, pref, k_out, t_out,
+               write_t):
+    """opacity_integral = pref n_H2 X g_u exp(-E_u / T) / Q(T) (exp(t0 / T) - 1) per cell, in
+    one parallel pass (Q by linear interpolation of log Q on the uniform log T grid of
+    partition_table, as numpy.interp would; X per cell or one value)."""
+    size = t.size
+    one_x = x_ab.size == 1
+    last = log_q.size - 2
+    for b in prange((size + _CHUNK - 1) // _CHUNK):
+        for i in range(b * _CHUNK, min(size, (b + 1) * _CHUNK)):
+            tt = np.float64(t[i])
+            f = (math.log(tt) - log_t0) / log_step
+            j = min(max(int(math.floor(f)), 0), last)
+            w = min(max(f - j, 0.0), 1.0)
+            lq = log_q[j] + (log_q[j + 1] - log_q[j]) * w
+            x = x_ab[0] if one_x else x_ab[i]
+            k_out[i] = pref * (np.float64(n_h2[i]) * x * g_u * math.exp(-e_u / tt - lq)) \
+                * math.expm1(t0 / tt)
+            if write_t:
+                t_out[i] = tt
 
 
 def _check_abundance(abundance):

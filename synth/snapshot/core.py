@@ -273,10 +273,11 @@ class Snapshot:
         abund = c["abundance"]
         if abund is not None:
             abund = {k: (v if np.ndim(v) == 0 else v[lo:hi]) for k, v in abund.items()}
-        return self._replace(n_h2_cm3=c["n_h2_cm3"][lo:hi], t_kin_k=c["t_kin_k"][lo:hi],
-                             velocity_cms=c["velocity_cms"][:, lo:hi],
-                             sigma_turb_cms=sig if np.ndim(sig) == 0 else sig[lo:hi],
-                             abundance=abund)
+        # the rows are views of this snapshot's checked, read-only fields: no copy, no checks
+        return _rows_view(dict(c, n_h2_cm3=c["n_h2_cm3"][lo:hi], t_kin_k=c["t_kin_k"][lo:hi],
+                               velocity_cms=c["velocity_cms"][:, lo:hi],
+                               sigma_turb_cms=sig if np.ndim(sig) == 0 else sig[lo:hi],
+                               abundance=abund))
 
     def view(self, line_of_sight="z", edges=None):
         """This snapshot seen along another axis or rotation; see :func:`synth.snapshot.views.view`."""
@@ -288,3 +289,20 @@ class Snapshot:
         return (f"Snapshot({nx}x{ny}x{nz} cells of {(self.cell_size_cm * u.cm).to(u.pc):.4g}, "
                 f"n_H2 {self.n_h2_cm3.min():.3g}-{self.n_h2_cm3.max():.3g} cm-3, "
                 f"T {self.t_kin_k.min():.3g}-{self.t_kin_k.max():.3g} K)")
+
+
+def _rows_view(cgs):
+    """A Snapshot over ``cgs`` fields that are read-only views of a checked Snapshot's (what
+    :meth:`Snapshot.block` makes): the constructor's unit conversions, copies and finiteness
+    scans are skipped, as they were done for the whole grid."""
+    snap = object.__new__(Snapshot)
+    abund = cgs["abundance"]
+    if abund is not None:
+        abund = abund[None] if list(abund) == [None] else dict(abund)
+    for name, value in (("n_h2", cgs["n_h2_cm3"] << u.cm**-3), ("t_kin", cgs["t_kin_k"] << u.K),
+                        ("velocity", cgs["velocity_cms"] << u.cm / u.s),
+                        ("cell_size", cgs["cell_size_cm"] * u.cm),
+                        ("sigma_turb", np.asarray(cgs["sigma_turb_cms"]) << u.cm / u.s),
+                        ("abundance", abund), ("_cgs", cgs)):
+        object.__setattr__(snap, name, value)
+    return snap

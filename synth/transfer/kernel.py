@@ -89,7 +89,7 @@ from llvmlite import ir
 from numba import njit, prange, types
 from numba.extending import intrinsic
 
-__all__ = ["N_SIGMA", "MAX_SUB", "TAU_LINEAR", "transfer_columns",
+__all__ = ["N_SIGMA", "MAX_SUB", "TAU_LINEAR", "transfer_columns", "column_inputs",
            "cumulative_profile", "sub_channels", "emission_counts"]
 
 #: Half-width of the evaluated window in dispersions; the Gaussian mass outside +-5 sigma is
@@ -554,6 +554,47 @@ def _column(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, out, tau_out, c, 
         out[c, k] = acc * inv_m - j_bg
         if want_tau:
             tau_out[c, k] = tacc * inv_m
+
+
+def column_inputs(opacity, t_ex, vz, t_kin, sig_turb, depth_km, t0, v_sys, therm,
+                  tau_int, src, v0, sigma, delta):
+    """The kernel's (ncol, nz) float32 inputs of a block of (n, ny, nz) cells, in one parallel
+    pass (computed in float64, rounded once):
+
+    tau_int = opacity depth_km (km/s; opacity in s^-1, depth_km the cell depth),
+    src = t0 / (exp(t0 / T_ex) - 1) (J(T_ex), K; t0 = h nu / k),
+    v0 = v_z / 1e5 + v_sys (km/s), sigma = sqrt(therm T_kin + sigma_turb^2) / 1e5 (km/s;
+    therm = k / m), delta = |dv_z/dz| / 1e5 per cell (km/s; central differences inside,
+    one-sided at the two faces, as numpy.gradient). ``sig_turb`` (cm/s) has one value or one
+    per cell."""
+    _column_inputs(opacity, t_ex, vz, t_kin, sig_turb, float(depth_km), float(t0),
+                   float(v_sys), float(therm), tau_int, src, v0, sigma, delta)
+
+
+@njit(cache=True, parallel=True, nogil=True)
+def _column_inputs(opacity, t_ex, vz, t_kin, sig_turb, depth_km, t0, v_sys, therm,
+                   tau_int, src, v0, sigma, delta):
+    n, ny, nz = vz.shape
+    one_sig = sig_turb.size == 1
+    for x in prange(n):
+        for y in range(ny):
+            c = x * ny + y
+            for z in range(nz):
+                tex = np.float64(t_ex[x, y, z])
+                tau_int[c, z] = np.float64(opacity[x, y, z]) * depth_km
+                src[c, z] = t0 / math.expm1(t0 / tex)
+                v0[c, z] = np.float64(vz[x, y, z]) * 1e-5 + v_sys
+                st = sig_turb[0] if one_sig else sig_turb[(x * ny + y) * nz + z]
+                sigma[c, z] = math.sqrt(therm * np.float64(t_kin[x, y, z]) + st * st) * 1e-5
+                if nz == 1:
+                    g = 0.0
+                elif z == 0:
+                    g = np.float64(vz[x, y, 1]) - np.float64(vz[x, y, 0])
+                elif z == nz - 1:
+                    g = np.float64(vz[x, y, nz - 1]) - np.float64(vz[x, y, nz - 2])
+                else:
+                    g = 0.5 * (np.float64(vz[x, y, z + 1]) - np.float64(vz[x, y, z - 1]))
+                delta[c, z] = abs(g) * 1e-5
 
 
 def emission_counts(tau_int, src, delta, sigma, j_bg, fwhm_per_sigma):

@@ -23,8 +23,8 @@ from ..excitation.product import Excitation
 from ..snapshot.core import Snapshot, block_rows
 from ..snapshot.lazy import SnapshotFile
 from ..molecules.hyperfine import with_hyperfine
-from ..radiation import AMU_CGS, K_CGS, T_CMB_K, radiation_temperature
-from .kernel import N_SIGMA, emission_counts, transfer_columns
+from ..radiation import AMU_CGS, H_CGS, K_CGS, T_CMB_K, radiation_temperature
+from .kernel import N_SIGMA, column_inputs, emission_counts, transfer_columns
 from .skycube import channel_grid, sky_wcs
 from .tiles import parse_memory, plan_tiles
 
@@ -411,27 +411,23 @@ def transfer_tile(snap, line, exc, x_slice, grid, v_sys_kms, j_bg, want_tau=Fals
     n = x_slice.stop - x_slice.start
     shape = (n * ny, nz)
     ex_rows = slice(None) if exc.t_ex_k.shape[0] == n else x_slice  # exc of x_slice, or all
-    t_ex = exc.t_ex_k[ex_rows].astype(np.float64)
-    src = radiation_temperature(line.freq_hz, t_ex).astype(np.float32).reshape(shape)
-    tau_int = (exc.opacity_integral[ex_rows] * (snap.cell_size_cm * 1e-5)).astype(np.float32)
-    vz = snap.velocity_cms[2, x_slice]
-    v0 = (vz * 1e-5 + v_sys_kms).astype(np.float32).reshape(shape)
-    delta = (np.abs(np.gradient(vz, axis=2)) * 1e-5 if nz > 1 else np.zeros_like(vz))
     sig_turb = snap.sigma_turb_cms
     sig_turb = sig_turb if np.ndim(sig_turb) == 0 else sig_turb[x_slice]
-    sigma = np.sqrt(K_CGS * snap.t_kin_k[x_slice] / (line.mass_amu * AMU_CGS)
-                    + np.square(sig_turb)) * 1e-5
+    cols = tuple(np.empty(shape, dtype=np.float32) for _ in range(5))
+    column_inputs(exc.opacity_integral[ex_rows], exc.t_ex_k[ex_rows],
+                  snap.velocity_cms[2, x_slice], snap.t_kin_k[x_slice],
+                  np.asarray(sig_turb, dtype=np.float64).reshape(-1),
+                  snap.cell_size_cm * 1e-5, H_CGS * line.freq_hz / K_CGS, v_sys_kms,
+                  K_CGS / (line.mass_amu * AMU_CGS), *cols)
+    tau_int, src, _, sigma, delta = cols
     out = np.empty((n * ny, grid.n), dtype=np.float32)
     tau_out = np.empty((n * ny, grid.n) if want_tau else (0, 0), dtype=np.float32)
-    cols = (tau_int.reshape(shape), src, v0, sigma.astype(np.float32).reshape(shape),
-            delta.astype(np.float32).reshape(shape))
     if hyperfine is not None:
         cols = _split_components(*cols, hyperfine)
     transfer_columns(*cols, float(grid.start_kms), float(grid.width_kms), int(grid.n), j_bg,
                      out, tau_out)
     if want_resolution:
-        counts = resolution_counts(tau_int.reshape(shape), src, delta.reshape(shape),
-                                   sigma.reshape(shape), j_bg)
+        counts = resolution_counts(tau_int, src, delta, sigma, j_bg)
         return out, (tau_out if want_tau else None), counts
     return out, (tau_out if want_tau else None)
 
