@@ -85,9 +85,9 @@ Columns are processed in blocks of 64 per parallel task (numba prange: every cor
 import math
 
 import numpy as np
-from llvmlite import ir
-from numba import njit, prange, types
-from numba.extending import intrinsic
+from numba import njit, prange
+
+from .._bits import bits_to_float
 
 __all__ = ["N_SIGMA", "MAX_SUB", "TAU_LINEAR", "transfer_columns", "column_inputs",
            "cumulative_profile", "sub_channels", "emission_counts"]
@@ -200,15 +200,6 @@ _LN2_HI = 6.93147180369123816490e-01
 _LN2_LO = 1.90821492927058770002e-10
 
 
-@intrinsic
-def _from_bits(typingctx, bits):
-    """The float64 whose IEEE 754 bit pattern is the int64 ``bits`` (a plain LLVM bitcast,
-    which vectorises: 2^k is (k + 1023) << 52)."""
-    def codegen(context, builder, signature, args):
-        return builder.bitcast(args[0], ir.DoubleType())
-    return types.float64(types.int64), codegen
-
-
 @njit(cache=True, inline="always")
 def _expm1_neg(tau):
     """exp(-tau) - 1 to about 1 ulp, also for tiny tau (no cancellation in 1 - exp(-tau)):
@@ -231,7 +222,7 @@ def _expm1_neg(tau):
     p = p * r + 1.0 / 6.0
     p = p * r + 0.5
     q = (p * r + 1.0) * r
-    s = _from_bits((np.int64(kf) + 1023) << 52)
+    s = bits_to_float((np.int64(kf) + 1023) << 52)
     return s * q + (s - 1.0)
 
 
