@@ -284,10 +284,6 @@ def _apply(n_h2, abund, t_k, kcol, lo, step, size, ve, vf, e0, f0, t0, j_bg, tau
            t_ex_out, op_out):
     nx, ny, nz = n_h2.shape
     for i in prange(nx):
-        b = np.zeros(3, dtype=np.int64)
-        fr = np.zeros(3)
-        ix = np.zeros(3, dtype=np.int64)
-        coords = np.zeros(3)
         for j in range(ny):
             for k in range(nz):
                 nm = n_h2[i, j, k] * abund[i, j, k]
@@ -295,30 +291,50 @@ def _apply(n_h2, abund, t_k, kcol, lo, step, size, ve, vf, e0, f0, t0, j_bg, tau
                     t_ex_out[i, j, k] = t_bg
                     op_out[i, j, k] = 0.0
                     continue
-                coords[0] = math.log10(n_h2[i, j, k])
-                coords[1] = math.log10(t_k[i, j, k])
-                coords[2] = math.log10(kcol[i, j, k])
-                for a in range(3):
-                    b[a] = 0
-                    fr[a] = 0.0
-                    if size[a] > 1:
-                        c = min(max((coords[a] - lo[a]) / step[a], 0.0), size[a] - 1.0)
-                        b[a] = min(int(c), size[a] - 2)
-                        fr[a] = c - b[a]
-                se = 0.0
-                sf = 0.0
-                for corner in range(8):
-                    w = 1.0
-                    for a in range(3):
-                        bit = (corner >> a) & 1
-                        ix[a] = min(b[a] + bit, size[a] - 1)
-                        w *= fr[a] if bit else 1.0 - fr[a]
-                    se += w * ve[ix[0], ix[1], ix[2]]
-                    sf += w * vf[ix[0], ix[1], ix[2]]
+                x0, x1, fx = _cell(math.log10(n_h2[i, j, k]), lo[0], step[0], size[0])
+                y0, y1, fy = _cell(math.log10(t_k[i, j, k]), lo[1], step[1], size[1])
+                z0, z1, fz = _cell(math.log10(kcol[i, j, k]), lo[2], step[2], size[2])
+                gx, gy, gz = 1.0 - fx, 1.0 - fy, 1.0 - fz
+                # the 8 corners in the order x fastest, weights (wx wy) wz
+                w = (gx * gy) * gz
+                se = w * ve[x0, y0, z0]
+                sf = w * vf[x0, y0, z0]
+                w = (fx * gy) * gz
+                se += w * ve[x1, y0, z0]
+                sf += w * vf[x1, y0, z0]
+                w = (gx * fy) * gz
+                se += w * ve[x0, y1, z0]
+                sf += w * vf[x0, y1, z0]
+                w = (fx * fy) * gz
+                se += w * ve[x1, y1, z0]
+                sf += w * vf[x1, y1, z0]
+                w = (gx * gy) * fz
+                se += w * ve[x0, y0, z1]
+                sf += w * vf[x0, y0, z1]
+                w = (fx * gy) * fz
+                se += w * ve[x1, y0, z1]
+                sf += w * vf[x1, y0, z1]
+                w = (gx * fy) * fz
+                se += w * ve[x0, y1, z1]
+                sf += w * vf[x0, y1, z1]
+                w = (fx * fy) * fz
+                se += w * ve[x1, y1, z1]
+                sf += w * vf[x1, y1, z1]
                 e = e0 * math.sinh(se)
                 f = f0 * math.sinh(sf)
                 op_out[i, j, k] = tau_coef * nm * f
                 t_ex_out[i, j, k] = _t_ex(e, f, t0, j_bg)
+
+
+@njit(inline="always")
+def _cell(coord, lo, step, size):
+    """(lower node, upper node, fraction) of ``coord`` on an axis of ``size`` nodes (one node:
+    (0, 0, 0))."""
+    if size <= 1:
+        return 0, 0, 0.0
+    c = min(max((coord - lo) / step, 0.0), size - 1.0)
+    b = min(int(c), size - 2)
+    return b, min(b + 1, size - 1), c - b
 
 
 @njit(inline="always")
