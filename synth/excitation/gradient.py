@@ -49,21 +49,36 @@ def _gradient_norm(vx, vy, vz, dx, i_start, out):
     nx, ny, nz = vx.shape
     for ii in prange(out.shape[0]):
         i = i_start + ii
-        g = np.zeros((3, 3))
         i0, i1 = _span(i, nx)
+        di = max(i1 - i0, 1)
         for j in range(ny):
             j0, j1 = _span(j, ny)
+            dj = max(j1 - j0, 1)
             for k in range(nz):
                 k0, k1 = _span(k, nz)
-                for a, v in enumerate((vx, vy, vz)):
-                    g[a, 0] = (v[i1, j, k] - v[i0, j, k]) / max(i1 - i0, 1)
-                    g[a, 1] = (v[i, j1, k] - v[i, j0, k]) / max(j1 - j0, 1)
-                    g[a, 2] = (v[i, j, k1] - v[i, j, k0]) / max(k1 - k0, 1)
-                tr = g[0, 0] + g[1, 1] + g[2, 2]
+                dk = max(k1 - k0, 1)
+                # g_ab = dv_a / dx_b
+                g00 = (vx[i1, j, k] - vx[i0, j, k]) / di
+                g01 = (vx[i, j1, k] - vx[i, j0, k]) / dj
+                g02 = (vx[i, j, k1] - vx[i, j, k0]) / dk
+                g10 = (vy[i1, j, k] - vy[i0, j, k]) / di
+                g11 = (vy[i, j1, k] - vy[i, j0, k]) / dj
+                g12 = (vy[i, j, k1] - vy[i, j, k0]) / dk
+                g20 = (vz[i1, j, k] - vz[i0, j, k]) / di
+                g21 = (vz[i, j1, k] - vz[i, j0, k]) / dj
+                g22 = (vz[i, j, k1] - vz[i, j, k0]) / dk
+                tr = g00 + g11 + g22
                 s = tr * tr
-                for a in range(3):
-                    for b in range(3):
-                        s += g[a, b] * g[a, b] + g[a, b] * g[b, a]
+                # sum over a, b of g_ab^2 + g_ab g_ba, in the order a, then b
+                s += g00 * g00 + g00 * g00
+                s += g01 * g01 + g01 * g10
+                s += g02 * g02 + g02 * g20
+                s += g10 * g10 + g10 * g01
+                s += g11 * g11 + g11 * g11
+                s += g12 * g12 + g12 * g21
+                s += g20 * g20 + g20 * g02
+                s += g21 * g21 + g21 * g12
+                s += g22 * g22 + g22 * g22
                 out[ii, j, k] = np.sqrt(s / 15.0) / dx
 
 
