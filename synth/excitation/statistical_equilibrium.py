@@ -36,6 +36,7 @@ end values are held and :class:`~synth.errors.RateExtrapolationWarning` is emitt
 from dataclasses import dataclass
 import warnings
 
+import numba
 import numpy as np
 
 from ..errors import ConvergenceError, ExcitationError, RateExtrapolationWarning
@@ -419,8 +420,8 @@ def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="expanding", 
         n_bg = 1.0 / np.expm1(H_CGS * system.freq_hz / (K_CGS * t_bg_k)) if t_bg_k > 0 else 0.0
     x_all = np.empty((n_h2.size, system.n_levels))
     iters = np.zeros(n_h2.size, dtype=np.int64)
-    for s in range(0, n_h2.size, _CHUNK):
-        sl = slice(s, s + _CHUNK)
+
+    def chunk(sl):
         gain = np.swapaxes(collision_matrix(system, t_k[sl], [d[sl] for d in dens]), 1, 2)
         lte = lambda i, t=t_k[sl]: lte_populations(system, t[i])  # noqa: E731
         thin = lambda i, g=gain: _polish(system, g[i], np.zeros(i.size), None, geometry, n_bg)  # noqa: E731
@@ -429,6 +430,17 @@ def solve_levels(system, n_h2_cm3, t_kin_k, kcol_cm3s, *, geometry="expanding", 
             starts.insert(0, (lambda i, x=np.asarray(x0, dtype=np.float64)[sl]: x[i].copy(), 1.0))
         x_all[sl], iters[sl] = _solve_chunk(system, gain, kcol[sl], starts, geometry, n_bg,
                                             tol, max_iter)
+
+    slices = [slice(s, s + _CHUNK) for s in range(0, n_h2.size, _CHUNK)]
+    threads = min(len(slices), numba.get_num_threads())
+    if threads > 1:   # the chunks are independent; numpy's batched solves release the GIL
+        from concurrent.futures import ThreadPoolExecutor
+        with ThreadPoolExecutor(threads) as pool:
+            for done in [pool.submit(chunk, sl) for sl in slices]:
+                done.result()
+    else:
+        for sl in slices:
+            chunk(sl)
     failed = iters < 0
     if failed.any():
         raise ConvergenceError(
