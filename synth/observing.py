@@ -84,18 +84,26 @@ def _python_kwargs(st, keys):
     return out
 
 
-def make_instrument(st):
-    """The instrument object a [[setup]] table describes."""
+def _required_keys(st):
+    """The keys a [[setup]] table cannot do without, checked before any instrument module is
+    imported (those imports take a second or more)."""
     if st["kind"] == "dish":
-        from .instrument.single_dish import Dish
         if st["beam_arcsec"] is None and (st["diameter_m"] is None):
             raise ConfigError(f"setup '{st['name']}' (dish) needs diameter_m or beam_arcsec")
-        return Dish(**_python_kwargs(st, INSTRUMENT_KEYS["dish"]))
+        return
     if st["antennas"] is None:
         raise ConfigError(f"setup '{st['name']}' (array) needs 'antennas'")
     if st["tsys_k"] is None and st.get("zenith_opacity") is None:
         raise ConfigError(f"setup '{st['name']}' (array) needs 'tsys_k' (or zenith_opacity "
                           "with receiver_temperature_k)")
+
+
+def make_instrument(st):
+    """The instrument object a [[setup]] table describes."""
+    _required_keys(st)
+    if st["kind"] == "dish":
+        from .instrument.single_dish import Dish
+        return Dish(**_python_kwargs(st, INSTRUMENT_KEYS["dish"]))
     from .instrument.interferometer import Array  # after the cheap checks
     return Array(**_python_kwargs(st, INSTRUMENT_KEYS["array"]))
 
@@ -136,6 +144,8 @@ def check_setups(conf, lines, sky_size_arcsec):
     too many pointings, pixel too coarse) is refused here in one line naming the setup.
     ``sky_size_arcsec`` is the (width, height) of the ideal cubes. Returns the layouts
     ``{(tracer, setup): MapLayout}``."""
+    for st in conf["setup"]:
+        _required_keys(st)
     from .errors import InstrumentError
     from .instrument.mapping import array_layout, dish_layout, map_options
     layouts = {}

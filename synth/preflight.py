@@ -325,7 +325,7 @@ def _check_setups(conf, lines, cell_pc, observing=True):
 
 def _check_setup_files(st, where):
     """antennas and fwhm_factor in config terms, before the instrument code sees them."""
-    from .instrument.beam import FWHM_FACTOR_RANGE
+    from .instrument.limits import FWHM_FACTOR_RANGE
     lo, hi = FWHM_FACTOR_RANGE
     if not lo <= st["fwhm_factor"] <= hi:
         raise ConfigError(f"{where}.fwhm_factor is {st['fwhm_factor']:g}; valid: {lo:g} <= "

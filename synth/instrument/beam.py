@@ -24,14 +24,13 @@ from scipy.signal import fftconvolve
 
 from ..errors import BeamUndersampledWarning, InstrumentError
 from ..sky import channel_frequencies_hz
+from .limits import FWHM_FACTOR_RANGE
 from .cube_utils import (BRIGHTNESS_UNITS, brightness_kind, check_cube, cube_values,
                          new_cube, pixel_scale)
 
 __all__ = ["FWHM_FACTOR_RANGE", "dish_beam", "pixel_kernel", "convolve_beam", "sky_frequencies",
            "k_to_jy_per_beam", "jy_per_beam_to_k", "to_unit", "unit_name", "jy_per_k"]
 
-#: allowed FWHM / (lambda / D): uniform illumination (1.02) to very strong taper
-FWHM_FACTOR_RANGE = (1.0, 1.5)
 #: channels convolved per FFT call (bounds the temporary memory)
 _CHANNEL_BLOCK = 64
 

@@ -28,7 +28,6 @@ Nothing here is a real object or the output of a real simulation. The recipe:
 import numpy as np
 import astropy.units as u
 import astropy.constants as const
-from scipy import fft as sfft
 
 from ..errors import MemoryBudgetError, SnapshotError
 from .core import Snapshot
@@ -153,10 +152,16 @@ def _check_args(n, mach, f_sol, beta_n, beta_v, t_range, max_bytes):
             f"max_bytes = {max_bytes / 1e9:.1f} GB; lower cells or raise max_bytes")
 
 
+def _fft():
+    """scipy.fft, imported when first needed (the config checks import this module)."""
+    from scipy import fft
+    return fft
+
+
 def _wavenumbers(n):
     """Broadcastable integer wavenumber grids (kx, ky, kz) of an rfftn of shape (n, n, n)."""
-    k = sfft.fftfreq(n, 1.0 / n).astype(np.float32)
-    kz = sfft.rfftfreq(n, 1.0 / n).astype(np.float32)
+    k = _fft().fftfreq(n, 1.0 / n).astype(np.float32)
+    kz = _fft().rfftfreq(n, 1.0 / n).astype(np.float32)
     return k[:, None, None], k[None, :, None], kz[None, None, :]
 
 
@@ -173,7 +178,7 @@ def _power_law_filter(n, slope):
 def _gaussian_fourier(rng, n, amp):
     """rfftn of white float32 noise, filtered by ``amp``."""
     white = rng.standard_normal((n, n, n), dtype=np.float32)
-    f = sfft.rfftn(white, workers=_WORKERS)
+    f = _fft().rfftn(white, workers=_WORKERS)
     f *= amp
     return f
 
@@ -182,7 +187,7 @@ def _lognormal_density(rng, n, slope, width, n0_cm3):
     """Log-normal density with ln-width ``width`` and mean exactly ``n0_cm3``."""
     if width == 0:
         return np.full((n, n, n), n0_cm3, dtype=np.float32)
-    g = sfft.irfftn(_gaussian_fourier(rng, n, _power_law_filter(n, slope)), s=(n, n, n),
+    g = _fft().irfftn(_gaussian_fourier(rng, n, _power_law_filter(n, slope)), s=(n, n, n),
                     workers=_WORKERS)
     g -= g.mean(dtype=np.float64)
     g *= np.float32(width / g.std(dtype=np.float64))
@@ -222,7 +227,7 @@ def _turbulent_velocity(rng, n, slope, f_sol, sigma3d_kms):
     del comp
     v = np.empty((3, n, n, n), dtype=np.float32)
     for c in range(3):
-        v[c] = sfft.irfftn(w[c], s=(n, n, n), workers=_WORKERS)
+        v[c] = _fft().irfftn(w[c], s=(n, n, n), workers=_WORKERS)
     del w
     rms = np.sqrt(sum(np.sum(np.square(v[c]), dtype=np.float64) for c in range(3)) / n**3)
     v *= np.float32(sigma3d_kms / rms)

@@ -48,7 +48,6 @@ before, lost 10.8 %.
 """
 
 import numpy as np
-from scipy import ndimage
 
 from ..errors import SnapshotError
 
@@ -251,7 +250,7 @@ def _rotated_view(snapshot, R, grid, edges="nearest"):
             return arr
         out = np.empty(shape_out, dtype=arr.dtype)
         for sl, coords in _slab_coordinates(shape_out, M, centre_in, centre_out):
-            out[sl] = ndimage.map_coordinates(arr, coords, order=1, mode=mode)
+            out[sl] = _map_coordinates(arr, coords, order=1, mode=mode)
         return out
 
     def intensive(arr):  # velocity, sigma_turb: the field's value, 0 outside the box
@@ -574,7 +573,7 @@ def _interpolate(chunk, local, periodic, a, names):
         if periodic:
             pad = [(0, 1) if b != a else (0, 0) for b in range(3)]
             arr = np.pad(arr, pad, mode="wrap")
-        return ndimage.map_coordinates(arr, local, order=1, mode="nearest")
+        return _map_coordinates(arr, local, order=1, mode="nearest")
 
     out = {}
     for name in names:
@@ -587,3 +586,10 @@ def _interpolate(chunk, local, periodic, a, names):
         elif np.ndim(v):
             out[name] = interp(v)
     return out
+
+
+def _map_coordinates(arr, coords, **kw):
+    """scipy.ndimage.map_coordinates, imported when first needed (the config checks import
+    this module)."""
+    from scipy import ndimage
+    return ndimage.map_coordinates(arr, coords, **kw)
