@@ -609,3 +609,27 @@ def test_plan_reports_a_setup_that_cannot_observe(tmp_path, capsys, monkeypatch)
     assert cli.main(["plan", "p.toml"]) == 0
     out = capsys.readouterr().out
     assert "not planned: arr / 13CO_1-0" in out and "dish" in out
+
+
+def test_a_bad_setup_is_refused_before_the_heavy_imports(tmp_path):
+    """The one-line error for a setup without antennas comes before synth imports its
+    instrument, imaging or cube modules (radio-beam, spectral-cube, scipy.signal, ducc0:
+    together over a second on this machine). Checked by which modules are loaded, in a fresh
+    interpreter, not by timing."""
+    import subprocess
+    import sys
+    cfg = tmp_path / "bad.toml"
+    cfg.write_text('[cloud]\nsource = "demo"\ncells = 8\n[sky]\ndistance_pc = 2000\n'
+                   '[channels]\nwidth_kms = 0.5\n[[tracer]]\nspecies = "13CO"\n'
+                   'transition = "1-0"\nabundance = 2e-6\n[[setup]]\nname = "arr"\n'
+                   'kind = "array"\ntsys_k = 90\nintegration_time_h = 1\n')
+    code = ("import sys\nfrom synth import cli\n"
+            "try:\n    cli.main(['run', sys.argv[1], '--out', sys.argv[2]])\n"
+            "except SystemExit:\n    pass\n"
+            "heavy = ['radio_beam', 'spectral_cube', 'scipy.signal', 'ducc0', 'matplotlib']\n"
+            "print(' '.join(m for m in heavy if m in sys.modules) or 'none')\n")
+    proc = subprocess.run([sys.executable, "-c", code, str(cfg), str(tmp_path / "out")],
+                          capture_output=True, text=True, timeout=120)
+    assert "[[setup]] 'arr' (array) needs 'antennas'" in proc.stderr
+    assert proc.stdout.strip().splitlines()[-1] == "none"
+    assert not (tmp_path / "out").exists()
