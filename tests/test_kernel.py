@@ -154,8 +154,10 @@ def _eval_series_part(t, h):
 
 @pytest.mark.parametrize("h", [1e-3, 0.05, 0.3, 0.7, 1.0, 1.25])
 def test_box_series_matches_mpmath(h):
-    """The series part of the box-averaged profile, F_h(t) - Phi(t) = -phi(t) P_h(t),
-    against mpmath at 30 digits ((G(t + h) - G(t - h)) / 2h - Phi(t)) to 1e-15 absolute on
+    """The series part of the box-averaged profile, F_h(t) - Phi(t) = -phi(t) P_h(t) (Taylor
+    series of Phi with Hermite-polynomial derivatives, Abramowitz & Stegun 1964, 26.2.4 and
+    22.11.8, from memory), against the closed form evaluated by mpmath at 30 digits
+    ((G(t + h) - G(t - h)) / 2h - Phi(t), G(t) = t Phi(t) + phi(t)) to 1e-15 absolute on
     |t| <= 14 (the kernel clamps |t| at 10 beyond which the term is < 1e-17), up to the
     largest h the kernel gives it; the truncation grows fast beyond (3e-15 at h = 1.5, 8e-12
     at h = 2 with the same terms, from the same comparison), which is why h is capped."""
@@ -265,9 +267,12 @@ def test_emission_counts_match_numpy():
 
 @pytest.mark.parametrize("nz, per_cell_sigma", [(9, False), (9, True), (2, True), (1, False)])
 def test_column_inputs_match_numpy(nz, per_cell_sigma):
-    """The kernel's inputs made in one pass against the same formulas in float64 numpy:
-    J(T_ex) = t0 / expm1(t0 / T_ex) (inverted, negative T_ex included), numpy.gradient of v_z
-    along z (edge_order 1), sigma = sqrt(k T / m + sigma_turb^2); float32 rounding."""
+    """The kernel's inputs made in one pass against the same formulas in float64 numpy, to
+    float32 rounding (6e-8): J(T_ex) = t0 / expm1(t0 / T_ex) (Mangum & Shirley 2015, PASP 127,
+    266, eq. 24; inverted, negative T_ex included), numpy.gradient of v_z along z (edge_order
+    1; the library is the reference), and the 1-D dispersion sigma = sqrt(k T / m +
+    sigma_turb^2) (thermal plus turbulent in quadrature; Wilson, Rohlfs & Hüttemeister 2013,
+    Tools of Radio Astronomy, from memory)."""
     rng = np.random.default_rng(nz)
     n, ny = 3, 4
     shape = (n, ny, nz)
