@@ -24,7 +24,7 @@ from ..snapshot.core import Snapshot, block_rows
 from ..snapshot.lazy import SnapshotFile
 from ..molecules.hyperfine import with_hyperfine
 from ..radiation import AMU_CGS, H_CGS, K_CGS, T_CMB_K, radiation_temperature
-from .kernel import N_SIGMA, column_inputs, emission_counts, transfer_columns
+from .kernel import column_inputs, emission_counts, transfer_columns
 from .skycube import channel_grid, sky_wcs
 from .tiles import parse_memory, plan_tiles
 
@@ -75,6 +75,11 @@ def view_source(snapshot, line_of_sight="z"):
         raise ConfigError(f"{type(snapshot).__name__} is already a view; line_of_sight must be "
                           f"'z', got {line_of_sight!r}")
     return snapshot
+
+
+#: Half-width of the default velocity range in dispersions (beyond 5 sigma a Gaussian holds
+#: 5.7e-7 of its mass; Abramowitz & Stegun 1964, table 26.1).
+N_SIGMA = 5.0
 
 
 def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z", hyperfine=None):

@@ -12,10 +12,13 @@ Printed, each measured in the same run:
     time inside the line-of-sight kernel (``transfer_columns``);
   * the floor: one numpy ``exp`` (float32, in chunks of 2^24) over exactly as many values as
     there are cell-channel pairs the profiles reach: per cell, the channels the kernel visits
-    (centroid +- N_SIGMA dispersions + half the velocity change across the cell, clipped to the
-    channel range), counted from the kernel's own inputs in a second, untimed pass;
+    (centroid +- the kernel's window, t_w dispersions + half the velocity change across the cell,
+    clipped to the channel range), counted from the kernel's own inputs in a second, untimed pass;
   * numpy ``exp`` over all cells x channels;
   * the ratios synthesis / floor (target <= 1.5), kernel / floor, synthesis / exp(all);
+  * a float64 bound: numpy's float64 ``expm1`` once per reached pair (the transfer step of
+    the kernel, which keeps float64 for its accuracy, without any profile), divided by the
+    number of cores; its ratio to the floor is what float64 arithmetic costs at least;
   * the same from CPU seconds (process time, all threads): the per-core cost, which a busy
     shared machine distorts less than wall time (the synthesis runs on every core, the
     reference on one; on an idle 2-core machine the wall ratio is about half the CPU ratio
@@ -79,16 +82,17 @@ def sine_workload(n, nz, seed=5):
     return snap, kw
 
 
-def exp_reference(n_values, chunk=1 << 24):
-    """Seconds numpy takes to evaluate exp on ``n_values`` float32 numbers (in chunks)."""
+def exp_reference(n_values, chunk=1 << 24, func=np.exp, dtype=np.float32):
+    """Seconds numpy takes to evaluate ``func`` (exp) on ``n_values`` numbers of ``dtype``
+    (float32), in chunks: (wall, CPU)."""
     rng = np.random.default_rng(0)
-    x = -rng.random(chunk, dtype=np.float32) * 10
+    x = -rng.random(chunk).astype(dtype) * 10
     out = np.empty_like(x)
     t0, c0 = time.perf_counter(), time.process_time()
     done = 0
     while done < n_values:
         m = min(chunk, n_values - done)
-        np.exp(x[:m], out=out[:m])
+        func(x[:m], out=out[:m])
         done += m
     return time.perf_counter() - t0, time.process_time() - c0
 
@@ -107,9 +111,9 @@ def numpy_simd():
 
 def reached_pairs(tau_int, v0, sigma, delta, e0, dv, nch):
     """Cell-channel pairs the kernel visits (channels, not sub-channels), its window."""
-    from synth.transfer.kernel import N_SIGMA
+    from synth.transfer.kernel import window_halfwidth
     v = v0.astype(np.float64)
-    half = N_SIGMA * sigma.astype(np.float64) + 0.5 * delta.astype(np.float64)
+    half = window_halfwidth(tau_int, sigma, delta)
     k_lo = np.clip(np.floor((v - half - e0) / dv), 0, nch)
     k_hi = np.clip(np.ceil((v + half - e0) / dv), 0, nch)
     return int(np.sum(np.where(tau_int != 0, np.maximum(k_hi - k_lo, 0), 0)))
@@ -167,6 +171,11 @@ def run(name, snap, kw, memory):
     pairs = counts[0]
     t_floor, c_floor = exp_reference(pairs)
     t_exp = exp_reference(n_cells * n_ch)[0]
+    # what the float64 arithmetic of the kernel costs at least: numpy's float64 expm1 once per
+    # reached pair (the transfer step alone, no profile), spread perfectly over every core
+    import numba
+    cores = numba.get_num_threads()
+    t_e64 = exp_reference(pairs, func=np.expm1, dtype=np.float64)[0] / cores
     shape = "x".join(str(s) for s in snap.shape)
     print(f"[{name}] grid {shape} = {n_cells} cells, {n_ch} channels of {width:.3f} km/s")
     print(f"[{name}] LTE synthesis time               {t_syn:8.2f} s (of it, in the kernel "
@@ -181,6 +190,9 @@ def run(name, snap, kw, memory):
     print(f"[{name}] CPU seconds (all threads): synthesis {c_syn:.2f}, kernel {c_kernel:.2f}, "
           f"floor {c_floor:.2f}; per-core cost synth/floor = {c_syn / c_floor:.2f}, "
           f"kernel/floor = {c_kernel / c_floor:.2f}")
+    print(f"[{name}] float64 bound: numpy float64 expm1 on reached pairs / {cores} cores "
+          f"{t_e64:6.2f} s   bound/floor = {t_e64 / t_floor:.2f}  (the transfer step alone, "
+          "before any profile)")
     print(f"[{name}] numpy exp on cells x channels    {t_exp:8.2f} s   "
           f"ratio synth/exp = {t_syn / t_exp:.2f}")
     if memory:
