@@ -11,6 +11,7 @@ an in-memory snapshot for a cluster) is the caller's business (:mod:`synth.paral
 :mod:`synth.pipeline`).
 """
 
+import math
 import warnings
 from dataclasses import dataclass, field
 
@@ -24,7 +25,7 @@ from ..snapshot.core import Snapshot, block_rows
 from ..snapshot.lazy import SnapshotFile
 from ..molecules.hyperfine import with_hyperfine
 from ..radiation import AMU_CGS, H_CGS, K_CGS, T_CMB_K, radiation_temperature
-from .kernel import column_inputs, emission_counts, transfer_columns
+from .kernel import WING_TAU, column_inputs, emission_counts, transfer_columns
 from .skycube import channel_grid, sky_wcs
 from .tiles import parse_memory, plan_tiles
 
@@ -77,9 +78,9 @@ def view_source(snapshot, line_of_sight="z"):
     return snapshot
 
 
-#: Half-width of the default velocity range in dispersions (beyond 5 sigma a Gaussian holds
-#: 5.7e-7 of its mass; Abramowitz & Stegun 1964, table 26.1).
-N_SIGMA = 5.0
+#: Half-width of the default velocity range in dispersions: the kernel's window of an
+#: optically thin cell, sqrt(2 ln(1 / WING_TAU)) = 5.26 (synth.transfer.kernel).
+N_SIGMA = math.sqrt(2.0 * math.log(1.0 / WING_TAU))
 
 
 def auto_velocity_range(snapshot, line, systemic_kms=0.0, line_of_sight="z", hyperfine=None):
@@ -128,7 +129,8 @@ def synthesize(snapshot, line, abundance, excitation="lte", **kw):
         Distance to the cloud; the pixel angle is cell_size / distance.
     channel_width : Quantity ``[speed]``
     velocity_range : Quantity ``[speed]`` (low, high), optional
-        Output (LSR radio-velocity) range; default: every cell's centroid +- 5 sigma.
+        Output (LSR radio-velocity) range; default: every cell's centroid +- 5.26 sigma
+        (the kernel's window of an optically thin cell).
     line_of_sight : str or dict, optional
         "z" (default), "-z", "x", "-x", "y", "-y" or a rotation (see
         :func:`synth.snapshot.views.view`).
