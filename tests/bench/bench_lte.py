@@ -19,9 +19,9 @@ Printed, each measured in the same run:
   * a float64 bound: numpy's float64 ``expm1`` once per reached pair (the transfer step of
     the kernel, which keeps float64 for its accuracy, without any profile), divided by the
     number of cores; its ratio to the floor is what float64 arithmetic costs at least;
-  * accuracy on 256 columns of the first block (one sub-channel each): the kernel, and the
-    formal solution run in float32, each against the formal solution over every channel in
-    float64 (what a float32 kernel would give up; see precision_check);
+  * accuracy on 256 random columns of the first block: the kernel, and the formal solution
+    run in float32, each against the formal solution over every (sub-)channel in float64
+    (what a float32 kernel would give up; see precision_check);
   * the same from CPU seconds (process time, all threads): the per-core cost, which a busy
     shared machine distorts less than wall time (the synthesis runs on every core, the
     reference on one; on an idle 2-core machine the wall ratio is about half the CPU ratio
@@ -123,40 +123,40 @@ def reached_pairs(tau_int, v0, sigma, delta, e0, dv, nch):
 
 
 def precision_check(tau_int, src, v0, sigma, delta, e0, dv, nch, j_bg, ncols=256, seed=0):
-    """What float32 arithmetic in the transfer would cost, on ``ncols`` columns of a block
-    (those with one sub-channel per channel): the formal solution over every channel (no
-    window) in float64 numpy, the profile from the kernel's own cumulative_profile, against
+    """What float32 arithmetic in the transfer would cost, on ``ncols`` random columns of a
+    block: the formal solution over every (sub-)channel (no window) in float64 numpy, the
+    profile from the kernel's own cumulative_profile and its sub-channel counts, against
     (a) the kernel and (b) the same formal solution run in float32 (float32 expm1 and
     products, the float64 optical depths rounded to float32). Returns the largest error
     of each over the columns, relative to each column's peak |T_B|."""
     from synth.transfer.kernel import cumulative_profile, sub_channels, transfer_columns
-    m = sub_channels(tau_int, sigma, dv)
-    cols = np.flatnonzero(m == 1)
-    cols = np.random.default_rng(seed).choice(cols, min(ncols, cols.size), replace=False)
-    nz = tau_int.shape[1]
-    edges = e0 + dv * np.arange(nch + 1)
-    tau = np.zeros((cols.size, nz, nch))
-    for i, c in enumerate(cols):
-        for z in np.flatnonzero(tau_int[c]):
-            f = cumulative_profile(edges, v0[c, z], sigma[c, z], delta[c, z])
-            tau[i, z] = tau_int[c, z] / dv * np.diff(f)
-    res = {}
-    for dt in (np.float64, np.float32):
-        trans, inten = np.ones((cols.size, nch), dt), np.zeros((cols.size, nch), dt)
-        s, jb = src[cols].astype(dt), dt(j_bg)
-        for z in range(nz):
-            em = np.expm1(-tau[:, z].astype(dt))
-            inten -= s[:, z, None] * em * trans
-            trans += trans * em
-        res[dt] = (inten + jb * trans - jb).astype(np.float64)
+    m_all = sub_channels(tau_int, sigma, dv)
+    cols = np.random.default_rng(seed).choice(tau_int.shape[0], min(ncols, tau_int.shape[0]),
+                                              replace=False)
     got = np.empty((cols.size, nch), np.float32)
     transfer_columns(tau_int[cols], src[cols], v0[cols], sigma[cols], delta[cols], e0, dv, nch,
                      j_bg, got, np.zeros((0, 0), np.float32))
-    ref = res[np.float64]
-    peak = np.abs(ref).max(axis=1, keepdims=True)
-    peak[peak == 0] = 1.0
-    return (float((np.abs(got - ref) / peak).max()),
-            float((np.abs(res[np.float32] - ref) / peak).max()))
+    err = [0.0, 0.0]
+    for i, c in enumerate(cols):
+        m = int(m_all[c])
+        edges = e0 + dv / m * np.arange(nch * m + 1)
+        zs = np.flatnonzero(tau_int[c])
+        tau = np.array([tau_int[c, z] * m / dv * np.diff(
+            cumulative_profile(edges, v0[c, z], sigma[c, z], delta[c, z])) for z in zs])
+        res = []
+        for dt in (np.float64, np.float32):
+            trans, inten = np.ones(nch * m, dt), np.zeros(nch * m, dt)
+            for k, z in enumerate(zs):
+                em = np.expm1(-tau[k].astype(dt))
+                inten -= dt(src[c, z]) * em * trans
+                trans += trans * em
+            t_b = (inten + dt(j_bg) * trans).astype(np.float64).reshape(nch, m).mean(axis=1)
+            res.append(t_b - j_bg)
+        peak = np.abs(res[0]).max()
+        if peak > 0:
+            err[0] = max(err[0], float(np.abs(got[i] - res[0]).max() / peak))
+            err[1] = max(err[1], float(np.abs(res[1] - res[0]).max() / peak))
+    return tuple(err)
 
 
 def run(name, snap, kw, memory):
