@@ -537,6 +537,9 @@ def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_rati
             lims[a][1] = max(lims[a][1], float(np.max(f, where=active, initial=0.0)))
         idx = np.flatnonzero(active)
         k = _hash_keys(idx + x0 * plane, seed)
+        if keys.size >= n_check:  # only keys below the n_check-th smallest so far can enter
+            below = k < keys.max()
+            idx, k = idx[below], k[below]
         if k.size > n_check:
             keep = np.argpartition(k, n_check - 1)[:n_check]
             idx, k = idx[keep], k[keep]
