@@ -49,6 +49,7 @@ import warnings
 import numpy as np
 from numba import njit, prange
 
+from .. import _vmath as vm
 from ..errors import TableAccuracyWarning
 from ..radiation import H_CGS, K_CGS, radiation_temperature
 from .statistical_equilibrium import solve_levels
@@ -279,57 +280,84 @@ def build_table(system, ranges, sample, line, opts, accuracy=0.01, max_nodes=600
     return PopulationTable(axes, vals, scales, consts, err, solves, errs)
 
 
-@njit(parallel=True, cache=True)
+_INV_LN10 = 1.0 / math.log(10.0)
+
+
+@njit(parallel=True, cache=True, error_model="numpy", fastmath={"contract"})
 def _apply(n_h2, abund, t_k, kcol, lo, step, size, ve, vf, e0, f0, t0, j_bg, tau_coef, t_bg,
            t_ex_out, op_out):
+    """Per row of cells, three loops: the table coordinates (log10 in float64 by synth._vmath,
+    which LLVM vectorises), the trilinear look-up (gathers, scalar), and the decoding
+    e = e0 sinh(.), f = f0 sinh(.) into the opacity and T_ex (vectorised). Empty cells (n_mol
+    or K not > 0) get T_bg and 0. ``abund`` holds one value per cell, or one for all as a
+    (1, 1, 1) array."""
     nx, ny, nz = n_h2.shape
+    one_ab = abund.size == 1     # one abundance for every cell (a (1, 1, 1) array)
     for i in prange(nx):
+        cx = np.empty(nz)
+        cy = np.empty(nz)
+        cz = np.empty(nz)
+        se = np.empty(nz)
+        sf = np.empty(nz)
         for j in range(ny):
             for k in range(nz):
-                nm = n_h2[i, j, k] * abund[i, j, k]
-                if nm <= 0.0 or kcol[i, j, k] <= 0.0:
-                    t_ex_out[i, j, k] = t_bg
-                    op_out[i, j, k] = 0.0
-                    continue
-                x0, x1, fx = _cell(math.log10(n_h2[i, j, k]), lo[0], step[0], size[0])
-                y0, y1, fy = _cell(math.log10(t_k[i, j, k]), lo[1], step[1], size[1])
-                z0, z1, fz = _cell(math.log10(kcol[i, j, k]), lo[2], step[2], size[2])
+                n = np.float64(n_h2[i, j, k])
+                kc = np.float64(kcol[i, j, k])
+                n = n if n > 0.0 else 1.0      # empty cells: any coordinate, result unused
+                kc = kc if kc > 0.0 else 1.0
+                cx[k] = _coord(n, lo[0], step[0], size[0])
+                cy[k] = _coord(np.float64(t_k[i, j, k]), lo[1], step[1], size[1])
+                cz[k] = _coord(kc, lo[2], step[2], size[2])
+            for k in range(nz):
+                x0, x1, fx = _node(cx[k], size[0])
+                y0, y1, fy = _node(cy[k], size[1])
+                z0, z1, fz = _node(cz[k], size[2])
                 gx, gy, gz = 1.0 - fx, 1.0 - fy, 1.0 - fz
-                se = 0.0
-                sf = 0.0
+                a = 0.0
+                b = 0.0
                 for corner in range(8):  # x fastest; weights (wx wy) wz
                     xi, wx = (x1, fx) if corner & 1 else (x0, gx)
                     yi, wy = (y1, fy) if corner & 2 else (y0, gy)
                     zi, wz = (z1, fz) if corner & 4 else (z0, gz)
                     w = (wx * wy) * wz
-                    se += w * ve[xi, yi, zi]
-                    sf += w * vf[xi, yi, zi]
-                e = e0 * math.sinh(se)
-                f = f0 * math.sinh(sf)
-                op_out[i, j, k] = tau_coef * nm * f
-                t_ex_out[i, j, k] = _t_ex(e, f, t0, j_bg)
+                    a += w * ve[xi, yi, zi]
+                    b += w * vf[xi, yi, zi]
+                se[k] = a
+                sf[k] = b
+            for k in range(nz):
+                nm = np.float64(n_h2[i, j, k]) * (abund[0, 0, 0] if one_ab else abund[i, j, k])
+                active = nm > 0.0 and kcol[i, j, k] > 0.0
+                e = e0 * vm.sinh(se[k])
+                f = f0 * vm.sinh(sf[k])
+                op_out[i, j, k] = tau_coef * nm * f if active else 0.0
+                t_ex_out[i, j, k] = _t_ex(e, f, t0, j_bg) if active else t_bg
 
 
-@njit(inline="always")
-def _cell(coord, lo, step, size):
-    """(lower node, upper node, fraction) of ``coord`` on an axis of ``size`` nodes (one node:
-    (0, 0, 0))."""
+@njit(cache=True, inline="always")
+def _coord(v, lo, step, size):
+    """Position of log10(v) on an axis in node units, clamped to [0, size - 1]."""
+    return min(max((vm.ln(v) * _INV_LN10 - lo) / step, 0.0), size - 1.0)
+
+
+@njit(cache=True, inline="always")
+def _node(c, size):
+    """(lower node, upper node, fraction) of position ``c`` on an axis of ``size`` nodes (one
+    node: (0, 0, 0))."""
     if size <= 1:
         return 0, 0, 0.0
-    c = min(max((coord - lo) / step, 0.0), size - 1.0)
     b = min(int(c), size - 2)
     return b, min(b + 1, size - 1), c - b
 
 
-@njit(inline="always")
+@njit(cache=True, inline="always")
 def _t_ex(e, f, t0, j_bg):
-    """T_ex from J(T_ex) = e/f + J(T_bg); J in [-T_0, 0] (unphysical) is clamped to 1e-3 K."""
-    if f == 0.0:
-        return 1e30 if e >= 0.0 else -1e30
-    jj = e / f + j_bg
-    if -t0 <= jj <= 0.0:
-        return 1e-3
-    return t0 / math.log1p(t0 / jj)
+    """T_ex from J(T_ex) = e/f + J(T_bg); J in [-T_0, 0] (unphysical) is clamped to 1e-3 K,
+    f = 0 gives +-1e30 (branch-free: every case is computed, one is selected)."""
+    jj = e / (f if f != 0.0 else 1.0) + j_bg
+    clamp = -t0 <= jj and jj <= 0.0
+    t_ex = t0 / vm.log1p(t0 / (1.0 if clamp else jj))
+    t_ex = 1e-3 if clamp else t_ex
+    return t_ex if f != 0.0 else (1e30 if e >= 0.0 else -1e30)
 
 
 def apply_table(table, system, k_line, snapshot, abundance, kcol, t_bg_k, rows=None):
@@ -345,7 +373,7 @@ def apply_table(table, system, k_line, snapshot, abundance, kcol, t_bg_k, rows=N
     rows = rows or slice(None)
     shape = kcol.shape
     ab = np.asarray(abundance, dtype=np.float64)
-    ab = np.broadcast_to(ab, shape) if ab.ndim == 0 else ab[rows]
+    ab = ab.reshape(1, 1, 1) if ab.ndim == 0 else np.ascontiguousarray(ab[rows])
     t_ex = np.empty(shape, dtype=np.float32)
     op = np.empty(shape, dtype=np.float32)
     nu, _, tau_coef, j_bg = table.line

@@ -96,7 +96,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .._bits import bits_to_float
+from .._vmath import exp_parts
 
 __all__ = ["WING_TAU", "MAX_SUB", "TAU_LINEAR", "transfer_columns", "column_inputs",
            "cumulative_profile", "sub_channels", "emission_counts", "window_halfwidth"]
@@ -201,38 +201,14 @@ def _exp_small(x):
     return p
 
 
-#: exp(-tau) and 1 - exp(-tau) are evaluated for |tau| <= _TAU_CLAMP (exp(-700) ~ 1e-304
-#: stands for the 0 of a larger optical depth; an inversion deeper than -700 is clamped).
-_TAU_CLAMP = 700.0
-_LOG2E = 1.4426950408889634
-# ln 2 in two parts (the fdlibm constants): k * _LN2_HI is exact for |k| < 2^20
-_LN2_HI = 6.93147180369123816490e-01
-_LN2_LO = 1.90821492927058770002e-10
-
-
 @njit(cache=True, inline="always")
 def _expm1_neg(tau):
     """exp(-tau) - 1 to about 1 ulp, also for tiny tau (no cancellation in 1 - exp(-tau)):
-    x = -tau = k ln 2 + r with |r| <= ln 2 / 2 (Cody & Waite 1980 reduction), e^r - 1 by its
-    Taylor series to 13th order (truncation < 2e-17 relative), and
-    e^x - 1 = 2^k (e^r - 1) + (2^k - 1), exact in its last step for k = 0."""
-    x = -min(max(tau, -_TAU_CLAMP), _TAU_CLAMP)
-    kf = math.floor(x * _LOG2E + 0.5)
-    r = (x - kf * _LN2_HI) - kf * _LN2_LO
-    p = 1.0 / 6227020800.0
-    p = p * r + 1.0 / 479001600.0
-    p = p * r + 1.0 / 39916800.0
-    p = p * r + 1.0 / 3628800.0
-    p = p * r + 1.0 / 362880.0
-    p = p * r + 1.0 / 40320.0
-    p = p * r + 1.0 / 5040.0
-    p = p * r + 1.0 / 720.0
-    p = p * r + 1.0 / 120.0
-    p = p * r + 1.0 / 24.0
-    p = p * r + 1.0 / 6.0
-    p = p * r + 0.5
-    q = (p * r + 1.0) * r
-    s = bits_to_float((np.int64(kf) + 1023) << 52)
+    x = -tau = k ln 2 + r with |r| <= ln 2 / 2 (Cody & Waite 1980 reduction; synth._vmath),
+    e^x - 1 = 2^k (e^r - 1) + (2^k - 1), exact in its last step for k = 0. |tau| is clamped
+    at 700: exp(-700) ~ 1e-304 stands for the 0 of a larger optical depth, and an inversion
+    deeper than -700 is clamped."""
+    s, q = exp_parts(-tau)
     return s * q + (s - 1.0)
 
 
