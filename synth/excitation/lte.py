@@ -17,6 +17,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
+from .. import _vmath as vm
 from ..errors import ExcitationError
 from ..radiation import C_CGS, H_CGS, K_CGS
 from .product import Excitation
@@ -96,20 +97,22 @@ def _lte_cells(t, n_h2, x_ab, log_t0, log_step, log_q, g_u, e_u, t0, pref, k_out
                write_t):
     """opacity_integral = pref n_H2 X g_u exp(-E_u / T) / Q(T) (exp(t0 / T) - 1) per cell, in
     one parallel pass (Q by linear interpolation of log Q on the uniform log T grid of
-    partition_table, as numpy.interp would; X per cell or one value)."""
+    partition_table, as numpy.interp would; X per cell or one value). The logarithm and the
+    exponentials come from synth._vmath (no libm calls), so that LLVM vectorises the loop."""
     size = t.size
     one_x = x_ab.size == 1
     last = log_q.size - 2
     for b in prange((size + _CHUNK - 1) // _CHUNK):
         for i in range(b * _CHUNK, min(size, (b + 1) * _CHUNK)):
             tt = np.float64(t[i])
-            f = (math.log(tt) - log_t0) / log_step
+            f = (vm.ln(tt) - log_t0) / log_step
             j = min(max(int(math.floor(f)), 0), last)
             w = min(max(f - j, 0.0), 1.0)
             lq = log_q[j] + (log_q[j + 1] - log_q[j]) * w
             x = x_ab[0] if one_x else x_ab[i]
-            k_out[i] = pref * (np.float64(n_h2[i]) * x * g_u * math.exp(-e_u / tt - lq)) \
-                * math.expm1(t0 / tt)
+            s, q = vm.exp_parts(t0 / tt)     # exp(t0 / T) - 1 = s q + (s - 1)
+            k_out[i] = pref * (np.float64(n_h2[i]) * x * g_u * vm.exp(-e_u / tt - lq)) \
+                * (s * q + (s - 1.0))
             if write_t:
                 t_out[i] = tt
 
