@@ -290,3 +290,19 @@ def test_inconsistent_file_and_no_rates(tmp_path):
         excite("BAD", 1e4 * CM3, 20 * u.K, 1e15 * NDV, datafile=path)
     with pytest.raises(ExcitationError, match="no collision rates carried for CS"):
         excite("CS", 1e4 * CM3, 20 * u.K, 1e15 * NDV)
+
+
+def test_rate_matrix_additions_with_repeated_pairs():
+    """The line terms enter the rate matrix as numpy.add.at would add them: once per line,
+    also where two lines share an (i, j) element (a level that is the upper one of several
+    lines puts all their terms on one diagonal element)."""
+    from synth.excitation.statistical_equilibrium import _add
+    rng = np.random.default_rng(0)
+    for i, j in (([0, 1, 2], [1, 2, 3]), ([2, 2, 3, 2], [2, 2, 3, 2]), ([1, 0, 1], [0, 1, 0])):
+        i, j = np.array(i), np.array(j)
+        v = rng.normal(size=(5, i.size))
+        got, want = rng.normal(size=(5, 4, 4)), None
+        want = got.copy()
+        np.add.at(want, (slice(None), i, j), v)
+        _add(got, i, j, v)
+        np.testing.assert_array_equal(got, want)

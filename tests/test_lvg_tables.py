@@ -335,3 +335,21 @@ def test_table_bounds_tau_and_source_function():
     src_ref = J(nu, t_ex_ref[thick]) - J(nu, 2.725)
     src = J(nu, exc.t_ex_k.ravel()[cells][thick].astype(float)) - J(nu, 2.725)
     assert np.max(np.abs(src - src_ref) / np.abs(src_ref)) < 0.01
+
+
+def test_kept_columns_give_the_same_blocks():
+    """Sobolev columns kept from the table's pass (keep_columns) are used for the block with
+    the same rows and give exactly what computing them again gives; they are not pickled."""
+    from synth.excitation.lvg import lvg_blocks
+    snap = cloud(n=12, seed=8)
+    kept = lvg_blocks(snap, CO10, 1e-4, rows=4, keep_columns=True)
+    fresh = lvg_blocks(snap, CO10, 1e-4, rows=4)
+    assert sorted(kept.columns) == [(0, 4), (4, 8), (8, 12)] and not fresh.columns
+    assert not pickle.loads(pickle.dumps(kept)).columns
+    for x0, x1 in ((8, 12), (0, 4), (4, 8)):      # in another order than the table's pass
+        blk = snap.block(x0, x1, halo=1)
+        inner = slice(x0 - max(0, x0 - 1), x1 - max(0, x0 - 1))
+        a, b = kept(blk, x0, x1, inner), fresh(blk, x0, x1, inner)
+        np.testing.assert_array_equal(a.t_ex_k, b.t_ex_k)
+        np.testing.assert_array_equal(a.opacity_integral, b.opacity_integral)
+    assert not kept.columns                        # each used once

@@ -73,10 +73,11 @@ class LteBlocks:
                           exc.info)
 
 
-def block_excitation(source, line, abundance, method="lte", t_ex=None, options=None, rows=None):
+def block_excitation(source, line, abundance, method="lte", t_ex=None, options=None, rows=None,
+                     keep_columns=False):
     """The block function of excitation ``method`` for ``source`` (a Snapshot or a block
     source). For "lvg" the table is built now, reading ``source`` ``rows`` rows at a time
-    (:func:`synth.excitation.lvg.lvg_blocks`)."""
+    (:func:`synth.excitation.lvg.lvg_blocks`; ``keep_columns`` as there)."""
     if isinstance(method, Excitation):
         return ProductBlocks(method)
     if callable(method) and not isinstance(method, str):
@@ -93,7 +94,8 @@ def block_excitation(source, line, abundance, method="lte", t_ex=None, options=N
     if t_ex is not None:
         raise ExcitationError("t_ex fixes an LTE excitation temperature; it cannot be used with 'lvg'")
     from .lvg import lvg_blocks
-    blocks = lvg_blocks(source, line, abundance, rows=rows, **options)
+    blocks = lvg_blocks(source, line, abundance, rows=rows, keep_columns=keep_columns,
+                        **options)
     blocks.extra_bytes_per_cell = LVG_BYTES_PER_CELL
     return blocks
 

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import astropy.units as u
-from numba import njit
+from numba import njit, prange
 
 from ..errors import ExcitationError
 from ..radiation import T_CMB_K, radiation_temperature
@@ -373,9 +373,45 @@ def _splitmix(flat, seed):
     return out
 
 
-def _log_range(arr, where):
-    return (float(np.log10(np.min(arr, where=where, initial=np.inf))),
-            float(np.log10(np.max(arr, where=where, initial=0.0))))
+@njit(cache=True, parallel=True)
+def _block_ranges(n, t, k):
+    """One parallel pass over a block's cells (flat arrays): rows of the result are
+    [active cells (n > 0 and K > 0), -], [min, max] of T over all cells, and [min, max] of n,
+    T and K over the active cells (inf, 0 when there are none)."""
+    size = n.size
+    chunk = 1 << 16
+    nb = (size + chunk - 1) // chunk
+    part = np.empty((nb, 5, 2))
+    for b in prange(nb):
+        cnt = 0.0
+        lo = np.full(4, np.inf)
+        hi = np.array([-np.inf, 0.0, 0.0, 0.0])
+        for i in range(b * chunk, min(size, (b + 1) * chunk)):
+            tt = np.float64(t[i])
+            lo[0] = min(lo[0], tt)
+            hi[0] = max(hi[0], tt)
+            nn = np.float64(n[i])
+            kk = np.float64(k[i])
+            if nn > 0.0 and kk > 0.0:
+                cnt += 1.0
+                lo[1] = min(lo[1], nn)
+                hi[1] = max(hi[1], nn)
+                lo[2] = min(lo[2], tt)
+                hi[2] = max(hi[2], tt)
+                lo[3] = min(lo[3], kk)
+                hi[3] = max(hi[3], kk)
+        part[b, 0, 0] = cnt
+        part[b, 0, 1] = 0.0
+        for r in range(4):
+            part[b, 1 + r, 0] = lo[r]
+            part[b, 1 + r, 1] = hi[r]
+    out = np.empty((5, 2))
+    out[0, 0] = part[:, 0, 0].sum()
+    out[0, 1] = 0.0
+    for r in range(1, 5):
+        out[r, 0] = part[:, r, 0].min()
+        out[r, 1] = part[:, r, 1].max()
+    return out
 
 
 def _check_snapshot_options(abundance, accuracy, t_bg_k, max_escape_length, n_check):
@@ -439,7 +475,7 @@ def lvg_excitation(snapshot, line, abundance, *, geometry="expanding", ortho_par
                         ortho_para_ratio=ortho_para_ratio, t_bg_k=t_bg_k,
                         max_escape_length=max_escape_length, accuracy=accuracy,
                         partners=partners, seed=seed, progress=report, n_check=n_check,
-                        max_table_nodes=max_table_nodes)
+                        max_table_nodes=max_table_nodes, keep_columns=True)
     shape = snapshot.shape
     t_ex = np.empty(shape, np.float32)
     op = np.empty(shape, np.float32)
@@ -465,7 +501,9 @@ class LvgBlocks:
     (:func:`lvg_blocks`), applied to each block read with a one-cell halo (its velocity
     gradients). Called as ``blocks(block, x0, x1, inner)``: ``block`` holds the view's rows
     x0:x1 at ``block`` rows ``inner`` (the rest is halo); returns their :class:`Excitation`.
-    Small; pickles to dask workers."""
+    Small; pickles to dask workers. The Sobolev columns of blocks kept by :func:`lvg_blocks`
+    (``keep_columns``) are used once, for the block with the same rows, instead of being
+    computed again; they stay in this process (not pickled)."""
 
     halo = 1
 
@@ -474,13 +512,19 @@ class LvgBlocks:
         self.line, self.table, self.system, self.k_line = line, table, system, k_line
         self.abundance, self.mass_amu = abundance, mass_amu
         self.l_max_cm, self.t_bg_k, self.info = l_max_cm, t_bg_k, info
+        self.columns = {}
+
+    def __getstate__(self):
+        return dict(self.__dict__, columns={})
 
     def __call__(self, block, x0, x1, inner):
         from .gradient import sobolev_column
         from .product import Excitation
         from .tables import apply_table
         ab = block.abundance_for(self.line.species, self.abundance)
-        kcol = sobolev_column(block, ab, self.mass_amu, self.l_max_cm, rows=inner)
+        kcol = self.columns.pop((x0, x1), None)
+        if kcol is None:
+            kcol = sobolev_column(block, ab, self.mass_amu, self.l_max_cm, rows=inner)
         if self.table is None:  # no active cell anywhere
             return Excitation(self.line, np.full(kcol.shape, self.t_bg_k, np.float32),
                               np.zeros(kcol.shape, np.float32), "lvg", self.info)
@@ -491,10 +535,14 @@ class LvgBlocks:
 
 def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_ratio=None,
                t_bg_k=T_CMB_K, max_escape_length=None, accuracy=0.01, partners=None,
-               seed=0, progress=None, n_check=1000, max_table_nodes=60000, rows=None):
+               seed=0, progress=None, n_check=1000, max_table_nodes=60000, rows=None,
+               keep_columns=False):
     """Build the LVG table of ``source`` (a Snapshot or any block source: ``shape``,
     ``cell_size_cm``, ``block(x0, x1, halo)``) reading it ``rows`` x rows at a time with a
     one-cell halo, and return the :class:`LvgBlocks` that applies it per block.
+    ``keep_columns``: keep each block's Sobolev columns (4 bytes per cell until the block is
+    applied) so that applying the table to the same blocks does not compute them again;
+    for a snapshot in memory without a memory budget.
 
     One pass over the blocks finds the ranges of log n(H2), log T_kin and log K over the
     active cells (n > 0, K > 0) and the check sample: the ``n_check`` active cells with the
@@ -517,25 +565,28 @@ def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_rati
     lims = [[np.inf, -np.inf] for _ in range(3)]
     keys = np.empty(0, np.uint64)
     picked = np.empty((0, 3))
+    kept = {}
     for x0, x1 in _passes(shape, rows):
         blk = source.block(x0, x1, halo=GRADIENT_HALO)
         lo = max(0, x0 - GRADIENT_HALO)
         inner = slice(x0 - lo, x1 - lo)
         t = blk.t_kin_k[inner]
-        t_lo, t_hi = min(t_lo, float(t.min())), max(t_hi, float(t.max()))
         kcol = sobolev_column(blk, blk.abundance_for(line.species, abundance), mol.mass_amu,
                               l_max, rows=inner)
+        if keep_columns:
+            kept[(x0, x1)] = kcol
         n = blk.n_h2_cm3[inner]
-        active = (n > 0) & (kcol > 0)
-        count = int(active.sum())
+        fields = (n, t, kcol)
+        part = _block_ranges(*(np.ascontiguousarray(f).reshape(-1) for f in fields))
+        t_lo, t_hi = min(t_lo, part[1, 0]), max(t_hi, part[1, 1])
+        count = int(part[0, 0])
         if not count:
             continue
         n_active += count
-        fields = (n, t, kcol)
-        for a, f in enumerate(fields):
-            lims[a][0] = min(lims[a][0], float(np.min(f, where=active, initial=np.inf)))
-            lims[a][1] = max(lims[a][1], float(np.max(f, where=active, initial=0.0)))
-        idx = np.flatnonzero(active)
+        for a in range(3):
+            lims[a][0] = min(lims[a][0], part[2 + a, 0])
+            lims[a][1] = max(lims[a][1], part[2 + a, 1])
+        idx = np.flatnonzero((n > 0) & (kcol > 0))
         k = _hash_keys(idx + x0 * plane, seed)
         if keys.size >= n_check:  # only keys below the n_check-th smallest so far can enter
             below = k < keys.max()
@@ -548,7 +599,7 @@ def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_rati
         if keys.size > n_check:
             keep = np.argpartition(keys, n_check - 1)[:n_check]
             keys, picked = keys[keep], picked[keep]
-        del blk, kcol, n, t, active
+        del blk, kcol, n, t
     info = {"geometry": geometry, "accuracy": accuracy, "active_cells": n_active}
     system = level_system(mol, t_hot_k=max(t_hi, t_bg_k), min_fraction=1e-10,
                           keep_below_k=float(mol.energy_k[mol.upper[k_mol]]))
@@ -562,7 +613,9 @@ def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_rati
         info.update(table_error=0.0, table_error_t_r=0.0, table_error_tau=0.0,
                     table_error_source=0.0, table_shape=(0, 0, 0), table_nodes=0,
                     direct_solves=0)
-        return LvgBlocks(*args)
+        blocks = LvgBlocks(*args)
+        blocks.columns = kept
+        return blocks
     ranges = [(float(np.log10(lo_)), float(np.log10(hi_))) for lo_, hi_ in lims]
     sample = np.log10(picked[np.argsort(keys, kind="stable")])
     opts = {"geometry": geometry, "t_bg_k": t_bg_k, "ortho_para_ratio": ortho_para_ratio,
@@ -578,4 +631,5 @@ def lvg_blocks(source, line, abundance, *, geometry="expanding", ortho_para_rati
                                                             "k_cm3s": ranges[2]})
     blocks = LvgBlocks(*args)
     blocks.table = table
+    blocks.columns = kept
     return blocks

@@ -282,12 +282,22 @@ class SolveResult:
     iterations: np.ndarray
 
 
+def _add(m, i, j, v):
+    """m[:, i, j] += v for index pairs (i, j) of the lines. np.add.at is needed only where a
+    pair repeats; where all pairs differ, fancy-index += does the same single addition per
+    element, and much faster."""
+    if np.unique(i * m.shape[-1] + j).size == i.size:
+        m[:, i, j] += v
+    else:
+        np.add.at(m, (slice(None), i, j), v)
+
+
 def _rate_matrix(c_gain, beta, system, n_bg):
     """Rate matrix M (nb, nlev, nlev) with M x = dx/dt for fixed beta; modifies c_gain."""
     m = c_gain  # gain matrix m[b, i, j] = rate j -> i (a fresh copy)
     up, lo = system.upper, system.lower
-    np.add.at(m, (slice(None), lo, up), beta * (system.a_ul_s * (1.0 + n_bg)))
-    np.add.at(m, (slice(None), up, lo), beta * (system.a_ul_s * n_bg * system.g[up] / system.g[lo]))
+    _add(m, lo, up, beta * (system.a_ul_s * (1.0 + n_bg)))
+    _add(m, up, lo, beta * (system.a_ul_s * n_bg * system.g[up] / system.g[lo]))
     idx = np.arange(system.n_levels)
     m[:, idx, idx] = 0.0
     m[:, idx, idx] = -m.sum(axis=1)
@@ -307,11 +317,10 @@ def _newton_step(system, c_gain, kcol, x, geometry, n_bg):
     f = np.einsum("bij,bj->bi", m, x)
     drive = system.a_ul_s * (x[:, up] * (1.0 + n_bg) - x[:, lo] * gr * n_bg)
     s = drive * escape_probability_derivative(tau, geometry) * system.tau_coef * kcol[:, None]
-    all_b = slice(None)
-    np.add.at(m, (all_b, up, up), s)
-    np.add.at(m, (all_b, up, lo), -s * gr)
-    np.add.at(m, (all_b, lo, up), -s)
-    np.add.at(m, (all_b, lo, lo), s * gr)
+    _add(m, up, up, s)
+    _add(m, up, lo, -s * gr)
+    _add(m, lo, up, -s)
+    _add(m, lo, lo, s * gr)
     m[:, 0, :] = 1.0
     f[:, 0] = x.sum(axis=1) - 1.0
     try:
