@@ -218,7 +218,8 @@ def synthesize_products(snapshot, line, abundance, excitation="lte", *, distance
     blocks = block_excitation(source, line, abundance, excitation, t_ex,
                               _with_background(excitation, excitation_options, t_bg_k),
                               rows=plan.tile_rows,
-                              keep_columns=memory is None and isinstance(source, Snapshot))
+                              keep_columns=(memory is None and isinstance(source, Snapshot)
+                                            and getattr(executor, "in_process", True)))
     job = _Job(line, grid, v_sys, float(radiation_temperature(line.freq_hz, t_bg_k)),
                "tau" in products, "column" in products, float(abundance), hfs)
     data, tau, col, counts = _integrate(source, blocks, plan, job, executor, progress)
