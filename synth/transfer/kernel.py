@@ -77,8 +77,8 @@ M(x) = (1 - Phi(x)) / phi(x) (Abramowitz & Stegun 1964, 26.2.5, 7.1.2):
 
 with M and 1 - x M as degree-16 polynomials in (x - 5)/(x + 5) (fitted to
 scipy.special.erfcx, 1e-12 relative; F is exact to ~1e-15 absolute times sigma/delta,
-where the previous cubic-Hermite tables gave ~2e-10 times sigma/delta) and phi by a Taylor
-series squared seven times. For a cell whose velocity change is at most 2.5 dispersions
+where the previous cubic-Hermite tables gave ~2e-10 times sigma/delta) and phi by the
+range-reduced exponential of synth._vmath. For a cell whose velocity change is at most 2.5 dispersions
 (h = delta / 2 sigma <= 1.25; most cells of a resolved flow) the box average is a series in h
 instead, F = Phi(t) - phi(t) P_h(t) with P_h a polynomial in t whose coefficients are made
 once per cell (see _box_series; exact to 1e-15): one Phi and 14 multiply-adds per channel
@@ -96,7 +96,7 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .._vmath import exp_parts
+from .._vmath import exp as vexp, exp_parts
 
 __all__ = ["WING_TAU", "MAX_SUB", "TAU_LINEAR", "transfer_columns", "column_inputs",
            "cumulative_profile", "sub_channels", "emission_counts", "window_halfwidth"]
@@ -126,7 +126,7 @@ TAU_LINEAR = 0.01
 # squares on Chebyshev nodes against scipy.special.erfcx (M(x) = sqrt(pi/2) erfcx(x/sqrt(2)));
 # tests/test_kernel.py refits them and checks them to 1e-12 relative on [0, _X_MAX].
 # Beyond |t| = _X_MAX phi < 2e-16, so x is clamped there. phi(t) = exp(-t^2/2)/sqrt(2 pi)
-# uses _exp_small. Everything is arithmetic without branches or table look-ups, so that LLVM
+# uses synth._vmath.exp. Everything is arithmetic without branches or table look-ups, so that LLVM
 # vectorises the channel loops (numba gives no vector exp or gather here).
 _L = 5.0
 _X_MAX = 8.5
@@ -180,28 +180,6 @@ def _mills_h(y):
 
 
 @njit(cache=True, inline="always")
-def _exp_small(x):
-    """exp(x) for -37 < x <= 0 (relative error < 2e-14): the Taylor series to 11th order of
-    exp(x / 128), squared 7 times."""
-    r = x * (1.0 / 128.0)
-    p = 1.0 / 39916800.0
-    p = p * r + 1.0 / 3628800.0
-    p = p * r + 1.0 / 362880.0
-    p = p * r + 1.0 / 40320.0
-    p = p * r + 1.0 / 5040.0
-    p = p * r + 1.0 / 720.0
-    p = p * r + 1.0 / 120.0
-    p = p * r + 1.0 / 24.0
-    p = p * r + 1.0 / 6.0
-    p = p * r + 0.5
-    p = p * r + 1.0
-    p = p * r + 1.0
-    for _ in range(7):
-        p = p * p
-    return p
-
-
-@njit(cache=True, inline="always")
 def _expm1_neg(tau):
     """exp(-tau) - 1 to about 1 ulp, also for tiny tau (no cancellation in 1 - exp(-tau)):
     x = -tau = k ln 2 + r with |r| <= ln 2 / 2 (Cody & Waite 1980 reduction; synth._vmath),
@@ -219,7 +197,7 @@ def _phi_mills(t):
     w = 1.0 / (x + _L)
     y = (x - _L) * w
     lw = _L * w
-    ph = _exp_small(-0.5 * x * x) * _INV_SQRT_2PI
+    ph = vexp(-0.5 * x * x) * _INV_SQRT_2PI
     return ph, _mills_m(y) * lw, _mills_h(y) * lw * lw
 
 
@@ -228,7 +206,7 @@ def _phi_cdf(t):
     """Gaussian CDF Phi(t)."""
     x = min(abs(t), _X_MAX)
     w = 1.0 / (x + _L)
-    pm = _exp_small(-0.5 * x * x) * _INV_SQRT_2PI * _mills_m((x - _L) * w) * _L * w
+    pm = vexp(-0.5 * x * x) * _INV_SQRT_2PI * _mills_m((x - _L) * w) * _L * w
     return 1.0 - pm if t >= 0.0 else pm
 
 
@@ -239,7 +217,7 @@ def _g(t):
     w = 1.0 / (x + _L)
     lw = _L * w
     h = _mills_h((x - _L) * w) * lw * lw
-    return max(t, 0.0) + _exp_small(-0.5 * x * x) * _INV_SQRT_2PI * h
+    return max(t, 0.0) + vexp(-0.5 * x * x) * _INV_SQRT_2PI * h
 
 
 # The box average by a series in h = delta / (2 sigma), for h <= _H_SERIES. With
@@ -290,7 +268,7 @@ def _box_series(t, u, q):
     x = abs(tc)
     xm = min(x, _X_MAX)
     w = 1.0 / (xm + _L)
-    ph = _exp_small(-0.5 * x * x) * _INV_SQRT_2PI
+    ph = vexp(-0.5 * x * x) * _INV_SQRT_2PI
     pm = ph * _mills_m((xm - _L) * w) * _L * w
     cdf = 1.0 - pm if t >= 0.0 else pm
     sv = u * tc * tc
